@@ -1,0 +1,754 @@
+"""Parameter sweeps: many cases, several seeds each, on a process pool or a Dask cluster.
+
+A sweep file (TOML) names a base case and the case keys to vary::
+
+    base = "square.toml"                      # relative to this file; or an inline [base] table
+    combine = "grid"                          # "grid" (every combination) or "zip" (side by side)
+    seeds = 3                                 # realizations per point
+
+    [vary]
+    "obstacles.spacing_nm" = [30, 40, 50]
+    "obstacles.critical_angle_deg" = {linear = [0, 90, 4]}    # or {log = [start, stop, count]}
+
+    [output]
+    folder = "sweeps/demo"                    # relative to this file; --out overrides
+
+Every point × seed is one run with a stable id (``p003_s01``) and a folder ``runs/<id>/`` holding
+exactly what :func:`dlsim.api.run_case` writes.  The main process writes each folder atomically
+(a hidden temporary folder renamed into place), so a rerun resumes: finished runs are skipped and an
+interruption loses at most the runs in flight.  ``sweep.json`` stores the expanded sweep; a resume
+against a changed sweep file is refused.
+
+Seeds: seed index 0 is the point's own case seed (so a sweep point reproduces ``dlsim run`` of the
+same case); index k >= 1 is ``SeedSequence(seed, spawn_key=(k,)).generate_state(1)[0]``, the k-th
+child that ``numpy.random.SeedSequence(seed).spawn`` would give.  Unless ``seed`` itself is varied,
+every point uses the same seeds (common random numbers: differences between points are not blurred
+by different realizations).
+"""
+from __future__ import annotations
+
+import concurrent.futures as cf
+import contextlib
+import copy
+import csv
+import itertools
+import json
+import math
+import multiprocessing
+import os
+import shutil
+import signal
+import tempfile
+import threading
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable, Iterator
+
+import numpy as np
+
+from .errors import CaseError, DlsimError, SimulationError
+
+SWEEP_KEYS = ("title", "base", "vary", "combine", "seeds", "output")
+OUTPUT_KEYS = ("folder",)
+COMBINE_MODES = ("grid", "zip")
+RANGE_KINDS = ("linear", "log")
+# Generated range values are rounded to this many significant digits so that 0.1 + 0.2 style
+# residues do not leak into case files, folder summaries and plot labels.
+RANGE_DIGITS = 12
+RUNS_FOLDER = "runs"
+SWEEP_JSON = "sweep.json"
+SUMMARY_RUNS = "summary_runs.csv"
+SUMMARY_POINTS = "summary_points.csv"
+TMP_PREFIX = ".tmp-"
+# Two-sided 95 % confidence interval of the mean (Student t).
+CI_LEVEL = 0.95
+DASK_HINT = "Dask is not installed: pip install 'dlsim[cluster]'"
+
+
+# --------------------------------------------------------------------------- sweep file
+
+
+@dataclass(frozen=True)
+class RunSpec:
+    """One run of a sweep: a point of the parameter grid with one seed.
+
+    Attributes
+    ----------
+    run_id : str
+        Stable name, e.g. ``"p003_s01"``; also the folder ``runs/<run_id>``.
+    point : int
+        Index of the parameter point (0-based).
+    seed_index : int
+        Index of the realization at this point (0-based).
+    seed : int
+        The case seed of this run.
+    params : dict
+        Swept dotted key → value at this point.
+    case : dict
+        The complete raw case (base with the overrides and the seed applied).
+    """
+
+    run_id: str
+    point: int
+    seed_index: int
+    seed: int
+    params: dict
+    case: dict
+
+
+@dataclass(frozen=True)
+class Sweep:
+    """A validated, expanded sweep file.
+
+    Attributes
+    ----------
+    source : str
+        The sweep file (or ``"<dict>"``).
+    vary : dict
+        Swept dotted key → list of values (ranges already expanded), in file order.
+    scales : dict
+        Swept dotted key → ``"list"``, ``"linear"`` or ``"log"`` (how the values were given).
+    combine : str
+        ``"grid"`` or ``"zip"``.
+    seeds : int
+        Realizations per point.
+    runs : list of RunSpec
+        Every run, point-major then seed.
+    out_dir : Path or None
+        ``[output] folder`` resolved against the sweep file's folder.
+    title : str
+    """
+
+    source: str
+    vary: dict
+    scales: dict
+    combine: str
+    seeds: int
+    runs: list = field(repr=False)
+    out_dir: Path | None = None
+    title: str = ""
+
+    @property
+    def n_points(self) -> int:
+        return len(self.runs) // self.seeds
+
+    def to_json(self) -> dict:
+        """The expanded sweep as written to ``sweep.json``."""
+        return {
+            "source": self.source,
+            "title": self.title,
+            "combine": self.combine,
+            "seeds": self.seeds,
+            "vary": self.vary,
+            "scales": self.scales,
+            "runs": [
+                {"id": r.run_id, "point": r.point, "seed_index": r.seed_index, "seed": r.seed,
+                 "params": r.params, "case": r.case}
+                for r in self.runs
+            ],
+        }
+
+
+def load_sweep(sweep: str | os.PathLike | dict) -> Sweep:
+    """Read, validate and expand a sweep file.
+
+    Parameters
+    ----------
+    sweep : path or dict
+        A sweep TOML file or the same content as a dictionary (then ``base`` paths are relative
+        to the working directory).
+
+    Returns
+    -------
+    Sweep
+
+    Raises
+    ------
+    CaseError
+        One line naming the file and key: unknown sweep keys, a varied key that is not a case
+        key, empty lists, bad ranges, zip lists of unequal length, a bad seed count, or a point
+        whose case does not validate.
+    """
+    raw, source, folder = _read_toml(sweep)
+    unknown = sorted(set(raw) - set(SWEEP_KEYS))
+    if unknown:
+        raise CaseError(source, unknown[0], f"unknown sweep key; allowed: {', '.join(SWEEP_KEYS)}")
+    base = _load_base(raw, source, folder)
+    vary, scales = _parse_vary(raw.get("vary"), source)
+    combine = raw.get("combine", "grid")
+    if combine not in COMBINE_MODES:
+        raise CaseError(source, "combine", f"got {combine!r}; allowed: 'grid', 'zip'")
+    seeds = raw.get("seeds", 1)
+    if isinstance(seeds, bool) or not isinstance(seeds, int) or seeds < 1:
+        raise CaseError(source, "seeds", f"got {seeds!r}; must be an integer >= 1")
+    title = raw.get("title", "")
+    if not isinstance(title, str):
+        raise CaseError(source, "title", f"got {title!r}; must be a string")
+    points = _combine(vary, combine, source)
+    runs = _expand(base, points, seeds, source)
+    return Sweep(source=source, vary=vary, scales=scales, combine=combine, seeds=seeds,
+                 runs=runs, out_dir=_output_folder(raw.get("output"), source, folder),
+                 title=title)
+
+
+def _read_toml(sweep) -> tuple[dict, str, Path]:
+    if isinstance(sweep, dict):
+        return copy.deepcopy(sweep), "<dict>", Path.cwd()
+    path = Path(sweep)
+    try:
+        with open(path, "rb") as fh:
+            return tomllib.load(fh), str(path), path.resolve().parent
+    except FileNotFoundError:
+        raise CaseError(str(path), "", "sweep file not found") from None
+    except tomllib.TOMLDecodeError as err:
+        raise CaseError(str(path), "", f"not valid TOML: {err}") from None
+
+
+def _load_base(raw: dict, source: str, folder: Path) -> dict:
+    """The base case as a raw dictionary, validated once."""
+    from .case import load_case
+
+    base = raw.get("base")
+    if base is None:
+        raise CaseError(source, "base", "missing; give a case file path or an inline [base] table")
+    if isinstance(base, str):
+        path = folder / base
+        if not path.is_file():
+            raise CaseError(source, "base", f"case file {str(path)!r} not found")
+        load_case(path)  # errors name the case file itself
+        with open(path, "rb") as fh:
+            return tomllib.load(fh)
+    if isinstance(base, dict):
+        _validate_case(base, source, "base")
+        return copy.deepcopy(base)
+    raise CaseError(source, "base", f"got {base!r}; must be a path or a table")
+
+
+def _validate_case(case: dict, source: str, where: str) -> None:
+    """Validate a raw case; re-raise its errors against the sweep file."""
+    from .case import load_case
+
+    try:
+        load_case(case)
+    except CaseError as err:
+        raise CaseError(source, err.key, f"{err.problem} ({where})") from None
+
+
+def _parse_vary(vary, source: str) -> tuple[dict, dict]:
+    if not isinstance(vary, dict) or not vary:
+        raise CaseError(source, "vary", "missing or empty; give at least one case key to vary")
+    from .case import schema_has_key
+
+    values, scales = {}, {}
+    for key, spec in _flatten_vary(vary):
+        where = f"vary.{key}"
+        if not schema_has_key(key):
+            raise CaseError(source, where, f"{key!r} is not a case key")
+        values[key], scales[key] = _expand_values(spec, source, where)
+    return values, scales
+
+
+def _flatten_vary(vary: dict, prefix: str = "") -> Iterator[tuple[str, Any]]:
+    """Dotted key → spec; unquoted dotted keys arrive as nested tables and are joined back."""
+    for key, spec in vary.items():
+        dotted = f"{prefix}{key}"
+        if isinstance(spec, dict) and not (set(spec) & set(RANGE_KINDS)):
+            yield from _flatten_vary(spec, dotted + ".")
+        else:
+            yield dotted, spec
+
+
+def _expand_values(spec, source: str, where: str) -> tuple[list, str]:
+    """A list of values, or a ``{linear|log = [start, stop, count]}`` table, as a list."""
+    if isinstance(spec, list):
+        if not spec:
+            raise CaseError(source, where, "empty list; give at least one value")
+        return spec, "list"
+    if not isinstance(spec, dict):
+        raise CaseError(source, where, f"got {spec!r}; give a list of values or "
+                                       "{linear = [start, stop, count]} / {log = [...]}")
+    if len(spec) != 1 or next(iter(spec)) not in RANGE_KINDS:
+        raise CaseError(source, where, f"got table keys {sorted(spec)}; "
+                                       "give exactly one of 'linear', 'log'")
+    kind, args = next(iter(spec.items()))
+    start, stop, count = _range_args(args, source, f"{where}.{kind}")
+    if kind == "log":
+        if start <= 0 or stop <= 0:
+            raise CaseError(source, f"{where}.log", f"got [{start}, {stop}, {count}]; "
+                                                   "a log range needs start > 0 and stop > 0")
+        vals = np.geomspace(start, stop, count)
+    else:
+        vals = np.linspace(start, stop, count)
+    return _tidy(vals, all(isinstance(a, int) for a in (start, stop))), kind
+
+
+def _range_args(args, source: str, where: str) -> tuple[float, float, int]:
+    ok = isinstance(args, list) and len(args) == 3
+    if ok:
+        start, stop, count = args
+        ok = all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in (start, stop))
+    if not ok:
+        raise CaseError(source, where, f"got {args!r}; give [start, stop, count]")
+    if isinstance(count, bool) or not isinstance(count, int) or count < 1:
+        raise CaseError(source, where, f"count {count!r}; must be an integer >= 1")
+    if not (math.isfinite(start) and math.isfinite(stop)):
+        raise CaseError(source, where, f"got {args!r}; start and stop must be finite")
+    return start, stop, count
+
+
+def _tidy(vals: np.ndarray, integers: bool) -> list:
+    """Plain Python numbers, ints where integer ends give integral values."""
+    out = [float(f"{v:.{RANGE_DIGITS}g}") for v in vals]
+    if integers and all(v.is_integer() for v in out):
+        return [int(v) for v in out]
+    return out
+
+
+def _combine(vary: dict, combine: str, source: str) -> list[dict]:
+    keys = list(vary)
+    if combine == "zip":
+        lengths = {k: len(v) for k, v in vary.items()}
+        if len(set(lengths.values())) > 1:
+            detail = ", ".join(f"{k}: {n}" for k, n in lengths.items())
+            raise CaseError(source, "combine", f"'zip' needs lists of equal length; got {detail}")
+        rows = zip(*vary.values())
+    else:
+        rows = itertools.product(*vary.values())
+    return [dict(zip(keys, row)) for row in rows]
+
+
+def _expand(base: dict, points: list[dict], seeds: int, source: str) -> list[RunSpec]:
+    from .case import apply_overrides
+
+    width = max(3, len(str(len(points) - 1)))
+    swidth = max(2, len(str(seeds - 1)))
+    runs = []
+    for p, params in enumerate(points):
+        case = apply_overrides(base, params)
+        _validate_case(case, source, f"sweep point {p}: {_describe(params)}")
+        for k, seed in enumerate(derive_seeds(case["seed"], seeds)):
+            run_case = copy.deepcopy(case)
+            run_case["seed"] = seed
+            runs.append(RunSpec(f"p{p:0{width}d}_s{k:0{swidth}d}", p, k, seed, params, run_case))
+    return runs
+
+
+def _describe(params: dict) -> str:
+    return ", ".join(f"{k} = {v!r}" for k, v in params.items())
+
+
+def derive_seeds(seed: int, count: int) -> list[int]:
+    """Seeds of ``count`` realizations derived from a case seed.
+
+    Index 0 is ``seed`` itself; index k >= 1 is the first 32-bit word of the k-th spawned child,
+    ``numpy.random.SeedSequence(seed, spawn_key=(k,))`` (what ``SeedSequence(seed).spawn`` yields).
+    """
+    return [int(seed)] + [
+        int(np.random.SeedSequence(int(seed), spawn_key=(k,)).generate_state(1)[0])
+        for k in range(1, count)
+    ]
+
+
+def _output_folder(output, source: str, folder: Path) -> Path | None:
+    if output is None:
+        return None
+    if not isinstance(output, dict):
+        raise CaseError(source, "output", "must be a table with `folder`")
+    unknown = sorted(set(output) - set(OUTPUT_KEYS))
+    if unknown:
+        raise CaseError(source, f"output.{unknown[0]}", "unknown key; allowed: folder")
+    value = output.get("folder")
+    if value is None:
+        return None
+    if not isinstance(value, str) or not value:
+        raise CaseError(source, "output.folder", f"got {value!r}; must be a folder path")
+    return folder / value
+
+
+# --------------------------------------------------------------------------- running
+
+
+@dataclass
+class SweepOutcome:
+    """What :func:`run_sweep` did.
+
+    Attributes
+    ----------
+    out_dir : Path
+    ran, skipped : list of str
+        Run ids computed now, and those already finished before.
+    failed : dict
+        Run id → one-line error message.
+    """
+
+    out_dir: Path
+    ran: list
+    skipped: list
+    failed: dict
+
+
+def run_sweep(sweep: str | os.PathLike | dict | Sweep, out_dir=None, workers: int | None = None,
+              scheduler: str | None = None, progress: bool = True) -> SweepOutcome:
+    """Run (or resume) every run of a sweep and write the summaries.
+
+    Parameters
+    ----------
+    sweep : path, dict or Sweep
+    out_dir : path, optional
+        Sweep folder; default ``[output] folder`` of the sweep file.
+    workers : int, optional
+        Parallel runs; default every core this process may use.  With ``scheduler`` an address
+        of an existing cluster it is ignored (the cluster has its own workers).
+    scheduler : str, optional
+        ``None``: a local process pool.  ``"local"``: a Dask ``LocalCluster``.  Anything else:
+        the address of a running Dask scheduler, e.g. ``"tcp://node17:8786"``.
+    progress : bool
+        A tqdm bar over runs on stderr.
+
+    Returns
+    -------
+    SweepOutcome
+
+    Raises
+    ------
+    CaseError
+        Bad sweep file, no output folder, or a folder holding a different sweep.
+    SimulationError
+        Some runs failed (the others are written, and so are the summaries); rerun to retry them.
+    """
+    sw = sweep if isinstance(sweep, Sweep) else load_sweep(sweep)
+    out = _resolve_out(sw, out_dir)
+    _prepare_folder(sw, out)
+    done = {r.run_id for r in sw.runs if is_finished(out, r.run_id)}
+    todo = [r for r in sw.runs if r.run_id not in done]
+    failed: dict = {}
+    bar = _progress_bar(len(sw.runs), len(done), progress)
+    try:
+        with _terminate_as_interrupt(), contextlib.closing(_execute(todo, workers, scheduler)) as results:
+            for spec, outcome in results:
+                if isinstance(outcome, BaseException):
+                    failed[spec.run_id] = f"{type(outcome).__name__}: {outcome}"
+                    bar.write(f"dlsim: run {spec.run_id} failed: {failed[spec.run_id]}")
+                else:
+                    write_run_folder(out, spec.run_id, outcome)
+                bar.update(1)
+    finally:
+        bar.close()
+    summarize_sweep(out)
+    if failed:
+        first = next(iter(failed))
+        raise SimulationError(f"{len(failed)} of {len(todo)} runs failed (first: {first}: "
+                              f"{failed[first]}); rerun the same command to retry them")
+    return SweepOutcome(out, [r.run_id for r in todo], sorted(done), failed)
+
+
+def _resolve_out(sw: Sweep, out_dir) -> Path:
+    if out_dir is not None:
+        return Path(out_dir)
+    if sw.out_dir is None:
+        raise CaseError(sw.source, "output.folder", "missing; set it in the sweep file or pass --out")
+    return sw.out_dir
+
+
+def _prepare_folder(sw: Sweep, out: Path) -> None:
+    """Create the folder, or check that it holds this same sweep; clear half-written runs."""
+    runs = out / RUNS_FOLDER
+    runs.mkdir(parents=True, exist_ok=True)
+    stored = out / SWEEP_JSON
+    expanded = sw.to_json()
+    if stored.exists():
+        _check_same_sweep(json.loads(stored.read_text()), expanded, sw.source, out)
+    else:
+        _write_atomic(stored, json.dumps(expanded, indent=1, sort_keys=False).encode())
+    for tmp in runs.glob(TMP_PREFIX + "*"):
+        shutil.rmtree(tmp, ignore_errors=True)
+
+
+def _check_same_sweep(old: dict, new: dict, source: str, out: Path) -> None:
+    # Compare through JSON so that tuples/lists and int/float spellings agree with the stored file.
+    old_runs = json.loads(json.dumps(old.get("runs", [])))
+    new_runs = json.loads(json.dumps(new["runs"]))
+    if old_runs == new_runs and old.get("vary") == json.loads(json.dumps(new["vary"])):
+        return
+    if len(old_runs) != len(new_runs):
+        detail = f"{len(old_runs)} runs there, {len(new_runs)} now"
+    else:
+        first = next((n["id"] for o, n in zip(old_runs, new_runs) if o != n), "vary")
+        detail = f"first difference at {first}"
+    raise CaseError(source, "", f"differs from the sweep already in {str(out)!r} ({SWEEP_JSON}: "
+                                f"{detail}); use a new --out folder or delete that one")
+
+
+def is_finished(out: Path, run_id: str) -> bool:
+    """A run folder exists only once complete (it is renamed into place)."""
+    return (Path(out) / RUNS_FOLDER / run_id / "result.json").is_file()
+
+
+def write_run_folder(out: Path, run_id: str, files: dict[str, bytes]) -> Path:
+    """Write a run's files into a hidden folder, then rename it into ``runs/<run_id>``."""
+    final = Path(out) / RUNS_FOLDER / run_id
+    tmp = Path(tempfile.mkdtemp(prefix=f"{TMP_PREFIX}{run_id}-", dir=final.parent))
+    for name, data in files.items():
+        (tmp / name).write_bytes(data)
+    os.replace(tmp, final)
+    return final
+
+
+def _write_atomic(path: Path, data: bytes) -> None:
+    tmp = path.with_name(f"{TMP_PREFIX}{path.name}")
+    tmp.write_bytes(data)
+    os.replace(tmp, path)
+
+
+def run_one(case: dict) -> dict[str, bytes]:
+    """Run one case in a scratch folder and return its files (name → bytes).
+
+    This is what a pool process or Dask worker executes; returning the bytes lets the main
+    process do all the writing (atomic, and no shared file system needed on a cluster).
+    """
+    from .api import run_case
+
+    with tempfile.TemporaryDirectory(prefix="dlsim-run-") as tmp:
+        run_case(case, out_dir=tmp, progress=False)
+        return {p.name: p.read_bytes() for p in sorted(Path(tmp).iterdir()) if p.is_file()}
+
+
+def default_workers() -> int:
+    """Cores this process may use (respects CPU affinity, e.g. inside a batch job)."""
+    if hasattr(os, "sched_getaffinity"):
+        return max(1, len(os.sched_getaffinity(0)))
+    return max(1, os.cpu_count() or 1)
+
+
+def _init_worker() -> None:
+    # One run per core: keep any numba thread pool from oversubscribing the cores.
+    try:
+        import numba
+        numba.set_num_threads(1)
+    except Exception:  # noqa: BLE001 - numba without a threading layer just runs serially
+        pass
+
+
+def _execute(todo: list[RunSpec], workers, scheduler) -> Iterator[tuple[RunSpec, object]]:
+    """Yield (spec, files or exception) as runs finish, on a pool or a Dask cluster."""
+    if not todo:
+        return
+    if scheduler is None:
+        yield from _execute_pool(todo, workers or default_workers())
+    else:
+        yield from _execute_dask(todo, workers, scheduler)
+
+
+def _execute_pool(todo: list[RunSpec], workers: int):
+    # "spawn": fresh interpreters, safe whatever threads the parent holds (tqdm, numba).
+    ctx = multiprocessing.get_context("spawn")
+    pool = cf.ProcessPoolExecutor(max_workers=min(workers, len(todo)), mp_context=ctx,
+                                  initializer=_init_worker)
+    try:
+        futures = {pool.submit(run_one, spec.case): spec for spec in todo}
+        for fut in cf.as_completed(futures):
+            yield futures[fut], _outcome(fut)
+    except BaseException:
+        _kill_pool(pool)
+        raise
+    finally:
+        pool.shutdown(wait=True, cancel_futures=True)
+
+
+def _outcome(fut):
+    # Any failure of one run (including a crashed worker) is reported and the sweep goes on.
+    try:
+        return fut.result()
+    except Exception as err:  # noqa: BLE001
+        return err
+
+
+def _kill_pool(pool: cf.ProcessPoolExecutor) -> None:
+    """Stop runs in flight at once (Python 3.11 has no public call for this)."""
+    pool.shutdown(wait=False, cancel_futures=True)
+    for proc in list(getattr(pool, "_processes", {}).values()):
+        with contextlib.suppress(Exception):
+            proc.terminate()
+
+
+def _execute_dask(todo: list[RunSpec], workers, scheduler: str):
+    try:
+        from dask.distributed import Client, LocalCluster, as_completed
+    except ImportError:
+        raise DlsimError(DASK_HINT) from None
+    cluster = None
+    if scheduler == "local":
+        cluster = LocalCluster(n_workers=workers or default_workers(), threads_per_worker=1,
+                               processes=True, dashboard_address=None)
+        client = Client(cluster)
+    else:
+        try:
+            client = Client(scheduler, timeout="30s")
+        except (OSError, TimeoutError) as err:
+            raise DlsimError(f"cannot reach the Dask scheduler at {scheduler!r}: {err}") from None
+    try:
+        client.run(_init_worker)
+        futures = {client.submit(run_one, spec.case, pure=False): spec for spec in todo}
+        try:
+            for fut in as_completed(futures):
+                yield futures[fut], _outcome(fut)
+        except BaseException:
+            client.cancel(list(futures))
+            raise
+    finally:
+        client.close()
+        if cluster is not None:
+            cluster.close()
+
+
+@contextlib.contextmanager
+def _terminate_as_interrupt():
+    """Treat SIGTERM (``kill``, a batch system's time limit) like Ctrl-C: stop runs, keep files."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+
+    def handler(signum, frame):
+        raise KeyboardInterrupt
+
+    previous = signal.signal(signal.SIGTERM, handler)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+
+
+class _NoBar:
+    def update(self, n: int) -> None:
+        pass
+
+    def write(self, text: str) -> None:
+        print(text)
+
+    def close(self) -> None:
+        pass
+
+
+def _progress_bar(total: int, done: int, enabled: bool):
+    if not enabled:
+        return _NoBar()
+    from tqdm import tqdm
+
+    return tqdm(total=total, initial=done, unit="run", desc="sweep", dynamic_ncols=True)
+
+
+# --------------------------------------------------------------------------- summaries
+
+
+def summarize_sweep(out_dir) -> tuple[Path, Path]:
+    """Write ``summary_runs.csv`` and ``summary_points.csv`` from the finished runs.
+
+    Parameters
+    ----------
+    out_dir : path
+        A sweep folder (with ``sweep.json``).
+
+    Returns
+    -------
+    (Path, Path)
+        The two CSV files.  Columns of the run table: ``run_id, point, seed_index, seed``, one
+        per swept key, ``crss_MPa, crss_lo_MPa, crss_hi_MPa, orowan_MPa, converged``, then
+        ``delta_sigma_MPa`` and ``estimate_<model>_MPa`` when any run reports them.  The point
+        table has the swept keys, ``n`` and, per quantity, ``<q>_mean_MPa, <q>_std_MPa,
+        <q>_ci95_lo_MPa, <q>_ci95_hi_MPa`` (Student t), plus the mean of each estimate.
+    """
+    out = Path(out_dir)
+    meta = read_sweep_json(out)
+    keys = list(meta["vary"])
+    rows = [_run_row(out, r, keys) for r in meta["runs"] if is_finished(out, r["id"])]
+    extra = _extra_columns(rows)
+    run_cols = ["run_id", "point", "seed_index", "seed", *keys, "crss_MPa", "crss_lo_MPa",
+                "crss_hi_MPa", "orowan_MPa", "converged", *extra]
+    runs_path = _write_csv(out / SUMMARY_RUNS, run_cols, rows)
+    points = _point_rows(meta["runs"], rows, keys, extra)
+    quantities = ["crss"] + (["delta_sigma"] if "delta_sigma_MPa" in extra else [])
+    point_cols = ["point", *keys, "n"]
+    for q in quantities:
+        point_cols += [f"{q}_mean_MPa", f"{q}_std_MPa", f"{q}_ci95_lo_MPa", f"{q}_ci95_hi_MPa"]
+    point_cols += [c for c in extra if c.startswith("estimate_")]
+    points_path = _write_csv(out / SUMMARY_POINTS, point_cols, points)
+    return runs_path, points_path
+
+
+def read_sweep_json(out_dir) -> dict:
+    """The expanded sweep stored in a sweep folder."""
+    path = Path(out_dir) / SWEEP_JSON
+    if not path.is_file():
+        raise DlsimError(f"{str(out_dir)!r} is not a sweep folder (no {SWEEP_JSON})")
+    return json.loads(path.read_text())
+
+
+def _run_row(out: Path, run: dict, keys: list[str]) -> dict:
+    res = json.loads((out / RUNS_FOLDER / run["id"] / "result.json").read_text())
+    lo, hi = res.get("crss_bracket_MPa", [math.nan, math.nan])
+    row = {"run_id": run["id"], "point": run["point"], "seed_index": run["seed_index"],
+           "seed": run["seed"], **{k: run["params"][k] for k in keys},
+           "crss_MPa": res["crss_MPa"], "crss_lo_MPa": lo, "crss_hi_MPa": hi,
+           "orowan_MPa": res.get("orowan_MPa"), "converged": res.get("converged")}
+    if "delta_sigma_MPa" in res:
+        row["delta_sigma_MPa"] = res["delta_sigma_MPa"]
+    for model, value in (res.get("estimates_MPa") or {}).items():
+        row[f"estimate_{model}_MPa"] = value
+    return row
+
+
+def _extra_columns(rows: list[dict]) -> list[str]:
+    seen = {c for r in rows for c in r}
+    extra = ["delta_sigma_MPa"] if "delta_sigma_MPa" in seen else []
+    return extra + sorted(c for c in seen if c.startswith("estimate_"))
+
+
+def _point_rows(runs: list[dict], rows: list[dict], keys: list[str], extra: list[str]) -> list[dict]:
+    by_point: dict[int, list[dict]] = {}
+    for row in rows:
+        by_point.setdefault(row["point"], []).append(row)
+    params = {r["point"]: r["params"] for r in runs}
+    table = []
+    for p in sorted(params):
+        group = by_point.get(p, [])
+        row = {"point": p, **{k: params[p][k] for k in keys}, "n": len(group)}
+        row.update(_stats("crss", [g["crss_MPa"] for g in group]))
+        if "delta_sigma_MPa" in extra:
+            row.update(_stats("delta_sigma", [g.get("delta_sigma_MPa") for g in group]))
+        for col in extra:
+            if col.startswith("estimate_"):
+                vals = [g[col] for g in group if g.get(col) is not None]
+                row[col] = float(np.mean(vals)) if vals else math.nan
+        table.append(row)
+    return table
+
+
+def _stats(name: str, values: list) -> dict:
+    """Mean, sample std and the Student-t 95 % interval of the mean (NaN where undefined)."""
+    from scipy.stats import t as student_t
+
+    v = np.asarray([x for x in values if x is not None], dtype=float)
+    n = v.size
+    mean = float(v.mean()) if n else math.nan
+    std = float(v.std(ddof=1)) if n > 1 else math.nan
+    half = float(student_t.ppf(0.5 + CI_LEVEL / 2, n - 1) * std / math.sqrt(n)) if n > 1 else math.nan
+    return {f"{name}_mean_MPa": mean, f"{name}_std_MPa": std,
+            f"{name}_ci95_lo_MPa": mean - half, f"{name}_ci95_hi_MPa": mean + half}
+
+
+def _write_csv(path: Path, columns: list[str], rows: list[dict]) -> Path:
+    tmp = path.with_name(f"{TMP_PREFIX}{path.name}")
+    with open(tmp, "w", newline="") as fh:
+        writer = csv.DictWriter(fh, fieldnames=columns, extrasaction="ignore", restval="")
+        writer.writeheader()
+        for row in rows:
+            writer.writerow({k: _cell(v) for k, v in row.items()})
+    os.replace(tmp, path)
+    return path
+
+
+def _cell(value):
+    if isinstance(value, float):
+        return "" if math.isnan(value) else repr(value)
+    return value
