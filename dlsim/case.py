@@ -1,0 +1,614 @@
+"""Case files: TOML in, frozen dataclasses out, every key checked.
+
+The schema is data (:data:`SCHEMA`): a :class:`Section` per TOML table, each a mapping of key name
+to :class:`Key` (type, default, check, one-line description) plus its either/or groups.  One generic
+walker, :func:`validate_table`, checks any table against its section, so a later section
+(``[[populations]]``, ``[elasticity]``) or a sweep file only adds entries.  The ``_resolve_*``
+functions then apply the rules that join several keys (material symbol, spacings to nm, square-array
+box sizes) and build the frozen specs.
+
+Every problem raises :class:`dlsim.errors.CaseError` naming the file, the dotted key, the value
+received and what is allowed.
+"""
+from __future__ import annotations
+
+import copy
+import dataclasses
+import difflib
+import json
+import math
+import os
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable
+
+from .errors import CaseError
+from .materials import TABLE, Material, Units
+
+NM_PER_UM = 1000.0
+# Box sides of a square array must be whole multiples of L; this absorbs the rounding of
+# length_nm / spacing_nm in floating point.
+MULTIPLE_RTOL = 1e-9
+# A periodic line of fewer segments than this cannot bow between obstacles (common practice).
+MIN_SEGMENTS = 4
+DICT_SOURCE = "<dict>"
+
+
+class _Required:
+    def __repr__(self) -> str:
+        return "REQUIRED"
+
+
+REQUIRED = _Required()
+_NOUNS = {float: "a number", int: "an integer", str: "a string"}
+
+
+@dataclass(frozen=True)
+class Check:
+    """A test on a value that already has the right type.
+
+    Parameters
+    ----------
+    test : callable
+        ``test(value) -> bool``, True when the value is allowed.
+    allowed : str
+        What is allowed; ``{noun}`` stands for the type ("a number", "an integer", "a string").
+    choices : tuple of str
+        The allowed strings, for "did you mean" hints.
+    """
+
+    test: Callable[[Any], bool]
+    allowed: str
+    choices: tuple[str, ...] = ()
+
+
+def above(lo: float) -> Check:
+    """Values strictly greater than ``lo``."""
+    return Check(lambda v: v > lo, f"{{noun}} > {lo:g}")
+
+
+def at_least(lo: float) -> Check:
+    """Values greater than or equal to ``lo``."""
+    return Check(lambda v: v >= lo, f"{{noun}} >= {lo:g}")
+
+
+def between(lo: float, hi: float, closed: bool) -> Check:
+    """Values in [lo, hi] (``closed``) or in (lo, hi)."""
+    if closed:
+        return Check(lambda v: lo <= v <= hi, f"{{noun}} in [{lo:g}, {hi:g}]")
+    return Check(lambda v: lo < v < hi, f"{{noun}} in ({lo:g}, {hi:g})")
+
+
+def one_of(*choices: str) -> Check:
+    """One of a fixed set of strings."""
+    return Check(lambda v: v in choices, "one of " + ", ".join(f'"{c}"' for c in choices), choices)
+
+
+NON_EMPTY = Check(lambda v: v.strip() != "", "a non-empty path")
+
+
+@dataclass(frozen=True)
+class Key:
+    """One key of a section.
+
+    Parameters
+    ----------
+    type : type
+        ``float`` (ints accepted and converted; finite only), ``int`` or ``str``.  Booleans are
+        never numbers.
+    doc : str
+        One-line description, with the unit.
+    default : object
+        Value when the key is absent; :data:`REQUIRED` for a key that must be given; None for an
+        optional key whose absence the resolution step interprets.
+    check : Check or None
+        Further condition on the value.
+    """
+
+    type: type
+    doc: str
+    default: Any = None
+    check: Check | None = None
+
+    @property
+    def allowed(self) -> str:
+        noun = _NOUNS[self.type]
+        return self.check.allowed.format(noun=noun) if self.check else noun
+
+
+@dataclass(frozen=True)
+class Section:
+    """One TOML table of the case file (the top level is the section named ``""``).
+
+    Parameters
+    ----------
+    doc : str
+        What the section describes.
+    keys : dict of str to Key
+        The keys the section accepts, in canonical order.
+    exactly_one : tuple of tuple of str
+        Groups of keys of which the user gives exactly one (e.g. a length in spacings or in nm).
+    at_most_one : tuple of tuple of str
+        Groups of keys of which the user gives at most one.
+    """
+
+    doc: str
+    keys: dict[str, Key]
+    exactly_one: tuple[tuple[str, ...], ...] = ()
+    at_most_one: tuple[tuple[str, ...], ...] = ()
+
+
+_POSITIVE = above(0)
+SCHEMA: dict[str, Section] = {
+    "": Section("top level", {
+        "title": Key(str, "free text describing the case", ""),
+        "seed": Key(int, "the seed of every random choice", REQUIRED, at_least(0)),
+    }),
+    "material": Section("elastic constants: a `symbol` of the built-in table, numbers, or both", {
+        "symbol": Key(str, "a material of the built-in table", None, one_of(*TABLE)),
+        "shear_modulus_GPa": Key(float, "the shear modulus G in GPa", None, _POSITIVE),
+        "poisson_ratio": Key(float, "the Poisson ratio ν", None, between(-1, 0.5, closed=False)),
+        "burgers_nm": Key(float, "the Burgers vector length b in nm", None, _POSITIVE),
+    }),
+    "line": Section("the dislocation line and its periodic box", {
+        "tension_alpha": Key(float, "α in the line tension Γ = α G b²", 0.5, _POSITIVE),
+        "length": Key(float, "the box width Lx in obstacle spacings", None, _POSITIVE),
+        "length_nm": Key(float, "the box width Lx in nm", None, _POSITIVE),
+        "height": Key(float, "the box height Ly in obstacle spacings (default: the width)", None,
+                      _POSITIVE),
+        "height_nm": Key(float, "the box height Ly in nm", None, _POSITIVE),
+        "node_spacing": Key(float, "the target segment length in obstacle spacings", 0.05,
+                            _POSITIVE),
+        "node_spacing_nm": Key(float, "the target segment length in nm", None, _POSITIVE),
+    }, exactly_one=(("length", "length_nm"),),
+        at_most_one=(("height", "height_nm"), ("node_spacing", "node_spacing_nm"))),
+    "obstacles": Section("point obstacles in the glide plane", {
+        "kind": Key(str, "the obstacle arrangement", REQUIRED, one_of("square", "random")),
+        "spacing_nm": Key(float, "the square period L or the mean spacing L_s = N_A^-1/2 in nm",
+                          None, _POSITIVE),
+        "density_per_um2": Key(float, "the obstacles per µm² of glide plane (random only)", None,
+                               _POSITIVE),
+        "critical_angle_deg": Key(float, "the critical arm angle φ_c in degrees (0: impenetrable)",
+                                  None, between(0, 180, closed=True)),
+        "critical_force_nN": Key(float, "the critical force F_c = 2Γ cos(φ_c/2) in nN", None,
+                                 _POSITIVE),
+    }, exactly_one=(("spacing_nm", "density_per_um2"),
+                    ("critical_angle_deg", "critical_force_nN"))),
+    "friction": Section("lattice friction", {
+        "stress_MPa": Key(float, "the friction threshold τ_f in MPa", 0.0, at_least(0)),
+    }),
+    "loading": Section("the stress ramp and bisection that find the CRSS", {
+        "stress_step": Key(float, "the stress increment as a fraction of 2Γ/(bL)", 0.02,
+                           between(0, 1, closed=False)),
+        "tolerance": Key(float, "the equilibrium threshold: max |τ_eff| < tolerance·2Γ/(bL)", 1e-4,
+                         _POSITIVE),
+        "flow_distance": Key(float, "the mean glide past the last pinned state that counts as "
+                                    "flow, in spacings", 2.0, _POSITIVE),
+        "bisections": Key(int, "the bisection steps after the bracket is found", 10, at_least(0)),
+        "max_steps": Key(int, "the time steps allowed in one relaxation", 2_000_000, at_least(1)),
+    }),
+    "output": Section("result files", {
+        "folder": Key(str, "the output folder relative to the case file (default: runs/<stem>)",
+                      None, NON_EMPTY),
+        "snapshot_every": Key(int, "the relaxations between line snapshots (0: none)", 0,
+                              at_least(0)),
+    }),
+}
+
+
+# ---------------------------------------------------------------------------------------------
+# Resolved case
+
+
+@dataclass(frozen=True)
+class LineSpec:
+    """The line and its periodic box, resolved to nm.
+
+    ``length_spacings`` and ``height_spacings`` are the box sides in obstacle spacings (whole
+    numbers for a square array); the ``_nm`` sides are derived from them.
+    """
+
+    tension_alpha: float
+    length_nm: float
+    height_nm: float
+    node_spacing_nm: float
+    length_spacings: float
+    height_spacings: float
+
+    def to_dict(self) -> dict:
+        return {"tension_alpha": self.tension_alpha, "length": self.length_spacings,
+                "height": self.height_spacings, "node_spacing_nm": self.node_spacing_nm}
+
+
+@dataclass(frozen=True)
+class ObstacleSpec:
+    """Obstacle field: kind, spacing and density, and exactly one strength (the other is None)."""
+
+    kind: str
+    spacing_nm: float
+    density_per_um2: float
+    critical_angle_deg: float | None
+    critical_force_nN: float | None
+
+    def to_dict(self) -> dict:
+        return _drop_none({"kind": self.kind, "spacing_nm": self.spacing_nm,
+                           "critical_angle_deg": self.critical_angle_deg,
+                           "critical_force_nN": self.critical_force_nN})
+
+
+@dataclass(frozen=True)
+class FrictionSpec:
+    """Lattice friction threshold τ_f (MPa)."""
+
+    stress_MPa: float
+
+
+@dataclass(frozen=True)
+class LoadingSpec:
+    """CRSS protocol knobs, see :data:`SCHEMA` ``["loading"]`` for their meaning."""
+
+    stress_step: float
+    tolerance: float
+    flow_distance: float
+    bisections: int
+    max_steps: int
+
+
+@dataclass(frozen=True)
+class OutputSpec:
+    """Output folder (absolute path) and snapshot interval (0: no snapshots)."""
+
+    folder: str
+    snapshot_every: int
+
+
+@dataclass(frozen=True)
+class Case:
+    """A validated case.  ``source`` and ``raw`` (the dictionary as read) do not take part in
+    comparisons, so a case and the case loaded from its :meth:`to_dict` compare equal."""
+
+    source: str = field(compare=False)
+    title: str
+    seed: int
+    material: Material
+    line: LineSpec
+    obstacles: ObstacleSpec
+    friction: FrictionSpec
+    loading: LoadingSpec
+    output: OutputSpec
+    raw: dict = field(compare=False, repr=False)
+
+    @property
+    def units(self) -> Units:
+        """Reduced units of the material (length b, stress G, force G b²)."""
+        return self.material.units
+
+    def to_dict(self) -> dict:
+        """The fully resolved case: every default filled in, one canonical key per quantity.
+
+        Plain str/int/float values in nested dicts, so it serialises as JSON or TOML, and
+        ``load_case(case.to_dict()) == case``.
+        """
+        return {
+            "title": self.title, "seed": self.seed,
+            "material": _drop_none(dataclasses.asdict(self.material)),
+            "line": self.line.to_dict(), "obstacles": self.obstacles.to_dict(),
+            "friction": dataclasses.asdict(self.friction),
+            "loading": dataclasses.asdict(self.loading),
+            "output": dataclasses.asdict(self.output),
+        }
+
+
+def _drop_none(d: dict) -> dict:
+    return {k: v for k, v in d.items() if v is not None}
+
+
+# ---------------------------------------------------------------------------------------------
+# Generic validation
+
+
+def _show(value: Any) -> str:
+    """A value as the user wrote it in TOML, for error messages."""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, str):
+        return json.dumps(value, ensure_ascii=False)
+    if isinstance(value, dict):
+        return "a table"
+    if isinstance(value, list):
+        return "an array"
+    return repr(value) if isinstance(value, float) else str(value)
+
+
+def _join(prefix: str, name: str) -> str:
+    return f"{prefix}.{name}" if prefix else name
+
+
+def _nearest(name: str, candidates) -> str | None:
+    """The known name closest to ``name`` ignoring case, or None."""
+    lower = {c.lower(): c for c in candidates}
+    close = difflib.get_close_matches(name.lower(), list(lower), n=1, cutoff=0.6)
+    return lower[close[0]] if close else None
+
+
+def _typed(source: str, dotted: str, value: Any, key: Key) -> Any:
+    """Check the type and the condition of one value; ints become floats where floats are due."""
+    numeric = isinstance(value, (int, float)) and not isinstance(value, bool)
+    ok = {float: numeric, int: numeric and isinstance(value, int),
+          str: isinstance(value, str)}[key.type]
+    finite = not (ok and key.type is float) or math.isfinite(value)
+    if ok and finite:
+        value = float(value) if key.type is float else value
+        if key.check is None or key.check.test(value):
+            return value
+    allowed = key.allowed if finite else key.allowed.replace("a number", "a finite number", 1)
+    near = _nearest(value, key.check.choices) if key.check and isinstance(value, str) else None
+    hint = f'did you mean "{near}"? ' if near else ""
+    raise CaseError(source, dotted, f"got {_show(value)}; {hint}must be {allowed}")
+
+
+def _unknown(source: str, prefix: str, name: str, section: Section) -> CaseError:
+    """The error for a key a section does not know, with the nearest known key."""
+    near = _nearest(name, section.keys)
+    if near is None:  # perhaps a key of another section
+        near = next((_join(sec, name) for sec, other in SCHEMA.items() if name in other.keys),
+                    None)
+    else:
+        near = _join(prefix, near)
+    hint = f"did you mean `{near}`? " if near else ""
+    where = f"[{prefix}] takes" if prefix else "the top level takes"
+    return CaseError(source, _join(prefix, name),
+                     f"unknown key; {hint}{where} {', '.join(section.keys)}")
+
+
+def _check_groups(source: str, prefix: str, table: dict, section: Section) -> None:
+    """Either/or keys: exactly one (or at most one) of each group."""
+    for group in section.exactly_one + section.at_most_one:
+        given = [k for k in group if k in table]
+        names = " or ".join(f"`{_join(prefix, k)}` for {section.keys[k].doc}" for k in group)
+        if len(given) > 1:
+            raise CaseError(source, _join(prefix, given[1]),
+                            f"got {_show(table[given[1]])} and `{_join(prefix, given[0])}` = "
+                            f"{_show(table[given[0]])}; give only one of {names}")
+        if not given and group in section.exactly_one:
+            raise CaseError(source, _join(prefix, group[0]), f"missing; give one of {names}")
+
+
+def validate_table(source: str, prefix: str, table: Any, section: Section) -> dict[str, Any]:
+    """Check one TOML table against its section and fill in the defaults.
+
+    Parameters
+    ----------
+    source : str
+        File name for error messages.
+    prefix : str
+        Dotted name of the table (``""`` for the top level), for error messages.
+    table : dict
+        The table as read.
+    section : Section
+        What the table may hold.
+
+    Returns
+    -------
+    dict
+        Every key of the section in schema order: the value given (ints converted to float where a
+        float is due), else the default (None for optional keys without one).
+
+    Raises
+    ------
+    CaseError
+        Not a table, an unknown key, a missing required key, a wrong type or value, or an
+        either/or group given twice or not at all.
+    """
+    if not isinstance(table, dict):
+        raise CaseError(source, prefix, f"got {_show(table)}; must be a table [{prefix}]")
+    for name in table:
+        if name not in section.keys:
+            raise _unknown(source, prefix, name, section)
+    out = {}
+    for name, key in section.keys.items():
+        dotted = _join(prefix, name)
+        if name in table:
+            out[name] = _typed(source, dotted, table[name], key)
+        elif key.default is REQUIRED:
+            raise CaseError(source, dotted, f"missing; {key.doc}, {key.allowed}, is required")
+        else:
+            out[name] = key.default
+    _check_groups(source, prefix, table, section)
+    return out
+
+
+def _validate_top(source: str, raw: dict) -> dict[str, Any]:
+    """The top-level keys; also rejects unknown sections."""
+    top = SCHEMA[""]
+    sections = [name for name in SCHEMA if name]
+    for name, value in raw.items():
+        if name not in top.keys and name not in sections:
+            near = _nearest(name, sections + list(top.keys))
+            hint = f"did you mean `{near}`? " if near else ""
+            kind = "section" if isinstance(value, dict) else "key"
+            raise CaseError(source, name, f"unknown {kind}; {hint}the top level takes "
+                                          f"{', '.join(top.keys)} and the sections "
+                                          f"{', '.join(f'[{s}]' for s in sections)}")
+    return validate_table(source, "", {k: v for k, v in raw.items() if k in top.keys}, top)
+
+
+# ---------------------------------------------------------------------------------------------
+# Rules that join several keys
+
+
+def _resolve_material(source: str, m: dict) -> Material:
+    """Table values for a symbol, overridden by explicit numbers; all three without a symbol."""
+    base = TABLE.get(m["symbol"])
+    values = {}
+    for name in ("shear_modulus_GPa", "poisson_ratio", "burgers_nm"):
+        values[name] = m[name] if m[name] is not None else getattr(base, name, None)
+        if values[name] is None:
+            raise CaseError(source, f"material.{name}",
+                            "missing; give `material.symbol` (one of "
+                            f"{', '.join(TABLE)}) or all of `shear_modulus_GPa`, "
+                            "`poisson_ratio` and `burgers_nm`")
+    return Material(m["symbol"], **values)
+
+
+def _resolve_obstacles(source: str, o: dict) -> ObstacleSpec:
+    """Spacing from the density N_A (L_s = N_A^-1/2) or the reverse; a square array has 1/L²."""
+    density = o["density_per_um2"]
+    if density is not None and o["kind"] == "square":
+        raise CaseError(source, "obstacles.density_per_um2",
+                        f"got {_show(density)}; a square array takes `obstacles.spacing_nm` "
+                        "(its period L), not a density")
+    spacing = o["spacing_nm"] if density is None else NM_PER_UM / math.sqrt(density)
+    return ObstacleSpec(o["kind"], spacing, (NM_PER_UM / spacing) ** 2,
+                        o["critical_angle_deg"], o["critical_force_nN"])
+
+
+def _box_side(source: str, key: str, line: dict, spacing: float, square: bool) -> float:
+    """One box side in spacings, from ``key`` (spacings) or ``key_nm``; whole for a square array."""
+    given = key + "_nm" if line[key] is None else key
+    n = line[given] / spacing if given != key else line[given]
+    whole = round(n) if math.isfinite(n) else 0
+    if square and (whole < 1 or abs(n - whole) > MULTIPLE_RTOL * n):
+        raise CaseError(source, f"line.{given}",
+                        f"got {_show(line[given])}; a square array needs a whole number of "
+                        f"spacings L = {spacing:g} nm (this is {n:.6g} L)")
+    return float(whole) if square else n
+
+
+def _resolve_line(source: str, line: dict, obstacles: ObstacleSpec) -> LineSpec:
+    """Box and node spacing in nm; the height defaults to the width."""
+    s, square = obstacles.spacing_nm, obstacles.kind == "square"
+    width = _box_side(source, "length", line, s, square)
+    has_height = line["height"] is not None or line["height_nm"] is not None
+    height = _box_side(source, "height", line, s, square) if has_height else width
+    in_nm = line["node_spacing_nm"] is not None
+    node = line["node_spacing_nm"] if in_nm else line["node_spacing"] * s
+    limit = width / MIN_SEGMENTS  # in spacings
+    if node > limit * s:
+        key, most = (("node_spacing_nm", f"{limit * s:g} nm") if in_nm
+                     else ("node_spacing", f"{limit:g} spacings"))
+        raise CaseError(source, f"line.{key}", f"got {_show(line[key])}; must be at most {most}, "
+                                               f"1/{MIN_SEGMENTS} of the box width")
+    return LineSpec(line["tension_alpha"], width * s, height * s, node, width, height)
+
+
+def _resolve_output(o: dict, base: Path, stem: str) -> OutputSpec:
+    """Absolute folder: relative paths count from ``base`` (the case file's directory)."""
+    folder = os.path.expanduser(o["folder"] or os.path.join("runs", stem))
+    return OutputSpec(os.path.normpath(base / folder), o["snapshot_every"])
+
+
+# ---------------------------------------------------------------------------------------------
+# Public entry points
+
+
+def _read(path: Path, source: str) -> dict:
+    """Parse a TOML file; every failure is a CaseError naming the file."""
+    if path.is_dir():
+        raise CaseError(source, "", "is a directory, not a case file")
+    try:
+        text = path.read_bytes().decode("utf-8")
+        return tomllib.loads(text)
+    except FileNotFoundError:
+        raise CaseError(source, "", "no such file") from None
+    except OSError as err:
+        raise CaseError(source, "", f"cannot read the file ({err.strerror})") from None
+    except UnicodeDecodeError:
+        raise CaseError(source, "", "not UTF-8 text; a case file is TOML") from None
+    except tomllib.TOMLDecodeError as err:
+        raise CaseError(source, "", f"TOML syntax error: {err}") from None
+
+
+def load_case(source: str | os.PathLike | dict | Case, base_dir: str | os.PathLike | None = None
+              ) -> Case:
+    """Read and validate a case.
+
+    Parameters
+    ----------
+    source : str, path-like, dict or Case
+        A TOML case file, or the same content as a dictionary (as from :meth:`Case.to_dict`).
+        A :class:`Case` is returned unchanged.
+    base_dir : str or path-like, optional
+        Directory that relative paths in the case count from.  Default: the case file's directory,
+        or the working directory for a dictionary.
+
+    Returns
+    -------
+    Case
+        Every default filled in, lengths in nm, ``output.folder`` absolute.
+
+    Raises
+    ------
+    CaseError
+        For a file that is missing, unreadable or not TOML, and for any key that breaks the schema
+        (:data:`SCHEMA`) or the rules joining keys.
+    """
+    if isinstance(source, Case):
+        return source
+    if isinstance(source, dict):
+        name, raw, base, stem = DICT_SOURCE, copy.deepcopy(source), Path.cwd(), "case"
+    else:
+        path = Path(source)
+        name, base, stem = os.fspath(source), path.absolute().parent, path.stem
+        raw = _read(path, name)
+    if base_dir is not None:
+        base = Path(base_dir).absolute()
+    top = _validate_top(name, raw)
+
+    def table(section: str) -> dict:
+        return validate_table(name, section, raw.get(section, {}), SCHEMA[section])
+
+    material = _resolve_material(name, table("material"))
+    obstacles = _resolve_obstacles(name, table("obstacles"))
+    return Case(source=name, title=top["title"], seed=top["seed"], material=material,
+                line=_resolve_line(name, table("line"), obstacles), obstacles=obstacles,
+                friction=FrictionSpec(**table("friction")), loading=LoadingSpec(**table("loading")),
+                output=_resolve_output(table("output"), base, stem), raw=raw)
+
+
+def schema_has_key(dotted_key: str) -> bool:
+    """Whether ``"section.key"`` (or a top-level ``"key"``) is a key of :data:`SCHEMA`."""
+    section, _, name = dotted_key.rpartition(".")
+    return section in SCHEMA and name in SCHEMA[section].keys
+
+
+def apply_overrides(raw: dict, overrides: dict[str, object], source: str = "<overrides>"
+                    ) -> dict:
+    """A copy of a raw case dictionary with dotted keys set, for sweeps.
+
+    Setting one key of an either/or group (``line.length`` / ``line.length_nm``) drops the others
+    of its group, so an override always wins over the base case.  Values are checked later, by
+    :func:`load_case`.  Explicit material numbers in the base still override a swept symbol.
+
+    Parameters
+    ----------
+    raw : dict
+        A case as read from TOML (not modified).
+    overrides : dict of str to object
+        Dotted key -> value, e.g. ``{"obstacles.critical_angle_deg": 60.0, "seed": 3}``.
+    source : str
+        Name for error messages (the sweep file).
+
+    Raises
+    ------
+    CaseError
+        For a key the schema does not know, or a section in ``raw`` that is not a table.
+    """
+    new = copy.deepcopy(raw)
+    for dotted, value in overrides.items():
+        if not schema_has_key(dotted):
+            near = _nearest(dotted, [_join(s, k) for s, sec in SCHEMA.items() for k in sec.keys])
+            hint = f"did you mean `{near}`? " if near else ""
+            raise CaseError(source, dotted, f"got {_show(value)}; {hint}not a key of a case")
+        prefix, _, name = dotted.rpartition(".")
+        table = new.setdefault(prefix, {}) if prefix else new
+        if not isinstance(table, dict):
+            raise CaseError(source, prefix, f"got {_show(table)}; must be a table [{prefix}]")
+        section = SCHEMA[prefix]
+        for group in section.exactly_one + section.at_most_one:
+            if name in group:
+                for other in group:
+                    table.pop(other, None)
+        table[name] = value
+    return new
