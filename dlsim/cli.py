@@ -22,6 +22,57 @@ def _cmd_run(args: argparse.Namespace) -> int:
     return 0
 
 
+def _cmd_sweep(args: argparse.Namespace) -> int:
+    from .sweep import run_sweep
+
+    outcome = run_sweep(args.sweep, out_dir=args.out, workers=args.workers,
+                        scheduler=args.scheduler, progress=not args.quiet)
+    print(f"{len(outcome.ran)} runs done, {len(outcome.skipped)} already finished; "
+          f"summaries in {outcome.out_dir}")
+    return 0
+
+
+def _cmd_plot(args: argparse.Namespace) -> int:
+    from .plots import plot_dir
+
+    for path in plot_dir(args.folder, quantity=args.quantity):
+        print(path)
+    return 0
+
+
+def _cmd_movie(args: argparse.Namespace) -> int:
+    from .movie import make_movie
+
+    print(make_movie(args.run_dir, fmt=args.format, max_frames=args.max_frames, fps=args.fps))
+    return 0
+
+
+def _add_sweep_commands(sub) -> None:
+    """Sub-commands of the sweep layer: sweep, plot, movie."""
+    sweep = sub.add_parser("sweep", help="run (or resume) every case of a sweep file")
+    sweep.add_argument("sweep", help="sweep file (TOML)")
+    sweep.add_argument("--out", default=None, help="sweep folder (overrides [output] folder)")
+    sweep.add_argument("--workers", type=int, default=None,
+                       help="parallel runs (default: every core)")
+    sweep.add_argument("--scheduler", default=None, metavar="ADDRESS|local",
+                       help="run on a Dask cluster: a scheduler address, or 'local'")
+    sweep.add_argument("--quiet", action="store_true", help="no progress bar")
+    sweep.set_defaults(func=_cmd_sweep)
+
+    plot = sub.add_parser("plot", help="figures of a sweep folder or a run folder")
+    plot.add_argument("folder", help="sweep folder or run folder")
+    plot.add_argument("--quantity", choices=("crss", "delta_sigma"), default="crss",
+                      help="what a sweep figure shows (default: crss)")
+    plot.set_defaults(func=_cmd_plot)
+
+    movie = sub.add_parser("movie", help="animate the snapshots of a run folder")
+    movie.add_argument("run_dir", help="run folder with snapshots.npz")
+    movie.add_argument("--format", choices=("gif", "mp4"), default="gif")
+    movie.add_argument("--max-frames", type=int, default=120, help="at most this many frames")
+    movie.add_argument("--fps", type=float, default=10.0, help="frames per second")
+    movie.set_defaults(func=_cmd_movie)
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="dlsim",
@@ -36,6 +87,7 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("--out", default=None, help="output folder (overrides [output] folder)")
     run.add_argument("--quiet", action="store_true", help="no progress messages")
     run.set_defaults(func=_cmd_run)
+    _add_sweep_commands(sub)
     return parser
 
 

@@ -656,7 +656,8 @@ def summarize_sweep(out_dir) -> tuple[Path, Path]:
         per swept key, ``crss_MPa, crss_lo_MPa, crss_hi_MPa, orowan_MPa, converged``, then
         ``delta_sigma_MPa`` and ``estimate_<model>_MPa`` when any run reports them.  The point
         table has the swept keys, ``n`` and, per quantity, ``<q>_mean_MPa, <q>_std_MPa,
-        <q>_ci95_lo_MPa, <q>_ci95_hi_MPa`` (Student t), plus the mean of each estimate.
+        <q>_ci95_lo_MPa, <q>_ci95_hi_MPa`` (Student t), then the mean Orowan stress and the mean of
+        each estimate.
     """
     out = Path(out_dir)
     meta = read_sweep_json(out)
@@ -671,7 +672,7 @@ def summarize_sweep(out_dir) -> tuple[Path, Path]:
     point_cols = ["point", *keys, "n"]
     for q in quantities:
         point_cols += [f"{q}_mean_MPa", f"{q}_std_MPa", f"{q}_ci95_lo_MPa", f"{q}_ci95_hi_MPa"]
-    point_cols += [c for c in extra if c.startswith("estimate_")]
+    point_cols += ["orowan_MPa"] + [c for c in extra if c.startswith("estimate_")]
     points_path = _write_csv(out / SUMMARY_POINTS, point_cols, points)
     return runs_path, points_path
 
@@ -716,10 +717,9 @@ def _point_rows(runs: list[dict], rows: list[dict], keys: list[str], extra: list
         row.update(_stats("crss", [g["crss_MPa"] for g in group]))
         if "delta_sigma_MPa" in extra:
             row.update(_stats("delta_sigma", [g.get("delta_sigma_MPa") for g in group]))
-        for col in extra:
-            if col.startswith("estimate_"):
-                vals = [g[col] for g in group if g.get(col) is not None]
-                row[col] = float(np.mean(vals)) if vals else math.nan
+        for col in ["orowan_MPa"] + [c for c in extra if c.startswith("estimate_")]:
+            vals = [g[col] for g in group if g.get(col) is not None]
+            row[col] = float(np.mean(vals)) if vals else math.nan
         table.append(row)
     return table
 

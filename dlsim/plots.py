@@ -1,0 +1,365 @@
+"""Figures of sweep folders and run folders (matplotlib, no display needed).
+
+Every figure is written as PNG (for slides and quick looks) and PDF (for papers), at a fixed size
+(:data:`FIG_SIZE_IN` at :data:`DPI`) with fonts readable on a slide.  The functions build
+:class:`matplotlib.figure.Figure` objects directly, so they never touch pyplot's global state and
+work with any backend.
+
+- sweep folder: ``<q>_vs_<param>`` — CRSS (or Δσ) against the first swept key with 95 % CI error
+  bars, one curve per value of the second swept key, analytic estimates as lines;
+- run folder: ``field`` — obstacles, the final line and any Orowan loops; ``stress_vs_area`` — the
+  stress of each relaxation against the area swept from the straight start.
+"""
+from __future__ import annotations
+
+import csv
+import itertools
+import json
+import math
+from pathlib import Path
+
+import numpy as np
+from matplotlib.collections import EllipseCollection
+from matplotlib.figure import Figure
+
+from .errors import DlsimError
+
+FIG_SIZE_IN = (8.0, 6.0)
+DPI = 100                      # 8 × 6 in at 100 dpi: 800 × 600 px PNG
+FORMATS = ("png", "pdf")
+# Slide-readable type (common practice: >= 14 pt body text on a projected 16:9 slide).
+STYLE = {
+    "font.size": 14, "axes.titlesize": 16, "axes.labelsize": 16, "xtick.labelsize": 14,
+    "ytick.labelsize": 14, "legend.fontsize": 13, "lines.linewidth": 2.0, "lines.markersize": 7,
+}
+QUANTITIES = {"crss": "CRSS τ$_c$ (MPa)", "delta_sigma": "yield strength increment Δσ (MPa)"}
+# Unit suffixes of case keys (DEVELOPERS.md: keys carry their unit in their name).
+UNIT_SUFFIXES = {"_nm": "nm", "_MPa": "MPa", "_GPa": "GPa", "_nN": "nN", "_deg": "°",
+                 "_per_um2": "µm$^{-2}$", "_um": "µm"}
+ESTIMATE_STYLES = ("--", ":", "-.", (0, (5, 1, 1, 1)))
+STATE_MARKERS = {"pinned": "o", "flowing": ">", "unresolved": "^"}
+# Flowing relaxations sweep far more than the pinned ones; the area axis stops at this multiple of
+# the largest pinned area and flowing points sit at its edge.
+AREA_AXIS_MARGIN = 1.3
+
+
+# --------------------------------------------------------------------------- helpers
+
+
+def _figure() -> Figure:
+    return Figure(figsize=FIG_SIZE_IN, dpi=DPI, layout="constrained")
+
+
+def _save(fig: Figure, folder: Path, stem: str) -> list[Path]:
+    paths = []
+    for fmt in FORMATS:
+        path = folder / f"{stem}.{fmt}"
+        fig.savefig(path, dpi=DPI)
+        paths.append(path)
+    return paths
+
+
+def _styled(func):
+    """Run a plotting function under :data:`STYLE` (fonts read when artists are made)."""
+    import functools
+
+    import matplotlib
+
+    @functools.wraps(func)
+    def wrapper(*args, **kwargs):
+        with matplotlib.rc_context(STYLE):
+            return func(*args, **kwargs)
+    return wrapper
+
+
+def read_table(path: Path) -> dict[str, np.ndarray]:
+    """A CSV file with a header as column name → array (float where every cell is a number).
+
+    Empty cells read as NaN in numeric columns.
+    """
+    with open(path, newline="") as fh:
+        rows = list(csv.DictReader(fh))
+        names = rows[0].keys() if rows else next(csv.reader([path.read_text().splitlines()[0]]))
+    return {name: _column([r[name] for r in rows]) for name in names}
+
+
+def _column(cells: list[str]) -> np.ndarray:
+    try:
+        return np.array([float(c) if c != "" else math.nan for c in cells], dtype=float)
+    except ValueError:
+        return np.array(cells, dtype=object)
+
+
+def key_label(key: str) -> str:
+    """Axis label of a dotted case key: ``"obstacles.spacing_nm"`` → ``"spacing (nm)"``."""
+    name = key.rsplit(".", 1)[-1]
+    for suffix, unit in UNIT_SUFFIXES.items():
+        if name.endswith(suffix):
+            return f"{name[: -len(suffix)].replace('_', ' ')} ({unit})"
+    return name.replace("_", " ")
+
+
+def value_label(key: str, value) -> str:
+    """``"obstacles.spacing_nm", 30`` → ``"spacing = 30 nm"``."""
+    name, _, unit = key_label(key).partition(" (")
+    return f"{name} = {_fmt(value)}" + (f" {unit[:-1]}" if unit else "")
+
+
+def _short_names(keys: list[str]) -> dict[str, str]:
+    """File-name forms of keys: the last component unless two keys share it."""
+    last = [k.rsplit(".", 1)[-1] for k in keys]
+    return {k: (s if last.count(s) == 1 else k.replace(".", "_")) for k, s in zip(keys, last)}
+
+
+def _fmt(value) -> str:
+    return f"{value:g}" if isinstance(value, (float, np.floating)) else str(value)
+
+
+# --------------------------------------------------------------------------- sweep figures
+
+
+@_styled
+def plot_sweep(folder, quantity: str = "crss", x: str | None = None) -> list[Path]:
+    """CRSS (or Δσ) against a swept key, one curve per value of the next swept key.
+
+    Parameters
+    ----------
+    folder : path
+        A sweep folder (``sweep.json`` and ``summary_points.csv``; the summary is written first if
+        missing).
+    quantity : {"crss", "delta_sigma"}
+    x : str, optional
+        Swept key on the horizontal axis; default the first swept key that takes several values.
+        Further swept keys beyond the curve key give one figure per combination.
+
+    Returns
+    -------
+    list of Path
+        The PNG and PDF files, ``<quantity>_vs_<key>[_<other>-<value>...]``.
+    """
+    from .sweep import SUMMARY_POINTS, read_sweep_json, summarize_sweep
+
+    folder = Path(folder)
+    meta = read_sweep_json(folder)
+    if quantity not in QUANTITIES:
+        raise DlsimError(f"unknown quantity {quantity!r}; allowed: {', '.join(QUANTITIES)}")
+    if not (folder / SUMMARY_POINTS).is_file():
+        summarize_sweep(folder)
+    table = read_table(folder / SUMMARY_POINTS)
+    if f"{quantity}_mean_MPa" not in table:
+        raise DlsimError(f"{str(folder)!r}: the runs report no {quantity} values")
+    x, curve, rest = _roles(meta, table, x)
+    names = _short_names(list(meta["vary"]))
+    paths = []
+    for combo in itertools.product(*(_distinct(table[k]) for k in rest)):
+        rows = np.ones(len(table["point"]), dtype=bool)
+        for k, v in zip(rest, combo):
+            rows &= table[k] == v
+        if not rows.any():
+            continue
+        fig = _figure()
+        ax = fig.add_subplot()
+        _draw_curves(ax, table, rows, x, curve, quantity)
+        ax.set_xlabel(key_label(x))
+        ax.set_ylabel(QUANTITIES[quantity])
+        if meta["scales"].get(x) == "log":
+            ax.set_xscale("log")
+        ax.set_title(", ".join([meta["title"]] * bool(meta.get("title"))
+                               + [value_label(k, v) for k, v in zip(rest, combo)]))
+        ax.legend(loc="best", frameon=False)
+        suffix = "".join(f"_{names[k]}-{_fmt(v)}" for k, v in zip(rest, combo))
+        paths += _save(fig, folder, f"{quantity}_vs_{names[x]}{suffix}")
+    return paths
+
+
+def _distinct(col: np.ndarray) -> list:
+    seen = []
+    for v in col:
+        if not any(v == s for s in seen):
+            seen.append(v)
+    return seen
+
+
+def _roles(meta: dict, table: dict, x: str | None) -> tuple[str, str | None, list[str]]:
+    """Pick the x key, the curve key (grid sweeps only) and the keys left for separate figures."""
+    keys = list(meta["vary"])
+    if x is not None and x not in keys:
+        raise DlsimError(f"{x!r} is not a swept key; swept: {', '.join(keys)}")
+    varying = [k for k in keys if len(_distinct(table[k])) > 1] or keys[:1]
+    x = x or varying[0]
+    others = [k for k in varying if k != x]
+    if meta["combine"] == "zip":
+        return x, None, []
+    curve = others[0] if others else None
+    return x, curve, others[1:]
+
+
+def _draw_curves(ax, table: dict, rows: np.ndarray, x: str, curve: str | None, q: str) -> None:
+    estimates = [c for c in table if c.startswith("estimate_")]
+    if not estimates and q == "crss" and "orowan_MPa" in table:
+        estimates = ["orowan_MPa"]  # the Orowan stress 2Γ/(bL) is always known
+    values = _distinct(table[curve][rows]) if curve else [None]
+    for i, value in enumerate(values):
+        sel = rows & (table[curve] == value) if curve else rows
+        xs = table[x][sel]
+        order = np.argsort(xs) if xs.dtype != object else np.arange(xs.size)
+        mean = table[f"{q}_mean_MPa"][sel][order]
+        lo = np.nan_to_num(mean - table[f"{q}_ci95_lo_MPa"][sel][order])
+        hi = np.nan_to_num(table[f"{q}_ci95_hi_MPa"][sel][order] - mean)
+        label = value_label(curve, value) if curve else "simulation"
+        bars = ax.errorbar(xs[order], mean, yerr=[lo, hi], marker="o", capsize=4, label=label)
+        colour = bars[0].get_color()
+        for style, col in zip(itertools.cycle(ESTIMATE_STYLES), estimates):
+            name = col.removeprefix("estimate_").removesuffix("_MPa")
+            ax.plot(xs[order], table[col][sel][order], linestyle=style, color=colour,
+                    linewidth=1.5, label=f"{name} estimate" if i == 0 else None)
+
+
+# --------------------------------------------------------------------------- run figures
+
+
+def read_run(folder: Path) -> dict:
+    """The files of a run folder: ``result`` (dict), ``obstacles``, ``line``, ``history`` and
+    ``loops`` (column dicts; ``loops`` None when absent)."""
+    folder = Path(folder)
+    if not (folder / "result.json").is_file():
+        raise DlsimError(f"{str(folder)!r} is not a run folder (no result.json)")
+    run = {"result": json.loads((folder / "result.json").read_text())}
+    for name in ("obstacles", "line", "history", "loops"):
+        path = folder / f"{name}.csv"
+        run[name] = read_table(path) if path.is_file() else None
+    return run
+
+
+def wrap_polyline(x: np.ndarray, y: np.ndarray, box: tuple[float, float]):
+    """Fold an unwrapped line into the periodic box, breaking it (NaN) where it crosses a side.
+
+    Parameters
+    ----------
+    x, y : ndarray, shape (n,)
+        Node positions (nm), unwrapped.
+    box : (Lx, Ly)
+        Box sides (nm).
+
+    Returns
+    -------
+    xw, yw : ndarray
+        Positions in [0, Lx) × [0, Ly) with NaN between nodes in different periodic images.
+    """
+    Lx, Ly = box
+    ix, iy = np.floor(x / Lx), np.floor(y / Ly)
+    xw, yw = x - ix * Lx, y - iy * Ly
+    jump = np.flatnonzero((np.diff(ix) != 0) | (np.diff(iy) != 0)) + 1
+    return np.insert(xw, jump, np.nan), np.insert(yw, jump, np.nan)
+
+
+def draw_field(ax, obstacles: dict, box: tuple[float, float]) -> None:
+    """Obstacles on ``ax``: points as dots, finite particles as discs of their radius (nm)."""
+    Lx, Ly = box
+    x, y, r = obstacles["x_nm"], obstacles["y_nm"], obstacles["radius_nm"]
+    points = r <= 0
+    ax.scatter(x[points], y[points], s=8, color="0.25", linewidths=0, zorder=2)
+    if (~points).any():
+        d = 2 * r[~points]
+        ax.add_collection(EllipseCollection(
+            d, d, np.zeros_like(d), units="xy", offsets=np.column_stack([x[~points], y[~points]]),
+            offset_transform=ax.transData, facecolors="0.75", edgecolors="0.35", zorder=2))
+    ax.add_patch(_box_patch(Lx, Ly))
+    ax.set_xlim(0, Lx)
+    ax.set_ylim(0, Ly)
+    ax.set_aspect("equal")
+
+
+def _box_patch(Lx: float, Ly: float):
+    from matplotlib.patches import Rectangle
+
+    return Rectangle((0, 0), Lx, Ly, fill=False, edgecolor="0.5", linewidth=1.0)
+
+
+def draw_line(ax, x, y, pinned, box, **style):
+    """A line (nm, unwrapped) folded into the box, its pinned nodes marked; returns the artists."""
+    xw, yw = wrap_polyline(x, y, box)
+    (curve,) = ax.plot(xw, yw, color=style.get("color", "C0"), linewidth=2.0, zorder=3)
+    (pins,) = ax.plot(np.mod(x[pinned], box[0]), np.mod(y[pinned], box[1]), "o", color="C3",
+                      markersize=5, zorder=4)
+    return curve, pins
+
+
+@_styled
+def plot_run(folder) -> list[Path]:
+    """The obstacle field with the final line and loops, and stress against swept area.
+
+    Parameters
+    ----------
+    folder : path
+        A run folder written by :func:`dlsim.api.run_case`.
+
+    Returns
+    -------
+    list of Path
+        ``field.png/.pdf`` and ``stress_vs_area.png/.pdf`` (the latter only with ``history.csv``).
+    """
+    folder = Path(folder)
+    run = read_run(folder)
+    box = tuple(run["result"]["box_nm"])
+    paths = _save(_field_figure(run, box), folder, "field")
+    if run["history"] is not None and len(run["history"]["index"]):
+        paths += _save(_area_figure(run, box), folder, "stress_vs_area")
+    return paths
+
+
+def _field_figure(run: dict, box) -> Figure:
+    fig = _figure()
+    ax = fig.add_subplot()
+    draw_field(ax, run["obstacles"], box)
+    line = run["line"]
+    if line is not None and len(line["x_nm"]):
+        draw_line(ax, line["x_nm"], line["y_nm"], line["pinned"].astype(bool), box)
+    loops = run["loops"]
+    if loops is not None:
+        for k in np.unique(loops["loop"]):
+            sel = loops["loop"] == k
+            lx, ly = np.append(loops["x_nm"][sel], loops["x_nm"][sel][:1]), \
+                np.append(loops["y_nm"][sel], loops["y_nm"][sel][:1])
+            ax.plot(*wrap_polyline(lx, ly, box), color="C1", linewidth=1.5, zorder=3)
+    ax.set_xlabel("x (nm)")
+    ax.set_ylabel("glide direction y (nm)")
+    ax.set_title(f"final pinned line, CRSS = {run['result']['crss_MPa']:.4g} MPa")
+    return fig
+
+
+def _area_figure(run: dict, box) -> Figure:
+    """Stress against the area swept from the straight start (mean glide × Lx)."""
+    hist, res = run["history"], run["result"]
+    area = hist["mean_glide_nm"] * box[0]
+    stress = hist["stress_MPa"]
+    pinned = hist["state"] == "pinned"
+    top = AREA_AXIS_MARGIN * area[pinned].max() if pinned.any() and area[pinned].max() > 0 else None
+    fig = _figure()
+    ax = fig.add_subplot()
+    lo, hi = res["crss_bracket_MPa"]
+    ax.axhspan(lo, hi, color="C2", alpha=0.25, linewidth=0)
+    ax.axhline(res["crss_MPa"], color="C2", linestyle="--", label=f"CRSS {res['crss_MPa']:.4g} MPa")
+    order = np.argsort(area[pinned])
+    ax.plot(area[pinned][order], stress[pinned][order], color="0.6", linewidth=1.0)
+    for state, marker in STATE_MARKERS.items():
+        sel = hist["state"] == state
+        if sel.any():
+            xs = np.minimum(area[sel], top) if top else area[sel]
+            ax.plot(xs, stress[sel], marker, linestyle="none", label=state, clip_on=False)
+    if top:
+        ax.set_xlim(0, top)
+    ax.set_xlabel("area swept from the straight start (nm$^2$)")
+    ax.set_ylabel("applied stress τ (MPa)")
+    ax.legend(loc="lower right", frameon=False)
+    return fig
+
+
+def plot_dir(folder, quantity: str = "crss") -> list[Path]:
+    """Plot a sweep folder (``sweep.json``) or a run folder (``result.json``)."""
+    folder = Path(folder)
+    if (folder / "sweep.json").is_file():
+        return plot_sweep(folder, quantity=quantity)
+    if (folder / "result.json").is_file():
+        return plot_run(folder)
+    raise DlsimError(f"{str(folder)!r} holds neither a sweep (sweep.json) nor a run (result.json)")
