@@ -332,6 +332,10 @@ def _nearest(name: str, candidates) -> str | None:
     return lower[close[0]] if close else None
 
 
+def _hint(near: str | None, quote: str = "`") -> str:
+    return f"did you mean {quote}{near}{quote}? " if near else ""
+
+
 def _typed(source: str, dotted: str, value: Any, key: Key) -> Any:
     """Check the type and the condition of one value; ints become floats where floats are due."""
     numeric = isinstance(value, (int, float)) and not isinstance(value, bool)
@@ -344,7 +348,7 @@ def _typed(source: str, dotted: str, value: Any, key: Key) -> Any:
             return value
     allowed = key.allowed if finite else key.allowed.replace("a number", "a finite number", 1)
     near = _nearest(value, key.check.choices) if key.check and isinstance(value, str) else None
-    hint = f'did you mean "{near}"? ' if near else ""
+    hint = _hint(near, quote='"')
     raise CaseError(source, dotted, f"got {_show(value)}; {hint}must be {allowed}")
 
 
@@ -356,10 +360,9 @@ def _unknown(source: str, prefix: str, name: str, section: Section) -> CaseError
                     None)
     else:
         near = _join(prefix, near)
-    hint = f"did you mean `{near}`? " if near else ""
     where = f"[{prefix}] takes" if prefix else "the top level takes"
     return CaseError(source, _join(prefix, name),
-                     f"unknown key; {hint}{where} {', '.join(section.keys)}")
+                     f"unknown key; {_hint(near)}{where} {', '.join(section.keys)}")
 
 
 def _check_groups(source: str, prefix: str, table: dict, section: Section) -> None:
@@ -426,9 +429,8 @@ def _validate_top(source: str, raw: dict) -> dict[str, Any]:
     for name, value in raw.items():
         if name not in top.keys and name not in sections:
             near = _nearest(name, sections + list(top.keys))
-            hint = f"did you mean `{near}`? " if near else ""
             kind = "section" if isinstance(value, dict) else "key"
-            raise CaseError(source, name, f"unknown {kind}; {hint}the top level takes "
+            raise CaseError(source, name, f"unknown {kind}; {_hint(near)}the top level takes "
                                           f"{', '.join(top.keys)} and the sections "
                                           f"{', '.join(f'[{s}]' for s in sections)}")
     return validate_table(source, "", {k: v for k, v in raw.items() if k in top.keys}, top)
@@ -508,7 +510,7 @@ def _read(path: Path, source: str) -> dict:
     if path.is_dir():
         raise CaseError(source, "", "is a directory, not a case file")
     try:
-        text = path.read_bytes().decode("utf-8")
+        text = path.read_bytes().decode("utf-8-sig")  # tolerate a byte-order mark
         return tomllib.loads(text)
     except FileNotFoundError:
         raise CaseError(source, "", "no such file") from None
@@ -599,8 +601,7 @@ def apply_overrides(raw: dict, overrides: dict[str, object], source: str = "<ove
     for dotted, value in overrides.items():
         if not schema_has_key(dotted):
             near = _nearest(dotted, [_join(s, k) for s, sec in SCHEMA.items() for k in sec.keys])
-            hint = f"did you mean `{near}`? " if near else ""
-            raise CaseError(source, dotted, f"got {_show(value)}; {hint}not a key of a case")
+            raise CaseError(source, dotted, f"got {_show(value)}; {_hint(near)}not a key of a case")
         prefix, _, name = dotted.rpartition(".")
         table = new.setdefault(prefix, {}) if prefix else new
         if not isinstance(table, dict):
