@@ -325,7 +325,7 @@ def _expand(base: dict, points: list[dict], seeds: int, source: str) -> list[Run
     swidth = max(2, len(str(seeds - 1)))
     runs = []
     for p, params in enumerate(points):
-        case = apply_overrides(base, params)
+        case = apply_overrides(base, params, source=source)
         _validate_case(case, source, f"sweep point {p}: {_describe(params)}")
         for k, seed in enumerate(derive_seeds(case["seed"], seeds)):
             run_case = copy.deepcopy(case)
