@@ -363,7 +363,7 @@ def _output_folder(output, source: str, folder: Path) -> Path | None:
         return None
     if not isinstance(value, str) or not value:
         raise CaseError(source, "output.folder", f"got {value!r}; must be a folder path")
-    return folder / value
+    return Path(os.path.normpath(folder / value))
 
 
 # --------------------------------------------------------------------------- running
