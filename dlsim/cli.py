@@ -55,7 +55,8 @@ def _add_sweep_commands(sub) -> None:
     sweep.add_argument("--workers", type=int, default=None,
                        help="parallel runs (default: every core)")
     sweep.add_argument("--scheduler", default=None, metavar="ADDRESS|local",
-                       help="run on a Dask cluster: a scheduler address, or 'local'")
+                       help="run on a Dask cluster: a scheduler address or scheduler "
+                            "file (.json), or 'local' for a local one")
     sweep.add_argument("--quiet", action="store_true", help="no progress bar")
     sweep.set_defaults(func=_cmd_sweep)
 

@@ -63,6 +63,8 @@ SUMMARY_POINTS = "summary_points.csv"
 TMP_PREFIX = ".tmp-"
 # Two-sided 95 % confidence interval of the mean (Student t).
 CI_LEVEL = 0.95
+# How long to wait for an existing Dask scheduler before giving up.
+DASK_CONNECT_TIMEOUT = "30s"
 DASK_HINT = "Dask is not installed: pip install 'dlsim[cluster]'"
 
 
@@ -401,8 +403,9 @@ def run_sweep(sweep: str | os.PathLike | dict | Sweep, out_dir=None, workers: in
         Parallel runs; default every core this process may use.  With ``scheduler`` an address
         of an existing cluster it is ignored (the cluster has its own workers).
     scheduler : str, optional
-        ``None``: a local process pool.  ``"local"``: a Dask ``LocalCluster``.  Anything else:
-        the address of a running Dask scheduler, e.g. ``"tcp://node17:8786"``.
+        ``None``: a local process pool.  ``"local"``: a Dask ``LocalCluster``.  A name ending in
+        ``.json``: the scheduler file of a running Dask scheduler.  Anything else: its address,
+        e.g. ``"tcp://node17:8786"``.
     progress : bool
         A tqdm bar over runs on stderr.
 
@@ -583,9 +586,12 @@ def _execute_dask(todo: list[RunSpec], workers, scheduler: str):
                                processes=True, dashboard_address=None)
         client = Client(cluster)
     else:
+        # A scheduler file (``dask scheduler --scheduler-file F``) is the usual hand-over in a batch job.
+        where = ({"scheduler_file": scheduler} if scheduler.endswith(".json")
+                 else {"address": scheduler})
         try:
-            client = Client(scheduler, timeout="30s")
-        except (OSError, TimeoutError) as err:
+            client = Client(**where, timeout=DASK_CONNECT_TIMEOUT)
+        except (OSError, TimeoutError, ValueError) as err:
             raise DlsimError(f"cannot reach the Dask scheduler at {scheduler!r}: {err}") from None
     try:
         client.run(_init_worker)

@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from dlsim.errors import CaseError
+from dlsim.errors import CaseError, DlsimError
 from dlsim.sweep import derive_seeds, load_sweep, run_sweep
 
 # A tiny random field (about 3 × 3 obstacles) so that a run takes about a second and its result
@@ -286,3 +286,19 @@ def _wait_for_finished_run(out: Path, proc: subprocess.Popen, timeout: float = 9
         time.sleep(0.02)
     proc.kill()
     pytest.fail("no run finished in time")
+
+
+def test_run_sweep_dask_missing_gives_install_hint(tmp_path, monkeypatch):
+    import builtins
+
+    real_import = builtins.__import__
+
+    def no_dask(name, *args, **kwargs):
+        if name.split(".")[0] in ("dask", "distributed"):
+            raise ImportError(name)
+        return real_import(name, *args, **kwargs)
+
+    monkeypatch.setattr(builtins, "__import__", no_dask)
+    with pytest.raises(DlsimError, match=r"pip install 'dlsim\[cluster\]'"):
+        run_sweep(write_sweep(tmp_path), out_dir=tmp_path / "out", scheduler="local",
+                  progress=False)
