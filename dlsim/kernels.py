@@ -1,0 +1,686 @@
+"""Numba kernels of the line model: forces, motion, capture, release, remeshing, reconnection.
+
+Everything here works in reduced units (length in b, stress in G, line tension and nodal force in
+G b²) on plain arrays.  The public driver of one relaxation is :func:`relax_line`; it runs the whole
+loop of time steps in compiled code and returns a status code, so Python costs nothing per step.
+
+The nodal forces are the energy-consistent forms of physics.md (exact for straight segments):
+line tension ``F_i = Γ (t_i - t_{i-1})`` and Peach–Koehler ``F_i = ½ τ ẑ × (r_{i+1} - r_{i-1})``
+(Hirth & Lothe, *Theory of Dislocations*, 1982, ch. 3 and 6).  Lattice friction is a threshold on
+the local driving stress; motion is overdamped, ``v = M τ_eff n``.
+"""
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+#: Numba options, defined once for every kernel of the package.
+JIT = dict(cache=True, nogil=True, error_model="numpy")
+JIT_PARALLEL = dict(JIT, parallel=True)
+
+# --- slots of the float parameter vector ``prm`` ------------------------------------------------
+P_GAMMA = 0      # line tension Γ (G b²)
+P_TAU = 1        # applied resolved shear stress τ (G)
+P_TAUF = 2       # friction threshold τ_f (G)
+P_MOB = 3        # mobility M (sets the time unit only)
+P_LMIN = 4       # shortest segment kept by the remesher (b)
+P_LMAX = 5       # longest segment kept by the remesher (b)
+P_TOL = 6        # equilibrium: max |τ_eff| below this (G)
+P_FLOW = 7       # mean glide past the reference state that counts as flow (b)
+P_LX = 8         # box width, period of the line (b)
+P_LY = 9         # box height, period of the obstacle field (b)
+P_AREF = 10      # area under the line in the reference (last pinned) state (b²)
+P_DANN = 11      # distance below which parts of opposite sense reconnect (b)
+N_PRM = 12
+
+# --- slots of the int64 state vector ``meta`` ----------------------------------------------------
+M_N = 0          # number of nodes of the line
+M_NLOOPS = 1     # number of loops recorded
+M_NLOOPNODES = 2 # nodes used in the loop buffers
+M_STEPS = 3      # time steps taken (cumulative, the caller resets it)
+M_RELEASES = 4   # obstacles released (cumulative)
+M_CAPTURES = 5   # obstacles captured (cumulative)
+M_RECONNECT = 6  # reconnections (cumulative)
+N_META = 7
+
+# --- status codes of relax_line ----------------------------------------------------------------
+EQUILIBRIUM = 0
+FLOWING = 1
+MAX_STEPS = 2
+CAPACITY = 3
+STATUS_NAMES = ("pinned", "flowing", "unresolved", "capacity")
+
+#: Explicit Euler is stable for dt < 1/λ_max with λ_i = 2MΓ/(a_i b_i) the Gershgorin bound of the
+#: line-tension Jacobian at a node with arms a_i, b_i; 0.8 keeps a margin for the friction kink.
+STABILITY_FRACTION = 0.8
+#: No node moves more than this fraction of the shortest segment in one step, so that the swept
+#: quadrilaterals stay simple and capture geometry stays accurate.
+MAX_MOVE_FRACTION = 0.25
+#: Captures recorded in one step at the most (a step moves each node by < l_min/4, so even dense
+#: fields capture a handful).
+MAX_CAPTURES = 256
+#: The remesher never thins a line below this many nodes.
+MIN_NODES = 4
+#: Nodes closer than this many places along the line are never reconnected with each other.
+RECONNECT_MIN_SEPARATION = 4
+#: Two parts of the line reconnect only when their tangents are closer to antiparallel than this.
+RECONNECT_COS = -0.5
+
+
+@njit(**JIT)
+def _neighbours(x, y, n, i, Lx):
+    """Previous and next node of node i on the periodic line (the image across the seam)."""
+    if i == 0:
+        xm, ym = x[n - 1] - Lx, y[n - 1]
+    else:
+        xm, ym = x[i - 1], y[i - 1]
+    if i == n - 1:
+        xp, yp = x[0] + Lx, y[0]
+    else:
+        xp, yp = x[i + 1], y[i + 1]
+    return xm, ym, xp, yp
+
+
+@njit(**JIT)
+def nodal_forces(x, y, n, prm, tau_node, fx, fy):
+    """Line-tension plus Peach–Koehler force at every node (no friction).
+
+    Parameters
+    ----------
+    x, y : (>= n,) float64
+        Node positions (b); node n is node 0 shifted by (Lx, 0).
+    n : int
+        Number of nodes.
+    prm : (N_PRM,) float64
+        Parameters (Γ, Lx used here).
+    tau_node : (>= n,) float64
+        Resolved shear stress at each node (G): applied plus any internal stress.
+    fx, fy : (>= n,) float64
+        Output nodal forces (G b²).
+    """
+    gamma, Lx = prm[P_GAMMA], prm[P_LX]
+    for i in range(n):
+        xm, ym, xp, yp = _neighbours(x, y, n, i, Lx)
+        ax, ay = x[i] - xm, y[i] - ym
+        bx, by = xp - x[i], yp - y[i]
+        a = np.sqrt(ax * ax + ay * ay)
+        b = np.sqrt(bx * bx + by * by)
+        half = 0.5 * tau_node[i]
+        fx[i] = gamma * (bx / b - ax / a) - half * (yp - ym)
+        fy[i] = gamma * (by / b - ay / a) + half * (xp - xm)
+
+
+@njit(**JIT)
+def segment_pass(x, y, n, pin, prm, ux, uy, slen):
+    """Unit tangent and length of every segment; area under the line; whether to remesh.
+
+    Returns
+    -------
+    area : float
+        Signed area between the line and y = 0 over one period (b²), as :func:`line_area`.
+    remesh_needed : bool
+        Some segment with a free end is shorter than l_min, or some segment longer than l_max.
+    """
+    Lx, lmin, lmax = prm[P_LX], prm[P_LMIN], prm[P_LMAX]
+    area = 0.0
+    bad = False
+    for i in range(n):
+        j = i + 1 if i < n - 1 else 0
+        xj = x[j] if i < n - 1 else x[j] + Lx
+        ex, ey = xj - x[i], y[j] - y[i]
+        length = np.sqrt(ex * ex + ey * ey)
+        inv = 1.0 / length
+        ux[i], uy[i], slen[i] = ex * inv, ey * inv, length
+        area += 0.5 * ex * (y[i] + y[j])
+        if length > lmax or (length < lmin and (pin[i] < 0 or pin[j] < 0)):
+            bad = True
+    return area, bad
+
+
+@njit(**JIT)
+def node_pass(x, y, n, pin, prm, tau_int, ux, uy, slen, vx, vy, fpin, ntx, nty):
+    """Overdamped velocities of the free nodes and the force on each pinned node.
+
+    The local driving stress ``τ_loc = F·n/l`` at a free node (``F`` line tension plus
+    Peach–Koehler, ``n`` the node normal, ``l`` the nodal length) is reduced by the friction
+    threshold τ_f (no motion while |τ_loc| <= τ_f); the node moves along its normal at ``M τ_eff``.
+    A pinned node does not move; ``fpin`` receives the magnitude of the force the line exerts on it,
+    the Peach–Koehler part of its two half-segments reduced by friction like everywhere else.
+    ``ntx, nty`` receive the unit chord tangent at each node.
+
+    Parameters
+    ----------
+    tau_int : (>= n,) float64
+        Internal resolved shear stress at each node (G), added to the applied stress.
+    ux, uy, slen : (>= n,) float64
+        Segment tangents and lengths from :func:`segment_pass`.
+
+    Returns
+    -------
+    max_tau_eff : float
+        Largest |τ_eff| over free nodes (G): the equilibrium residual.
+    stiffness : float
+        Largest 1/(a b) over free nodes with arms a, b (b⁻²), for the stable time step.
+    vmax : float
+        Largest node speed.
+    """
+    gamma, tau, tau_f, mob, Lx = prm[P_GAMMA], prm[P_TAU], prm[P_TAUF], prm[P_MOB], prm[P_LX]
+    max_te = 0.0
+    stiff = 0.0
+    vmax = 0.0
+    for i in range(n):
+        k = i - 1 if i > 0 else n - 1
+        a, b = slen[k], slen[i]
+        cx = a * ux[k] + b * ux[i]      # chord r_{i+1} - r_{i-1}
+        cy = a * uy[k] + b * uy[i]
+        tx = gamma * (ux[i] - ux[k])
+        ty = gamma * (uy[i] - uy[k])
+        c = np.sqrt(cx * cx + cy * cy)
+        ntx[i], nty[i] = cx / c, cy / c
+        t_node = tau + tau_int[i]
+        if pin[i] >= 0:
+            t_pk = abs(t_node) - tau_f
+            if t_pk < 0.0:
+                t_pk = 0.0
+            if t_node < 0.0:
+                t_pk = -t_pk
+            px = tx - 0.5 * t_pk * cy
+            py = ty + 0.5 * t_pk * cx
+            fpin[i] = np.sqrt(px * px + py * py)
+            vx[i] = 0.0
+            vy[i] = 0.0
+            continue
+        nx, ny = -nty[i], ntx[i]
+        t_loc = (tx * nx + ty * ny + 0.5 * t_node * c) / (0.5 * (a + b))
+        t_eff = abs(t_loc) - tau_f
+        if t_eff <= 0.0:
+            vx[i] = 0.0
+            vy[i] = 0.0
+        else:
+            if t_eff > max_te:
+                max_te = t_eff
+            speed = mob * t_eff
+            if speed > vmax:
+                vmax = speed
+            if t_loc < 0.0:
+                speed = -speed
+            vx[i] = speed * nx
+            vy[i] = speed * ny
+        kab = 1.0 / (a * b)
+        if kab > stiff:
+            stiff = kab
+    return max_te, stiff, vmax
+
+
+@njit(**JIT)
+def _in_triangle(px, py, ax, ay, bx, by, cx, cy):
+    """Point in closed triangle (either orientation); degenerate triangles hold nothing."""
+    area = (bx - ax) * (cy - ay) - (by - ay) * (cx - ax)
+    if area == 0.0:
+        return False
+    d1 = (bx - ax) * (py - ay) - (by - ay) * (px - ax)
+    d2 = (cx - bx) * (py - by) - (cy - by) * (px - bx)
+    d3 = (ax - cx) * (py - cy) - (ay - cy) * (px - cx)
+    if area > 0.0:
+        return d1 >= 0.0 and d2 >= 0.0 and d3 >= 0.0
+    return d1 <= 0.0 and d2 <= 0.0 and d3 <= 0.0
+
+
+@njit(**JIT)
+def find_captures(x, y, n, pin, ign, vx, vy, dt, ox, oy, opin, cstart, citems, ncx, ncy,
+                  prm, cap_seg, cap_s, cap_obs, cap_x, cap_y):
+    """Obstacles inside the area each segment sweeps during the step (no tunnelling).
+
+    The swept area of segment i is the quadrilateral old(i), old(i+1), new(i+1), new(i), tested as
+    two closed triangles.  Obstacles are found through a periodic cell list (``cstart``/``citems``,
+    CSR over ``ncx × ncy`` cells of the box) and tested at their periodic image inside the
+    segment's bounding box.  Obstacles already held, and the one a node has just left, are skipped.
+
+    Returns
+    -------
+    int
+        Number of captures written to ``cap_*`` (segment, position along it, obstacle, x, y).
+    """
+    Lx, Ly = prm[P_LX], prm[P_LY]
+    inv_lx, inv_ly = 1.0 / Lx, 1.0 / Ly
+    inv_cw, inv_ch = ncx * inv_lx, ncy * inv_ly
+    ncap = 0
+    for i in range(n):
+        j = i + 1 if i < n - 1 else 0
+        if (vx[i] == 0.0 and vy[i] == 0.0) and (vx[j] == 0.0 and vy[j] == 0.0):
+            continue
+        x0, y0 = x[i], y[i]
+        x1, y1 = (x[j] if i < n - 1 else x[j] + Lx), y[j]
+        x3, y3 = x0 + vx[i] * dt, y0 + vy[i] * dt
+        x2, y2 = x1 + vx[j] * dt, y1 + vy[j] * dt
+        xmin = min(min(x0, x1), min(x2, x3))
+        xmax = max(max(x0, x1), max(x2, x3))
+        ymin = min(min(y0, y1), min(y2, y3))
+        ymax = max(max(y0, y1), max(y2, y3))
+        sx = Lx * np.floor(xmin * inv_lx)    # image shift putting xmin in [0, Lx)
+        sy = Ly * np.floor(ymin * inv_ly)
+        ix1 = int((xmax - sx) * inv_cw)
+        iy0, iy1 = int((ymin - sy) * inv_ch), int((ymax - sy) * inv_ch)
+        for icx in range(int((xmin - sx) * inv_cw), ix1 + 1):
+            kx, shx = icx, sx
+            while kx >= ncx:
+                kx -= ncx
+                shx += Lx
+            for icy in range(iy0, iy1 + 1):
+                ky, shy = icy, sy
+                while ky >= ncy:
+                    ky -= ncy
+                    shy += Ly
+                cell = kx + ncx * ky
+                for q in range(cstart[cell], cstart[cell + 1]):
+                    k = citems[q]
+                    px, py = ox[k] + shx, oy[k] + shy
+                    if px < xmin or px > xmax or py < ymin or py > ymax:
+                        continue
+                    if opin[k] > 0 or k == ign[i] or k == ign[j]:
+                        continue
+                    if not (_in_triangle(px, py, x0, y0, x1, y1, x2, y2)
+                            or _in_triangle(px, py, x0, y0, x2, y2, x3, y3)):
+                        continue
+                    dup = False
+                    for m in range(ncap):
+                        if cap_obs[m] == k:
+                            dup = True
+                    if dup or ncap >= cap_obs.shape[0]:
+                        continue
+                    ex, ey = x2 - x3, y2 - y3
+                    ee = ex * ex + ey * ey
+                    cap_seg[ncap] = i
+                    cap_s[ncap] = 0.5 if ee == 0.0 else ((px - x3) * ex + (py - y3) * ey) / ee
+                    cap_obs[ncap] = k
+                    cap_x[ncap] = px
+                    cap_y[ncap] = py
+                    ncap += 1
+    return ncap
+
+
+@njit(**JIT)
+def _sort_captures(ncap, cap_seg, cap_s, cap_obs, cap_x, cap_y):
+    """Order captures by segment, then by position along it (insertion sort: ncap is small)."""
+    for a in range(1, ncap):
+        b = a
+        while b > 0 and (cap_seg[b - 1] > cap_seg[b]
+                         or (cap_seg[b - 1] == cap_seg[b] and cap_s[b - 1] > cap_s[b])):
+            cap_seg[b - 1], cap_seg[b] = cap_seg[b], cap_seg[b - 1]
+            cap_s[b - 1], cap_s[b] = cap_s[b], cap_s[b - 1]
+            cap_obs[b - 1], cap_obs[b] = cap_obs[b], cap_obs[b - 1]
+            cap_x[b - 1], cap_x[b] = cap_x[b], cap_x[b - 1]
+            cap_y[b - 1], cap_y[b] = cap_y[b], cap_y[b - 1]
+            b -= 1
+
+
+@njit(**JIT)
+def move_and_pin(x, y, pin, ign, n, vx, vy, dt, ncap, cap_seg, cap_obs, cap_x, cap_y, opin,
+                 xo, yo, pino, igno):
+    """Advance the free nodes by one step and insert a pinned node at every captured obstacle.
+
+    Writes the new line into ``xo, yo, pino, igno`` and returns its node count.
+    """
+    m = 0
+    c = 0
+    for i in range(n):
+        xo[m] = x[i] + vx[i] * dt
+        yo[m] = y[i] + vy[i] * dt
+        pino[m] = pin[i]
+        igno[m] = ign[i]
+        m += 1
+        while c < ncap and cap_seg[c] == i:
+            xo[m] = cap_x[c]
+            yo[m] = cap_y[c]
+            pino[m] = cap_obs[c]
+            igno[m] = -1
+            opin[cap_obs[c]] += 1
+            m += 1
+            c += 1
+    return m
+
+
+@njit(**JIT)
+def _dist(dx, dy):
+    return np.sqrt(dx * dx + dy * dy)
+
+
+@njit(**JIT)
+def _node_curvature(x, y, n, pin, i, Lx):
+    """Signed curvature of the circle through node i and its neighbours (0 at a pinned node)."""
+    if pin[i] >= 0:
+        return 0.0
+    xm, ym, xp, yp = _neighbours(x, y, n, i, Lx)
+    ax, ay = x[i] - xm, y[i] - ym
+    bx, by = xp - x[i], yp - y[i]
+    cx, cy = xp - xm, yp - ym
+    den = np.sqrt((ax * ax + ay * ay) * (bx * bx + by * by) * (cx * cx + cy * cy))
+    if den == 0.0:
+        return 0.0
+    return 2.0 * (ax * by - ay * bx) / den
+
+
+@njit(**JIT)
+def remesh(x, y, pin, ign, n, prm, xo, yo, pino, igno):
+    """Keep every segment length within [l_min, l_max]; return the new node count.
+
+    A free node is removed when one of its arms is shorter than l_min; pinned nodes are never
+    removed.  A segment longer than l_max is then split into equal parts (each longer than
+    l_max/2 >= l_min, so a removal never leaves a segment out of bounds), the new nodes placed on the circular arc whose curvature is the mean of the free end
+    nodes' three-point curvatures (so remeshing does not flatten a bowed line).
+    """
+    lmin, lmax, Lx = prm[P_LMIN], prm[P_LMAX], prm[P_LX]
+    # pass 1: mark removals, walking from the last kept node (node 0 is always kept)
+    keep = np.ones(n, dtype=np.bool_)
+    last = 0
+    removed = 0
+    for i in range(1, n):
+        nxt = i + 1 if i < n - 1 else 0
+        sh = 0.0 if i < n - 1 else Lx
+        if pin[i] < 0 and n - removed > MIN_NODES:
+            da = _dist(x[i] - x[last], y[i] - y[last])
+            db = _dist(x[nxt] + sh - x[i], y[nxt] - y[i])
+            if da < lmin or db < lmin:
+                keep[i] = False
+                removed += 1
+                continue
+        last = i
+    # pass 2: copy kept nodes, splitting long segments on the local arc
+    kept = np.empty(n, dtype=np.int64)
+    nk = 0
+    for i in range(n):
+        if keep[i]:
+            kept[nk] = i
+            nk += 1
+    m = 0
+    for q in range(nk):
+        i = kept[q]
+        j = kept[q + 1] if q < nk - 1 else kept[0]
+        sh = 0.0 if q < nk - 1 else Lx
+        xo[m], yo[m], pino[m], igno[m] = x[i], y[i], pin[i], ign[i]
+        m += 1
+        ex, ey = x[j] + sh - x[i], y[j] - y[i]
+        length = np.sqrt(ex * ex + ey * ey)
+        if length <= lmax:
+            continue
+        parts = int(np.ceil(length / lmax))
+        ki = _node_curvature(x, y, n, pin, i, Lx)
+        kj = _node_curvature(x, y, n, pin, j, Lx)
+        if pin[i] >= 0:
+            kappa = kj
+        elif pin[j] >= 0:
+            kappa = ki
+        else:
+            kappa = 0.5 * (ki + kj)
+        if abs(kappa) * length > 1.0:  # never more than a near-semicircle per segment
+            kappa = np.sign(kappa) / length
+        nx, ny = -ey / length, ex / length
+        for p in range(1, parts):
+            u = p / parts
+            off = -0.5 * kappa * length * length * u * (1.0 - u)
+            xo[m] = x[i] + u * ex + off * nx
+            yo[m] = y[i] + u * ey + off * ny
+            pino[m] = -1
+            igno[m] = -1
+            m += 1
+    return m
+
+
+@njit(**JIT)
+def line_area(x, y, n, Lx):
+    """Signed area between the line and y = 0 over one period (trapezoids, exact for polygons)."""
+    area = 0.0
+    for i in range(n - 1):
+        area += 0.5 * (x[i + 1] - x[i]) * (y[i] + y[i + 1])
+    area += 0.5 * (x[0] + Lx - x[n - 1]) * (y[n - 1] + y[0])
+    return area
+
+
+@njit(**JIT)
+def _point_segment_dist2(px, py, ax, ay, bx, by):
+    ex, ey = bx - ax, by - ay
+    ee = ex * ex + ey * ey
+    s = 0.0 if ee == 0.0 else ((px - ax) * ex + (py - ay) * ey) / ee
+    s = min(1.0, max(0.0, s))
+    dx, dy = ax + s * ex - px, ay + s * ey - py
+    return dx * dx + dy * dy
+
+
+@njit(**JIT)
+def _pow2_at_most(value):
+    """Largest power of two <= value (at least 1)."""
+    p = 1
+    while 2 * p <= value:
+        p *= 2
+    return p
+
+
+@njit(**JIT)
+def find_contact(x, y, n, pin, ntx, nty, prm, head, nxt):
+    """A pair of free nodes (i, j), i < j, on parts of the line of opposite sense in contact.
+
+    Node i touches node j's part of the line when it lies within the annihilation distance of one
+    of j's two segments, the two are at least RECONNECT_MIN_SEPARATION nodes apart along the line
+    and their tangents are closer to antiparallel than RECONNECT_COS.  Two tangents more than 120°
+    apart cannot both lie within 60° of +x, so only nodes with t_x < 1/2 need to look (most of a
+    gliding line does not).  Candidates come from a hashed cell list over the free nodes, with
+    power-of-two cell counts so that wrapping is a bit mask (``head``: cells, ``nxt``: nodes; work
+    arrays).  Returns (-1, -1) when there is no contact.
+    """
+    Lx, dann = prm[P_LX], prm[P_DANN]
+    hc = prm[P_LMAX] + dann
+    ncx = _pow2_at_most(Lx / hc)
+    ncy = _pow2_at_most(max(1.0, min(head.shape[0] / ncx, 2.0 * n / ncx + 1.0)))
+    mx, my = ncx - 1, ncy - 1
+    inv_cw, inv_hc = ncx / Lx, 1.0 / hc
+    for c in range(ncx * ncy):
+        head[c] = -1
+    for i in range(n):
+        if pin[i] < 0:
+            c = (int(np.floor(x[i] * inv_cw)) & mx) + ncx * (int(np.floor(y[i] * inv_hc)) & my)
+            nxt[i] = head[c]
+            head[c] = i
+    d2max = dann * dann
+    for i in range(n):
+        if pin[i] >= 0 or ntx[i] >= 0.5:
+            continue
+        ix0 = int(np.floor(x[i] * inv_cw))
+        iy0 = int(np.floor(y[i] * inv_hc))
+        for dx in range(-1, 2):
+            for dy in range(-1, 2):
+                j = head[((ix0 + dx) & mx) + ncx * ((iy0 + dy) & my)]
+                while j >= 0:
+                    sep = abs(j - i)
+                    if (min(sep, n - sep) >= RECONNECT_MIN_SEPARATION
+                            and ntx[i] * ntx[j] + nty[i] * nty[j] < RECONNECT_COS):
+                        shift = Lx * np.floor((x[i] - x[j]) / Lx + 0.5)
+                        xj, yj = x[j] + shift, y[j]
+                        if abs(xj - x[i]) < hc and abs(yj - y[i]) < hc:
+                            jm_x, jm_y, jp_x, jp_y = _neighbours(x, y, n, j, Lx)
+                            d2 = min(_point_segment_dist2(x[i], y[i], jm_x + shift, jm_y, xj, yj),
+                                     _point_segment_dist2(x[i], y[i], xj, yj, jp_x + shift, jp_y))
+                            if d2 < d2max:
+                                return min(i, j), max(i, j)
+                    j = nxt[j]
+    return -1, -1
+
+
+@njit(**JIT)
+def reconnect(x, y, pin, ign, n, i, j, Lx, meta, lx, ly, lpin, loff):
+    """Join two parts of opposite sense at nodes i < j, cutting off a closed loop.
+
+    The line is rebuilt in place as ``[..i-1, m, j+1..]`` (m the midpoint of i and j) and the part
+    between them, ``[i+1 .. j-1]``, becomes a closed loop; where the contact lies across the periodic
+    seam (node j is node i's neighbour one period on) it is the other way round.  A loop holding a
+    pinned node is stored in the loop buffers (CSR: ``lx, ly, lpin`` with offsets ``loff``): an Orowan
+    loop left around its obstacles, which stay held.  A loop holding none is dropped (under line
+    tension alone it would shrink away).  Returns the new node count; ``n`` unchanged when the
+    contact is not a reconnection (folded across the seam backwards), -1 when the loop buffers are
+    full (nothing changed).
+    """
+    shift = Lx * np.floor((x[j] - x[i]) / Lx + 0.5)
+    if shift < 0.0:
+        return n
+    if shift == 0.0:
+        lo, hi = i + 1, j - 1
+    else:
+        lo, hi = j + 1, i - 1 + n
+    has_pin = False
+    for q in range(lo, hi + 1):
+        if pin[q % n] >= 0:
+            has_pin = True
+    if has_pin:
+        nl, used = meta[M_NLOOPS], meta[M_NLOOPNODES]
+        if used + (hi - lo + 1) > lx.shape[0] or nl + 2 > loff.shape[0]:
+            return -1
+        for q in range(lo, hi + 1):
+            k = q % n
+            lx[used] = x[k] + (shift if q >= n else 0.0)
+            ly[used] = y[k]
+            lpin[used] = pin[k]
+            used += 1
+        loff[nl + 1] = used
+        meta[M_NLOOPS] = nl + 1
+        meta[M_NLOOPNODES] = used
+    xmid = 0.5 * (x[i] + shift + x[j])
+    ymid = 0.5 * (y[i] + y[j])
+    if shift == 0.0:  # line = [0 .. i-1] + [m] + [j+1 .. n-1]
+        x[i], y[i], pin[i], ign[i] = xmid, ymid, -1, -1
+        m = i + 1
+        for q in range(j + 1, n):
+            x[m], y[m], pin[m], ign[m] = x[q], y[q], pin[q], ign[q]
+            m += 1
+        return m
+    m = 0  # across the seam: line = [i+1 .. j-1] + [m]
+    for q in range(i + 1, j):
+        x[m], y[m], pin[m], ign[m] = x[q], y[q], pin[q], ign[q]
+        m += 1
+    x[m], y[m], pin[m], ign[m] = xmid, ymid, -1, -1
+    return m + 1
+
+
+@njit(**JIT)
+def _release(n, pin, ign, fpin, ofc, opin):
+    """Free every pinned node whose force exceeds its obstacle's strength; count releases."""
+    released = 0
+    for i in range(n):
+        k = pin[i]
+        if k >= 0 and fpin[i] > ofc[k]:
+            pin[i] = -1
+            ign[i] = k
+            opin[k] -= 1
+            released += 1
+    return released
+
+
+@njit(**JIT)
+def _copy_line(src_x, src_y, src_pin, src_ign, n, x, y, pin, ign):
+    for i in range(n):
+        x[i], y[i], pin[i], ign[i] = src_x[i], src_y[i], src_pin[i], src_ign[i]
+
+
+@njit(**JIT)
+def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
+               ox, oy, ofc, opin, cstart, citems, ncx, ncy,
+               lx, ly, lpin, loff, tau_int, work_f, work_i):
+    """Relax the line at fixed stress until equilibrium, flow, or ``max_steps`` time steps.
+
+    One step: remesh if some segment left its bounds; stop if the line has glided the flow
+    distance; forces and velocities; release overloaded pins; reconnect parts of opposite sense in
+    contact; stop at equilibrium; otherwise advance the free nodes by the stable time step and pin
+    every obstacle swept on the way.
+
+    Parameters
+    ----------
+    x, y, pin, ign : (cap,) arrays
+        Line state, updated in place (first ``meta[M_N]`` entries used).
+    bx, by, bpin, bign : (cap,) arrays
+        Work buffers of the same capacity.
+    meta : (N_META,) int64
+        Counts, updated in place.
+    prm : (N_PRM,) float64
+        Parameters (see the ``P_*`` slots).
+    max_steps : int
+        Time steps allowed in this call.
+    ox, oy, ofc : (n_obs,) float64
+        Obstacle positions (b) and critical forces (G b²).
+    opin : (n_obs,) int64
+        How many line or loop nodes hold each obstacle (updated).
+    cstart, citems, ncx, ncy
+        Periodic cell list of the obstacles.
+    lx, ly, lpin, loff
+        Loop buffers (CSR, see :func:`reconnect`).
+    tau_int : (cap,) float64
+        Internal stress at the nodes (G), zero for a constant line tension.
+    work_f : (9, cap) float64 and work_i : (3, cap) int64
+        Work arrays (cap >= 3 MAX_CAPTURES).
+
+    Returns
+    -------
+    int
+        EQUILIBRIUM, FLOWING, MAX_STEPS or CAPACITY (grow the arrays and call again).
+    """
+    cap = x.shape[0]
+    vx, vy, fpin, ux, uy, slen, ntx, nty = (work_f[0], work_f[1], work_f[2], work_f[3],
+                                            work_f[4], work_f[5], work_f[6], work_f[7])
+    cap_s = work_f[8, :MAX_CAPTURES]
+    cap_x = work_f[8, MAX_CAPTURES:2 * MAX_CAPTURES]
+    cap_y = work_f[8, 2 * MAX_CAPTURES:3 * MAX_CAPTURES]
+    cap_seg = work_i[0, :MAX_CAPTURES]
+    cap_obs = work_i[0, MAX_CAPTURES:2 * MAX_CAPTURES]
+    head, nxt = work_i[1], work_i[2]
+    Lx, lmin = prm[P_LX], prm[P_LMIN]
+    n = meta[M_N]
+    moved = 0
+    for _ in range(4 * max_steps):
+        if moved >= max_steps:
+            break
+        if 2 * n + MAX_CAPTURES + 16 > cap:
+            meta[M_N] = n
+            return CAPACITY
+        area, bad = segment_pass(x, y, n, pin, prm, ux, uy, slen)
+        if bad:
+            n = remesh(x, y, pin, ign, n, prm, bx, by, bpin, bign)
+            _copy_line(bx, by, bpin, bign, n, x, y, pin, ign)
+            area, bad = segment_pass(x, y, n, pin, prm, ux, uy, slen)
+        if (area - prm[P_AREF]) / Lx > prm[P_FLOW]:
+            meta[M_N] = n
+            return FLOWING
+        max_te, stiff, vmax = node_pass(x, y, n, pin, prm, tau_int, ux, uy, slen,
+                                        vx, vy, fpin, ntx, nty)
+        released = _release(n, pin, ign, fpin, ofc, opin)
+        if released > 0:
+            meta[M_RELEASES] += released
+            continue
+        i, j = find_contact(x, y, n, pin, ntx, nty, prm, head, nxt)
+        if i >= 0:
+            n_new = reconnect(x, y, pin, ign, n, i, j, Lx, meta, lx, ly, lpin, loff)
+            if n_new < 0:
+                meta[M_N] = n
+                return CAPACITY
+            if n_new != n:
+                n = n_new
+                meta[M_RECONNECT] += 1
+                continue
+        if max_te < prm[P_TOL]:
+            meta[M_N] = n
+            return EQUILIBRIUM
+        dt = STABILITY_FRACTION / (2.0 * prm[P_MOB] * prm[P_GAMMA] * stiff)
+        if vmax * dt > MAX_MOVE_FRACTION * lmin:
+            dt = MAX_MOVE_FRACTION * lmin / vmax
+        ncap = find_captures(x, y, n, pin, ign, vx, vy, dt, ox, oy, opin, cstart, citems,
+                             ncx, ncy, prm, cap_seg, cap_s, cap_obs, cap_x, cap_y)
+        if ncap == 0:
+            for k in range(n):
+                x[k] += vx[k] * dt
+                y[k] += vy[k] * dt
+        else:
+            _sort_captures(ncap, cap_seg, cap_s, cap_obs, cap_x, cap_y)
+            meta[M_CAPTURES] += ncap
+            n = move_and_pin(x, y, pin, ign, n, vx, vy, dt, ncap, cap_seg, cap_obs, cap_x, cap_y,
+                             opin, bx, by, bpin, bign)
+            _copy_line(bx, by, bpin, bign, n, x, y, pin, ign)
+        moved += 1
+        meta[M_STEPS] += 1
+    meta[M_N] = n
+    return MAX_STEPS
