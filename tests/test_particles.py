@@ -14,7 +14,8 @@ from scipy import integrate, stats
 
 from dlsim.errors import CaseError
 from dlsim.particles import (
-    HARD_SPHERE_HALF_THICKNESS, LSW, LSW_U_MAX, LogNormal, Particles, Sections, SingleSize, expected_section_stats,
+    HARD_SPHERE_HALF_THICKNESS, LSW, LSW_U_MAX, LogNormal, Particles, Sections, SingleSize,
+    expected_section_stats,
     lsw_cdf, lsw_moment, lsw_pdf, number_density_from_fraction, place_hard_spheres, place_poisson,
     read_particles_csv, read_sections_csv, resolve_density, rsa_positions, sample_sections, section,
     section_stats, volume_fraction_from_density,
@@ -214,7 +215,8 @@ def test_section_stats_known_values():
     s = Sections(np.zeros(4), np.zeros(4), rho, rho, np.zeros(4))
     st = section_stats(s, 20.0, 10.0)
     assert st["count"] == 4
-    assert st["areal_density_per_nm2"] == pytest.approx(0.02) and st["areal_density_per_um2"] == pytest.approx(2e4)
+    assert st["areal_density_per_nm2"] == pytest.approx(0.02)
+    assert st["areal_density_per_um2"] == pytest.approx(2e4)
     assert st["mean_square_spacing_nm"] == pytest.approx(50**0.5)
     assert st["rho_mean_nm"] == pytest.approx(3.0) and st["rho2_mean_nm2"] == pytest.approx(12.5)
     assert st["rho_std_nm"] == pytest.approx(math.sqrt(14.0 / 3.0))
@@ -398,6 +400,12 @@ def test_read_sections_csv_good_file(tmp_path):
     s = read_sections_csv(path, FILE_KEY, 10.0, 10.0)
     assert np.array_equal(s.rho_nm, [3.0, 0.0]) and np.array_equal(s.y_nm, [2.5, 5.0])
     assert np.all(np.isnan(s.r_nm)) and np.all(np.isnan(s.z_nm))
+
+
+def test_read_sections_csv_accepts_byte_order_mark(tmp_path):
+    path = tmp_path / "bom.csv"
+    path.write_bytes("x_nm,y_nm,radius_nm\n1,2,3\n".encode("utf-8-sig"))
+    assert len(read_sections_csv(path, FILE_KEY, 10.0, 10.0)) == 1
 
 
 @pytest.mark.parametrize("reader, text, fragment", [
