@@ -1,0 +1,697 @@
+"""Elastic interactions of the line in its glide plane: non-singular self-stress, loops, de Wit–Koehler.
+
+Reduced units throughout: length in b, stress in G, nodal force in G b² (G = b = 1).  The line lies
+in the glide plane z = 0, runs along +x on average and is periodic in x (node ``n`` is node 0
+shifted by ``(Lx, 0)``); the Burgers vector lies in the plane, ``b = (cos θ0, sin θ0, 0)``.  Every
+stress returned here is the glide-plane resolved shear ``τ = σ_zj b_j`` with the sign of the applied
+stress: a positive value pushes a line of tangent ``ξ`` along ``ẑ × ξ`` (Peach–Koehler
+``F = (σ·b) × ξ``, whose glide part is ``σ_zj b_j ẑ × ξ``), so the stepper simply adds it to τ.
+
+Segment stress (derivation summary)
+-----------------------------------
+Start: the non-singular stress of a dislocation loop of Cai, Arsenlis, Weinberger & Bulatov,
+J. Mech. Phys. Solids 54 (2006) 561–587: de Wit's line integral for the stress of a loop with the
+distance ``R = |x - x'|`` replaced everywhere by ``R_a = sqrt(R² + a²)``,
+
+    σ_αβ = (1/8π) ∮ ∂_i∂_p∂_p R_a [b_m ε_imα dx'_β + b_m ε_imβ dx'_α]
+         + 1/(4π(1-ν)) ∮ b_m ε_imk (∂_i∂_α∂_β R_a - δ_αβ ∂_i∂_p∂_p R_a) dx'_k ,
+
+derivatives with respect to the field point x.  (The overall sign is the one that, with
+``F = (σ·b) × ξ``, gives the fields of Hirth & Lothe, *Theory of Dislocations*, 1982, ch. 3: like
+dislocations repel; the tests check it.)  With ``∂_i∂_p∂_p R_a = -R_i (2/R_a³ + 3a²/R_a⁵)`` and, for
+a field point in the plane (R_z = 0) and b_z = 0, ``b_β ∂_i∂_z∂_β R_a = -δ_iz (R·b)/R_a³``, the
+resolved shear of a line element of tangent t reduces to
+
+    dτ = -dl [ (t·b) (R×b)_z (2/R_a³ + 3a²/R_a⁵)/(8π) + (b×t)_z (R·b)/(4π(1-ν) R_a³) ].
+
+On a straight segment write ``R = s t + d n`` (``n = ẑ × t``, ``s = R·t``, ``d = (t×R)_z`` fixed),
+``c = t·b = cos θ``, ``w = (t×b)_z = sin θ``.  Elementary integrals over s give, with
+``ρ² = d² + a²``, ``u = 1/R_a``, ``v = s/(ρ² R_a)`` and ``q = a² u²``, the antiderivative
+
+    Fseg(s) = c w [k0 u + a² u³/(8π)] + d v [c² (2 + 2a²/ρ² + q)/(8π) + w²/(4π(1-ν))],
+    k0 = -ν/(4π(1-ν)),
+
+and the segment from node A to node B contributes ``τ = Fseg(s_A) - Fseg(s_B)``.  Only one square
+root (shared by the two segments meeting at a node) and two divisions per pair: no transcendental
+call in the pair loop.  For a → 0 and an infinite line this is ``(c² + w²/(1-ν))/(2π d)``.
+
+Local part (the node's own two arms)
+------------------------------------
+Collocated at a node, the two straight arms of a polygonal line give no curvature (line-tension)
+stress at all: the node lies on both arms (d = 0), which leaves only a term in the change of ``c w``
+across the node, of order ``Δ(c w) (1-3ν)/(8π(1-ν) a)`` — a polygon artefact that grows with h/a and
+misses the ``ln(h/a)`` part of the line tension.  We therefore replace the two chords, as seen from
+their common node, by the circular arc through the node and its two neighbours (curvature κ,
+tangent t0 from the three nodes), integrated to first order in κ:
+
+    τ_arc = c0 w0 [Φ(h-) - Φ(h+)]
+          - κ [(c0²/2 - w0²)(2J + Λ)/(8π) + (w0²/2 - c0²) J/(4π(1-ν))],
+    Φ(h) = k0/R_h + a²/(8π R_h³),  R_h = sqrt(h² + a²),
+    J = Σ± [asinh(h±/a) - h±/R_h±],  Λ = Σ± h±³/R_h±³,
+
+(h- and h+ the arm lengths).  For h ≫ a the curvature term is
+``κ (1 - 2ν + 3ν c0²)/(4π(1-ν)) ln(2h/a)``: the local stiffness E + E'' of de Wit & Koehler
+(Phys. Rev. 116, 1959), so the total does not depend on the node spacing; for h ≪ a the
+correction vanishes and the polygon converges on its own.  A straight line gets no correction.
+
+Periodic images and the remainder
+---------------------------------
+The sum runs over a window of ``2 n_images + 1`` periods of the line centred on the target node
+(the images ``|k| <= n_images``, truncated symmetrically).  Every segment outside the window is
+replaced by its projection on the straight average line ``y = ȳ`` (ȳ the signed-area mean height);
+the projections telescope into two semi-infinite straight dislocations along x, from -∞ to the
+window's first node and from its last node to +∞, added in closed form.  What is left out is the
+field of the line's deviation from its average over whole periods, which has no net area
+(∫ (y - ȳ) dx = 0), so it falls as the fourth power of the distance and the remainder decreases
+about as ``n_images⁻³``.  A straight line gets exactly zero.
+
+With ``cutoff > 0`` the window is further cut to the contiguous run of segments around the target
+whose midpoints lie within ``cutoff`` of it in x, and the segments beyond are replaced by the same
+straight projection: the far-field correction is the field of the straight average line beyond the
+cutoff, leaving the deviation's field, of relative size (amplitude/cutoff)².
+"""
+from __future__ import annotations
+
+import numpy as np
+from numba import njit, prange
+
+from dlsim.kernels import JIT, JIT_PARALLEL
+
+INV_4PI = 1.0 / (4.0 * np.pi)
+INV_8PI = 1.0 / (8.0 * np.pi)
+
+
+# ------------------------------------------------------------------------------------------------
+# geometry and per-segment constants
+# ------------------------------------------------------------------------------------------------
+@njit(**JIT)
+def _extend(x, y, n, shift, xe, ye):
+    """Copy nodes 0..n-1 into xe, ye and append node n = node 0 shifted by (shift, 0)."""
+    for j in range(n):
+        xe[j] = x[j]
+        ye[j] = y[j]
+    xe[n] = x[0] + shift
+    ye[n] = y[0]
+
+
+@njit(**JIT)
+def _segment_constants(xe, ye, j0, j1, bx, by, nu, tx, ty, sl, ca, cb, cc):
+    """Unit tangent, length and the three character weights of segments j0..j1-1 (node j to j+1).
+
+    ``ca = c w``, ``cb = c²/(8π)``, ``cc = w²/(4π(1-ν))`` with ``c = t·b``, ``w = (t×b)_z``.
+    """
+    for j in range(j0, j1):
+        sx = xe[j + 1] - xe[j]
+        sy = ye[j + 1] - ye[j]
+        h = np.sqrt(sx * sx + sy * sy)
+        ux = sx / h
+        uy = sy / h
+        c = ux * bx + uy * by
+        w = ux * by - uy * bx
+        tx[j] = ux
+        ty[j] = uy
+        sl[j] = h
+        ca[j] = c * w
+        cb[j] = c * c * INV_8PI
+        cc[j] = w * w * INV_4PI / (1.0 - nu)
+
+
+@njit(**JIT, inline="always")
+def _pair_term(dx, dy, tx, ty, sl, ua, ub, ca, cb, cc, a2, k0):
+    """Fseg(s_A) - Fseg(s_B) of one segment; (dx, dy) = target - node A, ua, ub = 1/R_a at A, B."""
+    d = tx * dy - ty * dx
+    sa = tx * dx + ty * dy
+    sb = sa - sl
+    ir = 1.0 / (d * d + a2)
+    qa = a2 * ua * ua
+    qb = a2 * ub * ub
+    va = sa * ua * ir
+    vb = sb * ub * ir
+    dv = va - vb
+    return (ca * (k0 * (ua - ub) + (qa * ua - qb * ub) * INV_8PI)
+            + d * (cb * ((2.0 + 2.0 * a2 * ir) * dv + qa * va - qb * vb) + cc * dv))
+
+
+@njit(**JIT)
+def segment_stress(px, py, xa, ya, xb, yb, theta0, nu, a_core):
+    """Resolved shear σ_zj b_j (G) at (px, py) from the segment A -> B, all in the plane z = 0.
+
+    Non-singular field of Cai, Arsenlis, Weinberger & Bulatov (J. Mech. Phys. Solids 54, 2006,
+    561), in-plane closed form of the module docstring.  Lengths in b; a zero-length segment
+    contributes nothing.
+
+    Parameters
+    ----------
+    px, py : float
+        Field point (b).
+    xa, ya, xb, yb : float
+        Segment start and end (b); the line sense runs from A to B.
+    theta0, nu, a_core : float
+        Burgers-vector angle from +x (rad), Poisson ratio, core radius (b).
+    """
+    return _segment_stress(px, py, xa, ya, xb, yb, np.cos(theta0), np.sin(theta0), nu,
+                           a_core * a_core)
+
+
+@njit(**JIT)
+def _segment_stress(px, py, xa, ya, xb, yb, bx, by, nu, a2):
+    """:func:`segment_stress` with b = (bx, by) and a² given."""
+    sx = xb - xa
+    sy = yb - ya
+    h = np.sqrt(sx * sx + sy * sy)
+    if h == 0.0:
+        return 0.0
+    tx = sx / h
+    ty = sy / h
+    c = tx * bx + ty * by
+    w = tx * by - ty * bx
+    dax = px - xa
+    day = py - ya
+    dbx = px - xb
+    dby = py - yb
+    ua = 1.0 / np.sqrt(dax * dax + day * day + a2)
+    ub = 1.0 / np.sqrt(dbx * dbx + dby * dby + a2)
+    return _pair_term(dax, day, tx, ty, h, ua, ub, c * w, c * c * INV_8PI,
+                      w * w * INV_4PI / (1.0 - nu), a2, -nu * INV_4PI / (1.0 - nu))
+
+
+@njit(**JIT)
+def _chain_sum(px, py, xe, ye, j0, j1, tx, ty, sl, ca, cb, cc, a2, k0, uu, tmp):
+    """Resolved shear at (px, py) from segments j0..j1-1 of a chain (Fseg(s_A) - Fseg(s_B)).
+
+    Works on views starting at j0, so that every index is provably non-negative and LLVM
+    vectorises the first two loops (numba's negative-index wrap-around otherwise defeats it)
+    without reordering any sum: inverse distances at the nodes (one square root per node, shared
+    by two segments), the segment terms, then a sum with four interleaved partial sums (fixed
+    order, the same for any thread count).
+    """
+    m = j1 - j0
+    xs = xe[j0:j1 + 1]
+    ys = ye[j0:j1 + 1]
+    us = uu[: m + 1]
+    for j in range(m + 1):
+        dx = px - xs[j]
+        dy = py - ys[j]
+        us[j] = 1.0 / np.sqrt(dx * dx + dy * dy + a2)
+    txs = tx[j0:j1]
+    tys = ty[j0:j1]
+    sls = sl[j0:j1]
+    cas = ca[j0:j1]
+    cbs = cb[j0:j1]
+    ccs = cc[j0:j1]
+    ts = tmp[:m]
+    for j in range(m):
+        ts[j] = _pair_term(px - xs[j], py - ys[j], txs[j], tys[j], sls[j], us[j], us[j + 1],
+                           cas[j], cbs[j], ccs[j], a2, k0)
+    s0 = 0.0
+    s1 = 0.0
+    s2 = 0.0
+    s3 = 0.0
+    j = 0
+    while j + 4 <= m:
+        s0 += ts[j]
+        s1 += ts[j + 1]
+        s2 += ts[j + 2]
+        s3 += ts[j + 3]
+        j += 4
+    while j < m:
+        s0 += ts[j]
+        j += 1
+    return (s0 + s1) + (s2 + s3)
+
+
+@njit(**JIT)
+def _straight_end(px, py, xa, ybar, toward_plus, bx, by, nu, a2):
+    """Resolved shear at (px, py) from a semi-infinite straight dislocation along +x at y = ybar.
+
+    ``toward_plus``: it runs from x = xa to +∞; otherwise from -∞ to x = xa.  Same antiderivative
+    Fseg with t = x̂ (c = b_x, w = b_y); at infinity u = 0 and v = ±1/ρ².
+    """
+    dx = px - xa
+    d = py - ybar
+    ir = 1.0 / (d * d + a2)
+    u = 1.0 / np.sqrt(dx * dx + d * d + a2)
+    q = a2 * u * u
+    v = dx * u * ir
+    cw = bx * by
+    k0 = -nu * INV_4PI / (1.0 - nu)
+    cb = bx * bx * INV_8PI
+    cc = by * by * INV_4PI / (1.0 - nu)
+    f_end = cw * (k0 * u + q * u * INV_8PI) + d * v * (cb * (2.0 + 2.0 * a2 * ir + q) + cc)
+    f_inf = d * ir * (cb * (2.0 + 2.0 * a2 * ir) + cc)
+    if toward_plus:
+        return f_end + f_inf    # Fseg(s_A) - Fseg(-∞)
+    return f_inf - f_end        # Fseg(+∞) - Fseg(s_B)
+
+
+@njit(**JIT)
+def _remainder(px, py, x_lo, y_lo, x_hi, y_hi, ybar, bx, by, nu, a2):
+    """The line outside the window, as its straight average: -∞ -> (x_lo, ȳ) -> (x_lo, y_lo) and
+    (x_hi, y_hi) -> (x_hi, ȳ) -> +∞.
+
+    The two short connectors keep the replacement path continuous with the window, so that what
+    is left out is a chain of closed circuits with no net area (field ~ distance⁻⁴); without them
+    the error would fall only as n_images⁻².
+    """
+    return (_straight_end(px, py, x_lo, ybar, False, bx, by, nu, a2)
+            + _segment_stress(px, py, x_lo, ybar, x_lo, y_lo, bx, by, nu, a2)
+            + _segment_stress(px, py, x_hi, y_hi, x_hi, ybar, bx, by, nu, a2)
+            + _straight_end(px, py, x_hi, ybar, True, bx, by, nu, a2))
+
+
+@njit(**JIT)
+def _phi(h, a2, k0):
+    """Φ(h) = k0/R_h + a²/(8π R_h³): the d = 0 antiderivative per unit c w (see module notes)."""
+    r = np.sqrt(h * h + a2)
+    return k0 / r + a2 * INV_8PI / (r * r * r)
+
+
+@njit(**JIT)
+def _arc_correction(xm, ym, x0, y0, xp, yp, bx, by, nu, a2):
+    """Arc-minus-chords stress at node (x0, y0) with neighbours (xm, ym), (xp, yp).
+
+    The two chords' contribution at their common node is replaced by that of the circular arc
+    through the three nodes, to first order in its curvature (module notes, "Local part").
+    """
+    amx = x0 - xm
+    amy = y0 - ym
+    apx = xp - x0
+    apy = yp - y0
+    hm = np.sqrt(amx * amx + amy * amy)
+    hp = np.sqrt(apx * apx + apy * apy)
+    k0 = -nu * INV_4PI / (1.0 - nu)
+    a = np.sqrt(a2)
+    cm = (amx * bx + amy * by) / hm
+    wm = (amx * by - amy * bx) / hm
+    cp = (apx * bx + apy * by) / hp
+    wp = (apx * by - apy * bx) / hp
+    phi_a = _phi(0.0, a2, k0)
+    phi_m = _phi(hm, a2, k0)
+    phi_p = _phi(hp, a2, k0)
+    chords = cp * wp * (phi_a - phi_p) + cm * wm * (phi_m - phi_a)
+    # circumcircle: signed curvature and the tangent at the middle node (first order in κ h)
+    sx = amx + apx
+    sy = amy + apy
+    kappa = 2.0 * (amx * apy - amy * apx) / (hm * hp * np.sqrt(sx * sx + sy * sy))
+    t0x = (hp / hm) * amx + (hm / hp) * apx
+    t0y = (hp / hm) * amy + (hm / hp) * apy
+    t0 = np.sqrt(t0x * t0x + t0y * t0y)
+    c0 = (t0x * bx + t0y * by) / t0
+    w0 = (t0x * by - t0y * bx) / t0
+    rm = np.sqrt(hm * hm + a2)
+    rp = np.sqrt(hp * hp + a2)
+    jj = np.arcsinh(hm / a) - hm / rm + np.arcsinh(hp / a) - hp / rp
+    lam = (hm / rm) ** 3 + (hp / rp) ** 3
+    arc = (c0 * w0 * (phi_m - phi_p)
+           - kappa * ((0.5 * c0 * c0 - w0 * w0) * (2.0 * jj + lam) * INV_8PI
+                      + (0.5 * w0 * w0 - c0 * c0) * jj * INV_4PI / (1.0 - nu)))
+    return arc - chords
+
+
+@njit(**JIT)
+def mean_height(x, y, n, Lx):
+    """Signed-area mean height ȳ = (1/Lx) ∫ y dx of the periodic line (b)."""
+    area = 0.0
+    for j in range(n):
+        if j == n - 1:
+            xn = x[0] + Lx
+            yn = y[0]
+        else:
+            xn = x[j + 1]
+            yn = y[j + 1]
+        area += 0.5 * (y[j] + yn) * (xn - x[j])
+    return area / Lx
+
+
+# ------------------------------------------------------------------------------------------------
+# self-stress of the periodic line
+# ------------------------------------------------------------------------------------------------
+@njit(**JIT)
+def _window(i, n, xe, Lx, n_images, cutoff, tx, sl):
+    """Global segment range [g_lo, g_hi) summed exactly for target node i (module notes)."""
+    half = n_images * n + n // 2
+    g_lo = i - half
+    g_hi = g_lo + (2 * n_images + 1) * n
+    if cutoff <= 0.0:
+        return g_lo, g_hi
+    xi = xe[i]
+    g = i
+    while g < g_hi:
+        k = g // n
+        j = g - k * n
+        if abs(xe[j] + 0.5 * tx[j] * sl[j] + k * Lx - xi) > cutoff:
+            break
+        g += 1
+    hi = g
+    g = i - 1
+    while g >= g_lo:
+        k = g // n
+        j = g - k * n
+        if abs(xe[j] + 0.5 * tx[j] * sl[j] + k * Lx - xi) > cutoff:
+            break
+        g -= 1
+    return g + 1, hi
+
+
+@njit(**JIT)
+def _self_stress_target(i, x, y, n, Lx, bx, by, nu, a2, n_images, cutoff, ybar,
+                        xe, ye, tx, ty, sl, ca, cb, cc):
+    """τ_self at node i of the periodic line: window sum, straight remainder, arc correction."""
+    k0 = -nu * INV_4PI / (1.0 - nu)
+    uu = np.empty(n + 1)
+    tmp = np.empty(n)
+    px = xe[i]
+    py = ye[i]
+    g_lo, g_hi = _window(i, n, xe, Lx, n_images, cutoff, tx, sl)
+    total = 0.0
+    k_first = g_lo // n
+    k_last = (g_hi - 1) // n
+    for k in range(k_first, k_last + 1):
+        j0 = max(g_lo - k * n, 0)
+        j1 = min(g_hi - k * n, n)
+        total += _chain_sum(px - k * Lx, py, xe, ye, j0, j1, tx, ty, sl, ca, cb, cc, a2, k0,
+                            uu, tmp)
+    k = g_lo // n
+    x_lo = xe[g_lo - k * n] + k * Lx
+    y_lo = ye[g_lo - k * n]
+    k = g_hi // n
+    x_hi = xe[g_hi - k * n] + k * Lx
+    y_hi = ye[g_hi - k * n]
+    total += _remainder(px, py, x_lo, y_lo, x_hi, y_hi, ybar, bx, by, nu, a2)
+    if i == 0:
+        xm = x[n - 1] - Lx
+        ym = y[n - 1]
+    else:
+        xm = xe[i - 1]
+        ym = ye[i - 1]
+    total += _arc_correction(xm, ym, px, py, xe[i + 1], ye[i + 1], bx, by, nu, a2)
+    return total
+
+
+@njit(**JIT)
+def _prepare_line(x, y, n, shift, theta0, nu):
+    """Extended nodes and per-segment constants of a chain (shift = Lx periodic, 0 closed)."""
+    bx = np.cos(theta0)
+    by = np.sin(theta0)
+    xe = np.empty(n + 1)
+    ye = np.empty(n + 1)
+    _extend(x, y, n, shift, xe, ye)
+    tx = np.empty(n)
+    ty = np.empty(n)
+    sl = np.empty(n)
+    ca = np.empty(n)
+    cb = np.empty(n)
+    cc = np.empty(n)
+    _segment_constants(xe, ye, 0, n, bx, by, nu, tx, ty, sl, ca, cb, cc)
+    return bx, by, xe, ye, tx, ty, sl, ca, cb, cc
+
+
+def _self_stress_impl(x, y, n, Lx, theta0, nu, a_core, n_images, cutoff, out):
+    bx, by, xe, ye, tx, ty, sl, ca, cb, cc = _prepare_line(x, y, n, Lx, theta0, nu)
+    ybar = mean_height(x, y, n, Lx)
+    a2 = a_core * a_core
+    for i in prange(n):
+        # prange indices may be unsigned; window arithmetic needs signed integers
+        out[i] = _self_stress_target(np.int64(i), x, y, n, Lx, bx, by, nu, a2, n_images, cutoff, ybar,
+                                     xe, ye, tx, ty, sl, ca, cb, cc)
+
+
+_SELF_STRESS_DOC = """Non-singular elastic self-stress of the periodic line at its nodes.
+
+    Parameters
+    ----------
+    x, y : (>= n,) float64
+        Node positions (b); node n is node 0 shifted by (Lx, 0).
+    n : int
+        Number of nodes (>= 3).
+    Lx : float
+        Period of the line along x (b).
+    theta0 : float
+        Angle of the Burgers vector from +x (rad): 0 screw, π/2 edge.
+    nu : float
+        Poisson ratio.
+    a_core : float
+        Core radius a of the non-singular theory (b), > 0.
+    n_images : int
+        Periods on each side of the target summed segment by segment (>= 0); the rest of the
+        line enters as its straight average (module notes).
+    cutoff : float
+        0 for none; otherwise segments whose midpoints lie farther than this along x (b) are
+        replaced by the straight average line.
+    out : (>= n,) float64
+        Receives τ_self,i (G), resolved shear σ_zj b_j with the sign of the applied stress.
+
+    Notes
+    -----
+    Segment field: Cai, Arsenlis, Weinberger & Bulatov, J. Mech. Phys. Solids 54 (2006) 561,
+    reduced to the glide plane (module docstring); the two arms of each node are replaced by the
+    arc through it and its neighbours.  Each target writes only ``out[i]``: the result does not
+    depend on the thread count.
+    """
+
+self_stress = njit(**JIT_PARALLEL)(_self_stress_impl)
+self_stress.__doc__ = _SELF_STRESS_DOC
+
+
+def _self_stress_serial_impl(x, y, n, Lx, theta0, nu, a_core, n_images, cutoff, out):
+    bx, by, xe, ye, tx, ty, sl, ca, cb, cc = _prepare_line(x, y, n, Lx, theta0, nu)
+    ybar = mean_height(x, y, n, Lx)
+    a2 = a_core * a_core
+    for i in range(n):
+        out[i] = _self_stress_target(np.int64(i), x, y, n, Lx, bx, by, nu, a2, n_images, cutoff, ybar,
+                                     xe, ye, tx, ty, sl, ca, cb, cc)
+
+
+self_stress_serial = njit(**JIT)(_self_stress_serial_impl)
+self_stress_serial.__doc__ = "Serial twin of :func:`self_stress` (same code, one thread).\n\n" \
+    + _SELF_STRESS_DOC
+
+
+# ------------------------------------------------------------------------------------------------
+# closed loops
+# ------------------------------------------------------------------------------------------------
+@njit(**JIT)
+def _closed_neighbours(x, y, n, i):
+    """Previous and next node of node i on a closed polygon of n nodes."""
+    im = n - 1 if i == 0 else i - 1
+    ip = 0 if i == n - 1 else i + 1
+    return x[im], y[im], x[ip], y[ip]
+
+
+def _loop_self_stress_impl(x, y, n, theta0, nu, a_core, out):
+    bx, by, xe, ye, tx, ty, sl, ca, cb, cc = _prepare_line(x, y, n, 0.0, theta0, nu)
+    a2 = a_core * a_core
+    k0 = -nu * INV_4PI / (1.0 - nu)
+    for i in prange(n):
+        uu = np.empty(n + 1)
+        tmp = np.empty(n)
+        xm, ym, xp, yp = _closed_neighbours(x, y, n, i)
+        out[i] = (_chain_sum(x[i], y[i], xe, ye, 0, n, tx, ty, sl, ca, cb, cc, a2, k0, uu, tmp)
+                  + _arc_correction(xm, ym, x[i], y[i], xp, yp, bx, by, nu, a2))
+
+
+loop_self_stress = njit(**JIT_PARALLEL)(_loop_self_stress_impl)
+loop_self_stress.__doc__ = """Non-singular self-stress at the nodes of one closed planar loop.
+
+    Parameters
+    ----------
+    x, y : (>= n,) float64
+        Loop nodes (b), in the order of the line sense; the last node joins the first.
+    n : int
+        Number of nodes (>= 3).
+    theta0, nu, a_core
+        Burgers-vector angle (rad), Poisson ratio, core radius (b), as in :func:`self_stress`.
+    out : (>= n,) float64
+        Receives the resolved shear σ_zj b_j (G) at each node, same sign convention as the line.
+
+    Notes
+    -----
+    Same segment formula and local arc treatment as :func:`self_stress`, no images: the loop in
+    an infinite medium.  A loop traversed clockwise (seen from +z) expands under τ > 0, so its
+    self-stress, which shrinks it, is negative.
+    """
+
+
+@njit(**JIT)
+def _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu):
+    """Closed, extended copies of every loop (n_l + 1 nodes each) and their segment constants."""
+    bx = np.cos(theta0)
+    by = np.sin(theta0)
+    m = loop_offsets[n_loops] - loop_offsets[0] + n_loops
+    xe = np.empty(m)
+    ye = np.empty(m)
+    tx = np.empty(m)
+    ty = np.empty(m)
+    sl = np.empty(m)
+    ca = np.empty(m)
+    cb = np.empty(m)
+    cc = np.empty(m)
+    starts = np.empty(n_loops + 1, dtype=np.int64)
+    e = 0
+    for k in range(n_loops):
+        starts[k] = e
+        lo = loop_offsets[k]
+        nl = loop_offsets[k + 1] - lo
+        for j in range(nl):
+            xe[e + j] = loop_x[lo + j]
+            ye[e + j] = loop_y[lo + j]
+        xe[e + nl] = loop_x[lo]
+        ye[e + nl] = loop_y[lo]
+        _segment_constants(xe, ye, e, e + nl, bx, by, nu, tx, ty, sl, ca, cb, cc)
+        e += nl + 1
+    starts[n_loops] = e
+    return xe, ye, tx, ty, sl, ca, cb, cc, starts
+
+
+def _loop_stress_impl(x, y, n, loop_x, loop_y, loop_offsets, n_loops, Lx, theta0, nu, a_core,
+                      n_images, out):
+    xe, ye, tx, ty, sl, ca, cb, cc, starts = _prepare_loops(loop_x, loop_y, loop_offsets,
+                                                            n_loops, theta0, nu)
+    a2 = a_core * a_core
+    k0 = -nu * INV_4PI / (1.0 - nu)
+    m = xe.shape[0]
+    for i in prange(n):
+        uu = np.empty(m)
+        tmp = np.empty(m)
+        total = 0.0
+        for k in range(-n_images, n_images + 1):
+            for lp in range(n_loops):
+                total += _chain_sum(x[i] - k * Lx, y[i], xe, ye, starts[lp], starts[lp + 1] - 1,
+                                    tx, ty, sl, ca, cb, cc, a2, k0, uu, tmp)
+        out[i] = total
+
+
+loop_stress = njit(**JIT_PARALLEL)(_loop_stress_impl)
+loop_stress.__doc__ = """Resolved shear at the line nodes from closed loops in the glide plane.
+
+    Parameters
+    ----------
+    x, y : (>= n,) float64
+        Line nodes (b), the targets.
+    n : int
+        Number of line nodes.
+    loop_x, loop_y : (>= loop_offsets[n_loops],) float64
+        Loop nodes (b), CSR: loop k is ``loop_offsets[k] .. loop_offsets[k+1]-1``, closed (its
+        last node joins its first), in the unwrapped frame of the line.
+    loop_offsets : (>= n_loops + 1,) int64
+        Offsets of the loops.
+    n_loops : int
+        Number of loops.
+    Lx : float
+        Period along x (b); loops are repeated at k·Lx for |k| <= n_images.
+    theta0, nu, a_core
+        As in :func:`self_stress`.  Every loop has the Burgers vector of the line.
+    n_images : int
+        Periodic images of the loops on each side (the field of a closed loop decays as 1/r³, so
+        the image sum converges absolutely and needs no remainder).
+    out : (>= n,) float64
+        Receives the loops' resolved shear σ_zj b_j (G) at each line node (overwritten).
+
+    Notes
+    -----
+    Sense convention: the node order of a loop is its line sense, the sense of the part of the
+    line that formed it.  A line running along +x and gliding toward +y (τ > 0) that bypasses a
+    particle leaves a loop whose front segment (below the particle) runs along +x, its right side
+    along +y, its back along -x and its left side along -y: counter-clockwise seen from +z.  Such
+    a loop is pressed against its particle by τ > 0, and its front segment repels the next line
+    arriving from below (a negative resolved shear at that line: the Orowan back stress).  Same
+    segment formula as :func:`self_stress` (Cai et al. 2006, in-plane form).
+    """
+
+
+# ------------------------------------------------------------------------------------------------
+# orientation-dependent line tension (de Wit & Koehler 1959)
+# ------------------------------------------------------------------------------------------------
+@njit(**JIT)
+def dwk_prefactor(r_core, r_out):
+    """K = ln(R_out/r_core)/(4π) (G b²), the energy scale of a straight screw segment per length."""
+    return np.log(r_out / r_core) * INV_4PI
+
+
+@njit(**JIT)
+def _segment(x, y, n, Lx, j):
+    """Vector of segment j of the periodic line (node j to node j+1)."""
+    if j == n - 1:
+        return x[0] + Lx - x[j], y[0] - y[j]
+    return x[j + 1] - x[j], y[j + 1] - y[j]
+
+
+@njit(**JIT)
+def dwk_energy(x, y, n, Lx, theta0, nu, r_core, r_out):
+    """Line energy Σ E(θ_j)|s_j| of one period, E(θ) = K (1 - ν cos²θ)/(1 - ν) (G b²).
+
+    de Wit & Koehler, Phys. Rev. 116 (1959) 1113; θ_j is the angle between segment j and b,
+    ``cos θ_j = (s_j·b)/|s_j|``, so ``E_j |s_j| = K/(1-ν) (|s_j| - ν (s_j·b)²/|s_j|)``.
+    """
+    bx = np.cos(theta0)
+    by = np.sin(theta0)
+    pref = dwk_prefactor(r_core, r_out) / (1.0 - nu)
+    total = 0.0
+    for j in range(n):
+        sx, sy = _segment(x, y, n, Lx, j)
+        h = np.sqrt(sx * sx + sy * sy)
+        sb = sx * bx + sy * by
+        total += pref * (h - nu * sb * sb / h)
+    return total
+
+
+@njit(**JIT)
+def dwk_forces(x, y, n, Lx, theta0, nu, r_core, r_out, pinned, fx, fy):
+    """Energy-consistent nodal forces of the de Wit–Koehler line energy.
+
+    ``F_i = -∂/∂r_i Σ_j E(θ_j)|s_j| = g_i - g_{i-1}`` with
+    ``g_j = ∂(E_j|s_j|)/∂s_j = K/(1-ν) [(1 + ν c_j²) t_j - 2ν c_j b]``, ``c_j = t_j·b`` (exact for
+    straight segments; only square roots and divisions in the loop).
+
+    Parameters
+    ----------
+    x, y : (>= n,) float64
+        Node positions (b); node n is node 0 shifted by (Lx, 0).
+    n : int
+        Number of nodes.
+    Lx : float
+        Period (b).
+    theta0, nu : float
+        Burgers-vector angle from +x (rad) and Poisson ratio.
+    r_core, r_out : float
+        Inner and outer cut-off radii of K = ln(r_out/r_core)/(4π) (b).
+    pinned : (>= n,) int64
+        Obstacle holding each node or -1.  Pinned nodes get the same force as free ones: it is the
+        force the line exerts on the obstacle, which the release test needs; the array is taken
+        for symmetry with the other force kernels.
+    fx, fy : (>= n,) float64
+        Output nodal forces (G b²).
+    """
+    bx = np.cos(theta0)
+    by = np.sin(theta0)
+    pref = dwk_prefactor(r_core, r_out) / (1.0 - nu)
+    sx, sy = _segment(x, y, n, Lx, n - 1)
+    gxm, gym = _dwk_gradient(sx, sy, bx, by, nu, pref)
+    for i in range(n):
+        sx, sy = _segment(x, y, n, Lx, i)
+        gx, gy = _dwk_gradient(sx, sy, bx, by, nu, pref)
+        fx[i] = gx - gxm
+        fy[i] = gy - gym
+        gxm = gx
+        gym = gy
+
+
+@njit(**JIT)
+def _dwk_gradient(sx, sy, bx, by, nu, pref):
+    """∂(E|s|)/∂s of one segment s (see :func:`dwk_forces`)."""
+    h = np.sqrt(sx * sx + sy * sy)
+    tx = sx / h
+    ty = sy / h
+    c = tx * bx + ty * by
+    return (pref * ((1.0 + nu * c * c) * tx - 2.0 * nu * c * bx),
+            pref * ((1.0 + nu * c * c) * ty - 2.0 * nu * c * by))
+
+
+@njit(**JIT)
+def dwk_stiffness(theta, nu, K):
+    """Line stiffness Γ(θ) = E + E'' = K (1 - 2ν + 3ν cos²θ)/(1 - ν) (G b²).
+
+    de Wit & Koehler 1959: K(1+ν)/(1-ν) for screw (θ = 0), K(1-2ν)/(1-ν) for edge (θ = π/2).
+    """
+    c = np.cos(theta)
+    return K * (1.0 - 2.0 * nu + 3.0 * nu * c * c) / (1.0 - nu)
