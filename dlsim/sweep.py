@@ -569,8 +569,9 @@ def _outcome(fut):
 
 def _kill_pool(pool: cf.ProcessPoolExecutor) -> None:
     """Stop runs in flight at once (Python 3.11 has no public call for this)."""
+    procs = list((getattr(pool, "_processes", None) or {}).values())
     pool.shutdown(wait=False, cancel_futures=True)
-    for proc in list(getattr(pool, "_processes", {}).values()):
+    for proc in procs:
         with contextlib.suppress(Exception):
             proc.terminate()
 
