@@ -1,0 +1,245 @@
+"""The driver: relaxation of the line at one stress, and the CRSS protocol of physics.md.
+
+The time stepping itself runs in :func:`dlsim.kernels.relax_line`; this module owns the loop over
+stresses.  Protocol (physics.md, "Critical resolved shear stress"): raise τ in steps from the friction
+stress, relax to equilibrium at each, call the line flowing once its mean position has moved more than
+a set glide distance past its last pinned configuration, then bisect the bracket, every trial
+restarting from the last pinned configuration.  All values are reduced (b, G, G b²).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Callable
+
+import numpy as np
+
+from . import kernels as K
+from .fields import ObstacleField
+from .line import LineState
+
+#: Remeshing keeps segments within [LMIN_FRACTION, LMAX_FRACTION] × the target node spacing; a
+#: ratio of 3 between the bounds lets a removal never force an insertion at the next step.
+LMIN_FRACTION = 0.5
+LMAX_FRACTION = 1.5
+#: Parts of the line of opposite sense closer than this fraction of the node spacing reconnect.
+ANNIHILATION_FRACTION = 0.5
+#: Time steps per compiled call when nothing asks for snapshots (keeps Python out of the loop).
+DEFAULT_CHUNK = 50_000
+
+
+@dataclass(frozen=True)
+class LineModel:
+    """Physics of the line (reduced units).
+
+    Attributes
+    ----------
+    tension : float
+        Line tension Γ (G b²).
+    node_spacing : float
+        Target segment length (b).
+    friction : float
+        Lattice friction threshold τ_f (G).
+    mobility : float
+        Mobility M (sets only the time unit of a quasi-static calculation).
+    """
+
+    tension: float
+    node_spacing: float
+    friction: float = 0.0
+    mobility: float = 1.0
+
+
+@dataclass(frozen=True)
+class Protocol:
+    """Loading protocol of the CRSS search (reduced units).
+
+    Attributes
+    ----------
+    stress_step : float
+        Stress increment of the ramp (G).
+    tolerance : float
+        Equilibrium when the largest effective stress on a free node is below this (G).
+    flow_distance : float
+        Mean glide past the last pinned configuration that counts as flow (b).
+    bisections : int
+        Bisection steps once the CRSS is bracketed.
+    max_steps : int
+        Time steps allowed in one relaxation; a relaxation that uses them all is "unresolved" and
+        counts as not pinned.
+    max_stress : float
+        The ramp gives up above this stress (G) and reports no CRSS.
+    """
+
+    stress_step: float
+    tolerance: float
+    flow_distance: float
+    bisections: int
+    max_steps: int
+    max_stress: float
+
+
+@dataclass(frozen=True)
+class Relaxation:
+    """One row of the history: a relaxation at one stress (reduced units)."""
+
+    phase: str            # "ramp" or "bisect"
+    stress: float         # G
+    state: str            # "pinned", "flowing" or "unresolved"
+    mean_glide: float     # mean line position relative to the start (b)
+    swept_area: float     # area swept during this relaxation (b²)
+    pinned: int           # pinned nodes at the end
+    steps: int
+    nodes: int
+
+
+@dataclass
+class CrssResult:
+    """Outcome of :func:`find_crss` (reduced units).
+
+    ``lo`` is the highest stress at which a pinned equilibrium was found, ``hi`` the lowest at which
+    the line flowed; the CRSS lies in [lo, hi] and ``crss`` is the midpoint.  ``line`` is the pinned
+    configuration at ``lo``.
+    """
+
+    crss: float
+    lo: float
+    hi: float
+    converged: bool
+    message: str
+    history: list[Relaxation]
+    line: LineState
+    counters: dict = field(default_factory=dict)
+
+
+class Relaxer:
+    """Relaxes a line at fixed stress in one obstacle field (holds the field's kernel arrays)."""
+
+    def __init__(self, obstacles: ObstacleField, model: LineModel):
+        self.field = obstacles
+        self.model = model
+        self.ox = np.ascontiguousarray(obstacles.x, dtype=np.float64)
+        self.oy = np.ascontiguousarray(obstacles.y, dtype=np.float64)
+        self.ofc = np.ascontiguousarray(obstacles.fc, dtype=np.float64)
+        self.cstart, self.citems, self.ncx, self.ncy = obstacles.cell_list()
+
+    def parameters(self, tau: float, area_ref: float, protocol: Protocol) -> np.ndarray:
+        m, h = self.model, self.model.node_spacing
+        prm = np.zeros(K.N_PRM)
+        prm[K.P_GAMMA], prm[K.P_TAU], prm[K.P_TAUF], prm[K.P_MOB] = (
+            m.tension, tau, m.friction, m.mobility)
+        prm[K.P_LMIN], prm[K.P_LMAX] = LMIN_FRACTION * h, LMAX_FRACTION * h
+        prm[K.P_TOL], prm[K.P_FLOW] = protocol.tolerance, protocol.flow_distance
+        prm[K.P_LX], prm[K.P_LY] = self.field.Lx, self.field.Ly
+        prm[K.P_AREF], prm[K.P_DANN] = area_ref, ANNIHILATION_FRACTION * h
+        return prm
+
+    def occupancy(self, state: LineState) -> np.ndarray:
+        """How many line and loop nodes hold each obstacle (derived from the state)."""
+        m = self.field.n
+        pins = state.pin[: state.n]
+        lpins = state.loop_pin[: state.meta[K.M_NLOOPNODES]]
+        held = np.concatenate([pins[pins >= 0], lpins[lpins >= 0]])
+        return np.bincount(held, minlength=m).astype(np.int64)
+
+    def relax(self, state: LineState, tau: float, area_ref: float, protocol: Protocol,
+              chunk: int = DEFAULT_CHUNK,
+              on_chunk: Callable[[LineState, float, int], None] | None = None) -> tuple[str, int]:
+        """Relax ``state`` in place at stress ``tau``; return (state name, time steps taken)."""
+        prm = self.parameters(tau, area_ref, protocol)
+        opin = self.occupancy(state)
+        taken = 0
+        while True:
+            cap = state.capacity
+            work_f = np.zeros((9, cap))
+            tau_int = np.zeros(cap)
+            work_i = np.zeros((3, cap), dtype=np.int64)
+            bufs = (np.empty(cap), np.empty(cap), np.empty(cap, np.int64), np.empty(cap, np.int64))
+            while True:
+                before = int(state.meta[K.M_STEPS])
+                status = K.relax_line(state.x, state.y, state.pin, state.ign, *bufs, state.meta,
+                                      prm, min(chunk, protocol.max_steps - taken),
+                                      self.ox, self.oy, self.ofc, opin, self.cstart, self.citems,
+                                      self.ncx, self.ncy, state.loop_x, state.loop_y,
+                                      state.loop_pin, state.loop_off, tau_int, work_f, work_i)
+                taken += int(state.meta[K.M_STEPS]) - before
+                if on_chunk is not None:
+                    on_chunk(state, tau, taken)
+                if status == K.CAPACITY:
+                    state.grow()
+                    break
+                if status == K.MAX_STEPS and taken < protocol.max_steps:
+                    continue
+                return K.STATUS_NAMES[status], taken
+
+
+def find_crss(obstacles: ObstacleField, model: LineModel, protocol: Protocol,
+              y0: float = 0.0, snapshot_every: int = 0,
+              on_snapshot: Callable[[LineState, float, int], None] | None = None,
+              on_relaxation: Callable[[Relaxation], None] | None = None) -> CrssResult:
+    """Bracket and bisect the CRSS of a line that starts straight along y = ``y0``.
+
+    Parameters
+    ----------
+    obstacles : ObstacleField
+    model : LineModel
+    protocol : Protocol
+    y0 : float
+        Start height of the straight line (b).
+    snapshot_every : int
+        Call ``on_snapshot(state, tau, steps)`` every so many time steps (0: at the end of each
+        relaxation only).
+    on_relaxation : callable
+        Receives each history row as it is made (progress reporting).
+    """
+    relaxer = Relaxer(obstacles, model)
+    chunk = snapshot_every if snapshot_every > 0 else DEFAULT_CHUNK
+    state = LineState.straight(obstacles.Lx, y0, model.node_spacing)
+    start_area = state.area()
+    history: list[Relaxation] = []
+
+    def trial(line: LineState, tau: float, phase: str) -> str:
+        ref = line.area()
+        name, steps = relaxer.relax(line, tau, ref, protocol, chunk,
+                                    on_snapshot if snapshot_every > 0 else None)
+        if on_snapshot is not None and snapshot_every <= 0:
+            on_snapshot(line, tau, steps)
+        row = Relaxation(phase, tau, name, (line.area() - start_area) / obstacles.Lx,
+                         line.area() - ref, int(np.count_nonzero(line.pin[: line.n] >= 0)),
+                         steps, line.n)
+        history.append(row)
+        if on_relaxation is not None:
+            on_relaxation(row)
+        return name
+
+    pinned, lo, hi = state.copy(), model.friction, None
+    tau = model.friction
+    while hi is None:
+        tau += protocol.stress_step
+        if tau > protocol.max_stress:
+            return CrssResult(np.nan, lo, np.nan, False,
+                              f"no flow up to {protocol.max_stress:.4g} G", history, pinned,
+                              _counters(state))
+        if trial(state, tau, "ramp") == "pinned":
+            pinned, lo = state.copy(), tau
+        else:
+            hi = tau
+    unresolved = history[-1].state == "unresolved"
+    for _ in range(protocol.bisections):
+        mid = 0.5 * (lo + hi)
+        line = pinned.copy()
+        name = trial(line, mid, "bisect")
+        unresolved |= name == "unresolved"
+        if name == "pinned":
+            pinned, lo = line, mid
+        else:
+            hi = mid
+    message = "bracketed" if not unresolved else (
+        "bracketed; some relaxations used every allowed step and were counted as not pinned")
+    return CrssResult(0.5 * (lo + hi), lo, hi, not unresolved, message, history, pinned,
+                      _counters(pinned))
+
+
+def _counters(state: LineState) -> dict:
+    m = state.meta
+    return {"captures": int(m[K.M_CAPTURES]), "releases": int(m[K.M_RELEASES]),
+            "reconnections": int(m[K.M_RECONNECT]), "loops": int(m[K.M_NLOOPS])}
