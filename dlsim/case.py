@@ -184,14 +184,16 @@ SCHEMA: dict[str, Section] = {
         "tolerance": Key(float, "the equilibrium threshold: max |τ_eff| < tolerance·2Γ/(bL)", 1e-4,
                          _POSITIVE),
         "flow_distance": Key(float, "the mean glide past the last pinned state that counts as "
-                                    "flow, in spacings", 2.0, _POSITIVE),
-        "bisections": Key(int, "the bisection steps after the bracket is found", 10, at_least(0)),
+                                    "flow, in spacings (default: the box height, so a flowing line "
+                                    "has crossed the whole field)", None, _POSITIVE),
+        "bisections": Key(int, "the bisection steps after the bracket is found (6 halve a 0.02 step to 3e-4 of 2Γ/(bL))", 6,
+                          at_least(0)),
         "max_steps": Key(int, "the time steps allowed in one relaxation", 2_000_000, at_least(1)),
     }),
     "output": Section("result files", {
         "folder": Key(str, "the output folder relative to the case file (default: runs/<stem>)",
                       None, NON_EMPTY),
-        "snapshot_every": Key(int, "the relaxations between line snapshots (0: none)", 0,
+        "snapshot_every": Key(int, "the time steps between line snapshots for movies (0: none)", 0,
                               at_least(0)),
     }),
 }
@@ -563,9 +565,13 @@ def load_case(source: str | os.PathLike | dict | Case, base_dir: str | os.PathLi
 
     material = _resolve_material(name, table("material"))
     obstacles = _resolve_obstacles(name, table("obstacles"))
+    line = _resolve_line(name, table("line"), obstacles)
+    loading = table("loading")
+    if loading["flow_distance"] is None:
+        loading["flow_distance"] = line.height_spacings
     return Case(source=name, title=top["title"], seed=top["seed"], material=material,
-                line=_resolve_line(name, table("line"), obstacles), obstacles=obstacles,
-                friction=FrictionSpec(**table("friction")), loading=LoadingSpec(**table("loading")),
+                line=line, obstacles=obstacles,
+                friction=FrictionSpec(**table("friction")), loading=LoadingSpec(**loading),
                 output=_resolve_output(table("output"), base, stem), raw=raw)
 
 

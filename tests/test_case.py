@@ -202,7 +202,8 @@ def test_load_case_defaults_filled_in(tmp_path):
     assert case.obstacles.critical_force_nN is None
     assert case.friction.stress_MPa == 0.0
     assert (case.loading.stress_step, case.loading.tolerance, case.loading.flow_distance,
-            case.loading.bisections, case.loading.max_steps) == (0.02, 1e-4, 2.0, 10, 2_000_000)
+            case.loading.bisections, case.loading.max_steps) == (0.02, 1e-4, 20.0, 6, 2_000_000)
+    # the flow distance defaults to the box height (20 spacings here)
     assert case.output.folder == str(tmp_path / "runs" / "minimal")
     assert case.output.snapshot_every == 0
     assert case.units == TABLE["Al"].units
