@@ -1,0 +1,153 @@
+"""Physics of the line model and the CRSS protocol against closed-form results.
+
+Sources: the Orowan stress 2Γ/(bL) and its point-obstacle form (2Γ/(bL)) cos(φ_c/2) for a square array
+with the line along a row (Hull & Bacon, *Introduction to Dislocations*, 5th ed., 2011, ch. 10; Kocks,
+Argon & Ashby 1975); the bow-out radius R = Γ/(τb) (line-tension relation, common practice); the
+random impenetrable array ≈ 0.81 of 2Γ/(b L_s) (Foreman & Makin, Phil. Mag. 14, 1966, from memory).
+
+Tolerances: the regular-array values are exact for the continuum line; with 20 segments per spacing
+the discrete line reproduces them to about 0.2 % (measured), so 1 % is a real check.
+"""
+import copy
+
+import numpy as np
+import pytest
+
+from dlsim import analytic
+from dlsim.api import run_case
+from dlsim.fields import ObstacleField, square_field
+from dlsim.line import LineState
+from dlsim.solver import LineModel, Protocol, Relaxer, find_crss
+
+GAMMA = 0.5          # Γ = G b²/2 (reduced)
+L = 200.0            # square-array spacing (b)
+
+SQUARE_CASE = {
+    "seed": 1,
+    "material": {"symbol": "Al"},
+    "line": {"length": 2, "height": 1, "node_spacing": 0.05},
+    "obstacles": {"kind": "square", "spacing_nm": 40.0, "critical_angle_deg": 0.0},
+    "loading": {"stress_step": 0.02, "tolerance": 1e-4, "bisections": 8},
+}
+
+
+def square_case(**changes):
+    case = copy.deepcopy(SQUARE_CASE)
+    for dotted, value in changes.items():
+        section, key = dotted.split("__")
+        case.setdefault(section, {})[key] = value
+    return case
+
+
+def protocol(tau_ref, flow=L, step=0.02, tol=1e-4, bisections=8):
+    return Protocol(step * tau_ref, tol * tau_ref, flow, bisections, 2_000_000, 5 * tau_ref)
+
+
+@pytest.mark.parametrize("phi_deg", [0.0, 60.0, 120.0, 150.0])
+def test_crss_square_array_matches_point_obstacle_formula(phi_deg):
+    # Hull & Bacon: τ_c = (2Γ/(bL)) cos(φ_c/2); φ_c = 0 is the Orowan stress 2Γ/(bL).
+    result = run_case(square_case(obstacles__critical_angle_deg=phi_deg), out_dir=False)
+    expected = result.summary["orowan_MPa"] * np.cos(np.radians(phi_deg) / 2)
+    assert result.summary["converged"]
+    assert result.crss_MPa == pytest.approx(expected, rel=0.01)
+    lo, hi = result.bracket_MPa
+    assert lo <= result.crss_MPa <= hi
+
+
+def test_bow_out_radius_between_two_pins_is_gamma_over_tau():
+    # Line-tension relation (common practice): a segment pinned at both ends bows to R = Γ/(τ b).
+    field = square_field(L, 1, 1, np.inf)
+    tau = 0.5 * analytic.orowan(GAMMA, L)
+    relaxer = Relaxer(field, LineModel(GAMMA, L / 40))
+    state = LineState.straight(L, 0.0, L / 40)
+    name, _ = relaxer.relax(state, tau, state.area(), protocol(2 * GAMMA / L, tol=1e-6))
+    assert name == "pinned"
+    x, y, pin = state.nodes()
+    free = pin < 0
+    x = np.where(x < x[pin >= 0][0], x + L, x)  # one arc, from the pin to its periodic image
+    # algebraic circle fit x² + y² + D x + E y + F = 0 through the free nodes
+    A = np.column_stack([x[free], y[free], np.ones(free.sum())])
+    D, E, F = np.linalg.lstsq(A, -(x[free] ** 2 + y[free] ** 2), rcond=None)[0]
+    radius = np.sqrt(D * D / 4 + E * E / 4 - F)
+    assert radius == pytest.approx(GAMMA / tau, rel=0.01)
+
+
+def _empty_field(side):
+    z = np.zeros(0)
+    return ObstacleField(z, z, z, z, np.zeros(0, np.int64), side, side, side, "random")
+
+
+@pytest.mark.parametrize("ratio, expected", [(0.9, "pinned"), (1.1, "flowing")])
+def test_friction_holds_straight_line_below_threshold(ratio, expected):
+    # physics.md: a straight free line does not move for τ <= τ_f.
+    tau_f = 1e-3
+    model = LineModel(GAMMA, 10.0, friction=tau_f)
+    relaxer = Relaxer(_empty_field(400.0), model)
+    state = LineState.straight(400.0, 0.0, 10.0)
+    name, _ = relaxer.relax(state, ratio * tau_f, state.area(),
+                            protocol(tau_f, flow=50.0, tol=1e-6))
+    assert name == expected
+    if expected == "pinned":
+        assert np.all(state.nodes()[1] == 0.0)
+
+
+def test_friction_adds_to_square_array_crss():
+    # physics.md: on a regular array τ_c = τ_f + (2Γ/(bL)) cos(φ_c/2).
+    base = run_case(square_case(), out_dir=False).summary
+    tau_f = 0.3 * base["orowan_MPa"]
+    result = run_case(square_case(friction__stress_MPa=tau_f), out_dir=False)
+    assert result.crss_MPa == pytest.approx(tau_f + base["orowan_MPa"], rel=0.01)
+
+
+@pytest.mark.parametrize("phi_deg", [0.0, 120.0])
+@pytest.mark.parametrize("knob", ["line__node_spacing", "loading__stress_step"])
+def test_crss_converged_in_node_spacing_and_stress_step(phi_deg, knob):
+    # Numerical convergence (common practice): halving a resolution knob moves the CRSS < 0.5 %.
+    coarse = square_case(obstacles__critical_angle_deg=phi_deg)
+    fine = square_case(obstacles__critical_angle_deg=phi_deg)
+    section, key = knob.split("__")
+    fine[section][key] = coarse[section][key] / 2
+    a = run_case(coarse, out_dir=False).crss_MPa
+    b = run_case(fine, out_dir=False).crss_MPa
+    assert abs(a - b) / b < 0.005
+
+
+RANDOM_CASE = {
+    "seed": 11,
+    "material": {"symbol": "Al"},
+    "line": {"length": 10, "node_spacing": 0.2},
+    "obstacles": {"kind": "random", "spacing_nm": 50.0, "critical_angle_deg": 0.0},
+    "loading": {"stress_step": 0.05, "tolerance": 1e-3, "bisections": 3},
+}
+
+
+def test_same_case_and_seed_give_identical_crss():
+    first = run_case(RANDOM_CASE, out_dir=False)
+    again = run_case(copy.deepcopy(RANDOM_CASE), out_dir=False)
+    assert first.crss_MPa == again.crss_MPa
+    assert np.array_equal(first.field.x, again.field.x)
+
+
+def test_other_seed_gives_other_field():
+    other = copy.deepcopy(RANDOM_CASE)
+    other["seed"] = 12
+    a, b = run_case(RANDOM_CASE, out_dir=False), run_case(other, out_dir=False)
+    assert a.field.n == b.field.n
+    assert not np.array_equal(a.field.x, b.field.x)
+
+
+@pytest.mark.slow
+def test_random_impenetrable_points_near_foreman_makin():
+    # Foreman & Makin (Phil. Mag. 14, 1966): ≈ 0.81 · 2Γ/(b L_s) (from memory); boxes of ~32 L_s
+    # read high (Nogaret & Rodney, Phys. Rev. B 74, 2006), hence the wide window of the issue.
+    side = np.sqrt(1024.0)
+    ratios = []
+    for seed in range(4):
+        case = copy.deepcopy(RANDOM_CASE)
+        case.update(seed=100 + seed)
+        case["line"] = {"length": side, "node_spacing": 0.2}
+        case["loading"] = {"stress_step": 0.02, "tolerance": 1e-3, "bisections": 5}
+        result = run_case(case, out_dir=False)
+        assert result.field.n == 1024
+        ratios.append(result.summary["crss_over_orowan"])
+    assert 0.70 <= np.mean(ratios) <= 0.95, ratios
