@@ -79,6 +79,9 @@ from dlsim.kernels import JIT, JIT_PARALLEL
 
 INV_4PI = 1.0 / (4.0 * np.pi)
 INV_8PI = 1.0 / (8.0 * np.pi)
+#: Target nodes are dealt to this many interleaved blocks (prange runs over blocks): enough to
+#: balance any common thread count, few enough that each block's scratch allocation is free.
+TARGET_BLOCKS = 64
 
 
 # ------------------------------------------------------------------------------------------------
@@ -117,12 +120,21 @@ def _segment_constants(xe, ye, j0, j1, bx, by, nu, tx, ty, sl, ca, cb, cc):
 
 
 @njit(**JIT, inline="always")
-def _pair_term(dx, dy, tx, ty, sl, ua, ub, ca, cb, cc, a2, k0):
-    """Fseg(s_A) - Fseg(s_B) of one segment; (dx, dy) = target - node A, ua, ub = 1/R_a at A, B."""
+def _pair_term(dx, dy, tx, ty, sl, ra, rb, ca, cb, cc, a2, k0):
+    """Fseg(s_A) - Fseg(s_B) of one segment; (dx, dy) = target - node A, ra, rb = R_a at A, B.
+
+    One division gives all three reciprocals 1/R_a(A), 1/R_a(B) and 1/ρ² (the divider is the
+    bottleneck of the pair loop).
+    """
     d = tx * dy - ty * dx
     sa = tx * dx + ty * dy
     sb = sa - sl
-    ir = 1.0 / (d * d + a2)
+    rho2 = d * d + a2
+    rab = ra * rb
+    inv = 1.0 / (rho2 * rab)
+    ua = inv * rho2 * rb
+    ub = inv * rho2 * ra
+    ir = inv * rab
     qa = a2 * ua * ua
     qb = a2 * ub * ub
     va = sa * ua * ir
@@ -169,9 +181,9 @@ def _segment_stress(px, py, xa, ya, xb, yb, bx, by, nu, a2):
     day = py - ya
     dbx = px - xb
     dby = py - yb
-    ua = 1.0 / np.sqrt(dax * dax + day * day + a2)
-    ub = 1.0 / np.sqrt(dbx * dbx + dby * dby + a2)
-    return _pair_term(dax, day, tx, ty, h, ua, ub, c * w, c * c * INV_8PI,
+    ra = np.sqrt(dax * dax + day * day + a2)
+    rb = np.sqrt(dbx * dbx + dby * dby + a2)
+    return _pair_term(dax, day, tx, ty, h, ra, rb, c * w, c * c * INV_8PI,
                       w * w * INV_4PI / (1.0 - nu), a2, -nu * INV_4PI / (1.0 - nu))
 
 
@@ -181,8 +193,8 @@ def _chain_sum(px, py, xe, ye, j0, j1, tx, ty, sl, ca, cb, cc, a2, k0, uu, tmp):
 
     Works on views starting at j0, so that every index is provably non-negative and LLVM
     vectorises the first two loops (numba's negative-index wrap-around otherwise defeats it)
-    without reordering any sum: inverse distances at the nodes (one square root per node, shared
-    by two segments), the segment terms, then a sum with four interleaved partial sums (fixed
+    without reordering any sum: regularised distances R_a at the nodes (one square root per
+    node, shared by two segments), the segment terms, then a sum with four interleaved partial sums (fixed
     order, the same for any thread count).
     """
     m = j1 - j0
@@ -192,7 +204,7 @@ def _chain_sum(px, py, xe, ye, j0, j1, tx, ty, sl, ca, cb, cc, a2, k0, uu, tmp):
     for j in range(m + 1):
         dx = px - xs[j]
         dy = py - ys[j]
-        us[j] = 1.0 / np.sqrt(dx * dx + dy * dy + a2)
+        us[j] = np.sqrt(dx * dx + dy * dy + a2)
     txs = tx[j0:j1]
     tys = ty[j0:j1]
     sls = sl[j0:j1]
@@ -355,11 +367,9 @@ def _window(i, n, xe, Lx, n_images, cutoff, tx, sl):
 
 @njit(**JIT)
 def _self_stress_target(i, x, y, n, Lx, bx, by, nu, a2, n_images, cutoff, ybar,
-                        xe, ye, tx, ty, sl, ca, cb, cc):
+                        xe, ye, tx, ty, sl, ca, cb, cc, uu, tmp):
     """τ_self at node i of the periodic line: window sum, straight remainder, arc correction."""
     k0 = -nu * INV_4PI / (1.0 - nu)
-    uu = np.empty(n + 1)
-    tmp = np.empty(n)
     px = xe[i]
     py = ye[i]
     g_lo, g_hi = _window(i, n, xe, Lx, n_images, cutoff, tx, sl)
@@ -406,14 +416,31 @@ def _prepare_line(x, y, n, shift, theta0, nu):
     return bx, by, xe, ye, tx, ty, sl, ca, cb, cc
 
 
-def _self_stress_impl(x, y, n, Lx, theta0, nu, a_core, n_images, cutoff, out):
+@njit(**JIT)
+def _self_stress_block(blk, n_blocks, x, y, n, Lx, theta0, nu, a_core, n_images, cutoff, prep,
+                       out):
+    """Targets ``blk, blk + n_blocks, ...``: one scratch allocation per block, out[i] per target."""
+    bx, by, xe, ye, tx, ty, sl, ca, cb, cc, ybar = prep
+    uu = np.empty(n + 1)
+    tmp = np.empty(n)
+    for i in range(blk, n, n_blocks):
+        out[i] = _self_stress_target(i, x, y, n, Lx, bx, by, nu, a_core * a_core, n_images,
+                                     cutoff, ybar, xe, ye, tx, ty, sl, ca, cb, cc, uu, tmp)
+
+
+@njit(**JIT)
+def _prepare_self_stress(x, y, n, Lx, theta0, nu):
+    """Per-call constants of :func:`self_stress` (segments, b, mean height) and the block count."""
     bx, by, xe, ye, tx, ty, sl, ca, cb, cc = _prepare_line(x, y, n, Lx, theta0, nu)
     ybar = mean_height(x, y, n, Lx)
-    a2 = a_core * a_core
-    for i in prange(n):
-        # prange indices may be unsigned; window arithmetic needs signed integers
-        out[i] = _self_stress_target(np.int64(i), x, y, n, Lx, bx, by, nu, a2, n_images, cutoff, ybar,
-                                     xe, ye, tx, ty, sl, ca, cb, cc)
+    return (bx, by, xe, ye, tx, ty, sl, ca, cb, cc, ybar), min(n, TARGET_BLOCKS)
+
+
+def _self_stress_impl(x, y, n, Lx, theta0, nu, a_core, n_images, cutoff, out):
+    prep, n_blocks = _prepare_self_stress(x, y, n, Lx, theta0, nu)
+    for blk in prange(n_blocks):
+        _self_stress_block(np.int64(blk), n_blocks, x, y, n, Lx, theta0, nu, a_core, n_images,
+                           cutoff, prep, out)
 
 
 _SELF_STRESS_DOC = """Non-singular elastic self-stress of the periodic line at its nodes.
@@ -454,12 +481,10 @@ self_stress.__doc__ = _SELF_STRESS_DOC
 
 
 def _self_stress_serial_impl(x, y, n, Lx, theta0, nu, a_core, n_images, cutoff, out):
-    bx, by, xe, ye, tx, ty, sl, ca, cb, cc = _prepare_line(x, y, n, Lx, theta0, nu)
-    ybar = mean_height(x, y, n, Lx)
-    a2 = a_core * a_core
-    for i in range(n):
-        out[i] = _self_stress_target(np.int64(i), x, y, n, Lx, bx, by, nu, a2, n_images, cutoff, ybar,
-                                     xe, ye, tx, ty, sl, ca, cb, cc)
+    prep, n_blocks = _prepare_self_stress(x, y, n, Lx, theta0, nu)
+    for blk in range(n_blocks):
+        _self_stress_block(np.int64(blk), n_blocks, x, y, n, Lx, theta0, nu, a_core, n_images,
+                           cutoff, prep, out)
 
 
 self_stress_serial = njit(**JIT)(_self_stress_serial_impl)
