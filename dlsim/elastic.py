@@ -399,19 +399,19 @@ def _self_stress_target(i, x, y, n, Lx, bx, by, nu, a2, n_images, cutoff, ybar,
 
 
 @njit(**JIT)
+def _chain_arrays(m):
+    """Scratch for m extended nodes: positions and the per-segment constants (one slot spare)."""
+    return (np.empty(m), np.empty(m), np.empty(m), np.empty(m), np.empty(m), np.empty(m),
+            np.empty(m), np.empty(m))
+
+
+@njit(**JIT)
 def _prepare_line(x, y, n, shift, theta0, nu):
     """Extended nodes and per-segment constants of a chain (shift = Lx periodic, 0 closed)."""
     bx = np.cos(theta0)
     by = np.sin(theta0)
-    xe = np.empty(n + 1)
-    ye = np.empty(n + 1)
+    xe, ye, tx, ty, sl, ca, cb, cc = _chain_arrays(n + 1)
     _extend(x, y, n, shift, xe, ye)
-    tx = np.empty(n)
-    ty = np.empty(n)
-    sl = np.empty(n)
-    ca = np.empty(n)
-    cb = np.empty(n)
-    cc = np.empty(n)
     _segment_constants(xe, ye, 0, n, bx, by, nu, tx, ty, sl, ca, cb, cc)
     return bx, by, xe, ye, tx, ty, sl, ca, cb, cc
 
@@ -542,15 +542,8 @@ def _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu):
     """Closed, extended copies of every loop (n_l + 1 nodes each) and their segment constants."""
     bx = np.cos(theta0)
     by = np.sin(theta0)
-    m = loop_offsets[n_loops] - loop_offsets[0] + n_loops
-    xe = np.empty(m)
-    ye = np.empty(m)
-    tx = np.empty(m)
-    ty = np.empty(m)
-    sl = np.empty(m)
-    ca = np.empty(m)
-    cb = np.empty(m)
-    cc = np.empty(m)
+    xe, ye, tx, ty, sl, ca, cb, cc = _chain_arrays(loop_offsets[n_loops] - loop_offsets[0]
+                                                   + n_loops)
     starts = np.empty(n_loops + 1, dtype=np.int64)
     e = 0
     for k in range(n_loops):
