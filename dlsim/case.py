@@ -23,6 +23,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable
 
+from . import particles as P
 from .errors import CaseError
 from .materials import TABLE, Material, Units
 
@@ -190,12 +191,63 @@ SCHEMA: dict[str, Section] = {
                           at_least(0)),
         "max_steps": Key(int, "the time steps allowed in one relaxation", 2_000_000, at_least(1)),
     }),
+    "statistics": Section("independent random fields of one case", {
+        "realizations": Key(int, "the number of fields drawn with derived seeds", 1, at_least(1)),
+    }),
+    "strength": Section("from CRSS to strength, and repeated dislocations", {
+        "taylor_factor": Key(float, "the Taylor factor M in Δσ = M τ_c (3.06: random FCC)", 3.06,
+                             _POSITIVE),
+        "passes": Key(int, "the dislocations sent one after another through the field", 1,
+                      at_least(1)),
+        "loop_spacing_nm": Key(float, "the radial spacing of Orowan loops around a particle in nm "
+                                      "(default: 2 b)", None, _POSITIVE),
+    }),
     "output": Section("result files", {
         "folder": Key(str, "the output folder relative to the case file (default: runs/<stem>)",
                       None, NON_EMPTY),
         "snapshot_every": Key(int, "the time steps between line snapshots for movies (0: none)", 0,
                               at_least(0)),
     }),
+}
+
+
+#: Arrays of tables (``[[populations]]``): each element is checked against its section by
+#: :func:`validate_table`, under the dotted name ``populations[i]`` (1-based, as a user counts).
+#: Kept apart from :data:`SCHEMA`, whose sections are plain tables that every resolved case lists.
+DISTRIBUTIONS = ("single", "lognormal", "lsw")
+ARRANGEMENTS = ("poisson", "hard_spheres", "file")
+STRENGTHS = ("impenetrable", "constant", "power_law", "point")
+ARRAY_SCHEMA: dict[str, Section] = {
+    "populations": Section("one particle population (an alternative to [obstacles])", {
+        "name": Key(str, "a unique name of the population", REQUIRED, NON_EMPTY),
+        "volume_fraction": Key(float, "the volume fraction f", None, between(0, 1, closed=False)),
+        "number_density_per_um3": Key(float, "the particles per µm³", None, _POSITIVE),
+        "distribution": Key(str, "the sphere radius distribution", None, one_of(*DISTRIBUTIONS)),
+        "radius_nm": Key(float, "the sphere radius in nm (single)", None, _POSITIVE),
+        "mean_radius_nm": Key(float, "the mean sphere radius in nm (lognormal, lsw)", None,
+                              _POSITIVE),
+        "sigma": Key(float, "the standard deviation of ln r (lognormal)", None, _POSITIVE),
+        "arrangement": Key(str, "how the particles are placed", "poisson", one_of(*ARRANGEMENTS)),
+        "file": Key(str, "the particle file relative to the case file (arrangement = \"file\")",
+                    None, NON_EMPTY),
+        "file_kind": Key(str, "particles: x_nm,y_nm,z_nm,radius_nm; sections: x_nm,y_nm,radius_nm",
+                         "particles", one_of("particles", "sections")),
+        "strength": Key(str, "the obstacle strength law", REQUIRED, one_of(*STRENGTHS)),
+        "critical_force_nN": Key(float, "the critical force F_c in nN (constant)", None,
+                                 _POSITIVE),
+        "prefactor_nN": Key(float, "A in F_c = A (ρ / 1 nm)^m, in nN (power_law)", None,
+                            _POSITIVE),
+        "exponent": Key(float, "m in F_c = A (ρ / 1 nm)^m (power_law)", None, at_least(0)),
+        "critical_angle_deg": Key(float, "the critical angle φ_c in degrees (point)", None,
+                                  between(0, 180, closed=True)),
+    }, at_most_one=(("volume_fraction", "number_density_per_um3"),)),
+}
+#: Keys each choice needs; a key of another choice is refused (it would be silently ignored).
+_NEEDS = {
+    "distribution": {"single": ("radius_nm",), "lognormal": ("mean_radius_nm", "sigma"),
+                     "lsw": ("mean_radius_nm",)},
+    "strength": {"impenetrable": (), "constant": ("critical_force_nN",),
+                 "power_law": ("prefactor_nN", "exponent"), "point": ("critical_angle_deg",)},
 }
 
 
@@ -240,6 +292,74 @@ class ObstacleSpec:
 
 
 @dataclass(frozen=True)
+class PopulationSpec:
+    """One particle population, resolved (lengths in nm, ``file`` absolute).
+
+    Exactly one of ``volume_fraction`` and ``number_density_per_um3`` is set, except for
+    ``arrangement = "file"`` where both are None and the particles come from ``file``.  The
+    strength parameters not used by ``strength`` are None.  ``areal_density_per_nm2`` is the
+    expected N_A = 2⟨r⟩N_V (Underwood 1970; :func:`dlsim.particles.areal_density`), or the count of
+    sections in the file over the box area.
+    """
+
+    name: str
+    volume_fraction: float | None
+    number_density_per_um3: float | None
+    distribution: str | None
+    radius_nm: float | None
+    mean_radius_nm: float | None
+    sigma: float | None
+    arrangement: str
+    file: str | None
+    file_kind: str
+    strength: str
+    critical_force_nN: float | None
+    prefactor_nN: float | None
+    exponent: float | None
+    critical_angle_deg: float | None
+    areal_density_per_nm2: float
+    source: str = field(default=DICT_SOURCE, compare=False, repr=False)
+    key: str = field(default="populations[1]", compare=False, repr=False)
+
+    def size_distribution(self) -> "P.SizeDistribution | None":
+        """The sphere radius distribution (nm), None for particles read from a file."""
+        where = dict(source=self.source, key=self.key)
+        if self.distribution == "single":
+            return P.SingleSize(self.radius_nm, **where)
+        if self.distribution == "lognormal":
+            return P.LogNormal(self.mean_radius_nm, self.sigma, **where)
+        if self.distribution == "lsw":
+            return P.LSW(self.mean_radius_nm, **where)
+        return None
+
+    @property
+    def number_density_per_nm3(self) -> float | None:
+        d = self.number_density_per_um3
+        return None if d is None else d / NM_PER_UM ** 3
+
+    def to_dict(self) -> dict:
+        d = {k: getattr(self, k) for k in ARRAY_SCHEMA["populations"].keys}
+        return _drop_none(d)
+
+
+@dataclass(frozen=True)
+class StatisticsSpec:
+    """Independent random fields (realizations) of one case."""
+
+    realizations: int
+
+
+@dataclass(frozen=True)
+class StrengthSpec:
+    """Taylor factor M (Δσ = M τ_c), dislocation passes, and the loop spacing (nm) around a
+    particle that each Orowan loop adds to its radius for the next pass."""
+
+    taylor_factor: float
+    passes: int
+    loop_spacing_nm: float
+
+
+@dataclass(frozen=True)
 class FrictionSpec:
     """Lattice friction threshold τ_f (MPa)."""
 
@@ -280,6 +400,16 @@ class Case:
     loading: LoadingSpec
     output: OutputSpec
     raw: dict = field(compare=False, repr=False)
+    populations: tuple[PopulationSpec, ...] = ()
+    statistics: StatisticsSpec = StatisticsSpec(1)
+    strength: StrengthSpec | None = None
+
+    @property
+    def spacing_nm(self) -> float:
+        """The reference spacing (nm): L or L_s of ``[obstacles]``, or L_s of all populations."""
+        if self.obstacles is not None:
+            return self.obstacles.spacing_nm
+        return P.mean_square_spacing(sum(p.areal_density_per_nm2 for p in self.populations))
 
     @property
     def units(self) -> Units:
@@ -292,14 +422,25 @@ class Case:
         Plain str/int/float values in nested dicts, so it serialises as JSON or TOML, and
         ``load_case(case.to_dict()) == case``.
         """
-        return {
+        d = {
             "title": self.title, "seed": self.seed,
             "material": _drop_none(dataclasses.asdict(self.material)),
-            "line": self.line.to_dict(), "obstacles": self.obstacles.to_dict(),
+            "line": self.line.to_dict(),
             "friction": dataclasses.asdict(self.friction),
             "loading": dataclasses.asdict(self.loading),
+            "statistics": dataclasses.asdict(self.statistics),
+            "strength": dataclasses.asdict(self.strength),
             "output": dataclasses.asdict(self.output),
         }
+        if self.obstacles is not None:
+            d["obstacles"] = self.obstacles.to_dict()
+        else:
+            d["populations"] = [p.to_dict() for p in self.populations]
+        if any(p.arrangement == "file" for p in self.populations):  # the box must stay in nm
+            d["line"] = {"tension_alpha": self.line.tension_alpha,
+                         "length_nm": self.line.length_nm, "height_nm": self.line.height_nm,
+                         "node_spacing_nm": self.line.node_spacing_nm}
+        return d
 
 
 def _drop_none(d: dict) -> dict:
@@ -427,7 +568,7 @@ def validate_table(source: str, prefix: str, table: Any, section: Section) -> di
 def _validate_top(source: str, raw: dict) -> dict[str, Any]:
     """The top-level keys; also rejects unknown sections."""
     top = SCHEMA[""]
-    sections = [name for name in SCHEMA if name]
+    sections = [name for name in SCHEMA if name] + list(ARRAY_SCHEMA)
     for name, value in raw.items():
         if name not in top.keys and name not in sections:
             near = _nearest(name, sections + list(top.keys))
@@ -480,9 +621,8 @@ def _box_side(source: str, key: str, line: dict, spacing: float, square: bool) -
     return float(whole) if square else n
 
 
-def _resolve_line(source: str, line: dict, obstacles: ObstacleSpec) -> LineSpec:
-    """Box and node spacing in nm; the height defaults to the width."""
-    s, square = obstacles.spacing_nm, obstacles.kind == "square"
+def _resolve_line(source: str, line: dict, s: float, square: bool) -> LineSpec:
+    """Box and node spacing in nm from the spacing ``s`` (nm); the height defaults to the width."""
     width = _box_side(source, "length", line, s, square)
     has_height = line["height"] is not None or line["height_nm"] is not None
     height = _box_side(source, "height", line, s, square) if has_height else width
@@ -495,6 +635,80 @@ def _resolve_line(source: str, line: dict, obstacles: ObstacleSpec) -> LineSpec:
         raise CaseError(source, f"line.{key}", f"got {_show(line[key])}; must be at most {most}, "
                                                f"1/{MIN_SEGMENTS} of the box width")
     return LineSpec(line["tension_alpha"], width * s, height * s, node, width, height)
+
+
+def _refuse(source: str, key: str, value: Any, why: str) -> None:
+    if value is not None:
+        raise CaseError(source, key, f"got {_show(value)}; {why}")
+
+
+def _check_choice(source: str, prefix: str, p: dict, choice: str) -> None:
+    """The keys ``p[choice]`` needs are given; those of the other choices are not."""
+    for option, keys in _NEEDS[choice].items():
+        for k in keys:
+            if option == p[choice] and p[k] is None:
+                raise CaseError(source, _join(prefix, k),
+                                f"missing; {choice} = \"{option}\" needs {', '.join(keys)}")
+            if option != p[choice] and k not in _NEEDS[choice].get(p[choice], ()):
+                _refuse(source, _join(prefix, k), p[k],
+                        f"only for {choice} = \"{option}\", not \"{p[choice]}\"")
+
+
+def _resolve_population(source: str, prefix: str, p: dict, base: Path,
+                        box_nm: tuple[float, float] | None) -> PopulationSpec:
+    """One ``[[populations]]`` table: choices checked, file path absolute, expected N_A (nm⁻²)."""
+    _check_choice(source, prefix, p, "strength")
+    if p["arrangement"] == "file":
+        for k in ("volume_fraction", "number_density_per_um3", "distribution"):
+            _refuse(source, _join(prefix, k), p[k], "a population read from a file takes its "
+                                                     "particles and sizes from the file")
+        if p["file"] is None:
+            raise CaseError(source, _join(prefix, "file"), 'missing; arrangement = "file" needs '
+                                                           "`file` (a CSV path)")
+        if box_nm is None:
+            raise CaseError(source, "line.length_nm", "missing; a case with a particle file "
+                                                      "needs the box in nm (`line.length_nm`)")
+        p["file"] = os.path.normpath(base / os.path.expanduser(p["file"]))
+        read = P.read_particles_csv if p["file_kind"] == "particles" else P.read_sections_csv
+        count = len(read(p["file"], _join(prefix, "file"), *box_nm))
+        n_a = count / (box_nm[0] * box_nm[1])
+    else:
+        _refuse(source, _join(prefix, "file"), p["file"], 'only for arrangement = "file"')
+        if p["distribution"] is None:
+            raise CaseError(source, _join(prefix, "distribution"),
+                            f"missing; one of {', '.join(DISTRIBUTIONS)} is required")
+        _check_choice(source, prefix, p, "distribution")
+        if p["volume_fraction"] is None and p["number_density_per_um3"] is None:
+            raise CaseError(source, _join(prefix, "volume_fraction"),
+                            "missing; give `volume_fraction` or `number_density_per_um3`")
+        n_a = 0.0
+    spec = PopulationSpec(**p, areal_density_per_nm2=n_a, source=source, key=prefix)
+    if p["arrangement"] != "file":
+        stats = P.expected_section_stats(spec.size_distribution(), p["volume_fraction"],
+                                         spec.number_density_per_nm3, source=source, key=prefix)
+        spec = dataclasses.replace(spec, areal_density_per_nm2=stats["areal_density_per_nm2"])
+    return spec
+
+
+def _resolve_populations(source: str, raw: Any, base: Path, line: dict
+                         ) -> tuple[PopulationSpec, ...]:
+    """Every ``[[populations]]`` element, names unique."""
+    if not isinstance(raw, list) or not raw:
+        raise CaseError(source, "populations", f"got {_show(raw)}; must be an array of tables "
+                                               "[[populations]] with at least one element")
+    box = None
+    if line.get("length_nm") is not None:
+        box = (line["length_nm"], line.get("height_nm") or line["length_nm"])
+    out, names = [], set()
+    for i, table in enumerate(raw, start=1):
+        prefix = f"populations[{i}]"
+        p = validate_table(source, prefix, table, ARRAY_SCHEMA["populations"])
+        if p["name"] in names:
+            raise CaseError(source, _join(prefix, "name"),
+                            f"got {_show(p['name'])}; names of populations must be unique")
+        names.add(p["name"])
+        out.append(_resolve_population(source, prefix, p, base, box))
+    return tuple(out)
 
 
 def _resolve_output(o: dict, base: Path, stem: str) -> OutputSpec:
@@ -564,15 +778,32 @@ def load_case(source: str | os.PathLike | dict | Case, base_dir: str | os.PathLi
         return validate_table(name, section, raw.get(section, {}), SCHEMA[section])
 
     material = _resolve_material(name, table("material"))
-    obstacles = _resolve_obstacles(name, table("obstacles"))
-    line = _resolve_line(name, table("line"), obstacles)
+    if ("obstacles" in raw) == ("populations" in raw):
+        raise CaseError(name, "obstacles", "give exactly one of the section [obstacles] and the "
+                                           "array of tables [[populations]]")
+    line_table = table("line")
+    populations, obstacles = (), None
+    if "obstacles" in raw:
+        obstacles = _resolve_obstacles(name, table("obstacles"))
+        line = _resolve_line(name, line_table, obstacles.spacing_nm, obstacles.kind == "square")
+    else:
+        populations = _resolve_populations(name, raw["populations"], base, line_table)
+        n_a = sum(p.areal_density_per_nm2 for p in populations)
+        if n_a <= 0.0:
+            raise CaseError(name, "populations", "no particle cuts the glide plane")
+        line = _resolve_line(name, line_table, P.mean_square_spacing(n_a), False)
+    strength = table("strength")
+    if strength["loop_spacing_nm"] is None:
+        strength["loop_spacing_nm"] = 2.0 * material.burgers_nm
     loading = table("loading")
     if loading["flow_distance"] is None:
         loading["flow_distance"] = line.height_spacings
     return Case(source=name, title=top["title"], seed=top["seed"], material=material,
                 line=line, obstacles=obstacles,
                 friction=FrictionSpec(**table("friction")), loading=LoadingSpec(**loading),
-                output=_resolve_output(table("output"), base, stem), raw=raw)
+                output=_resolve_output(table("output"), base, stem), raw=raw,
+                populations=populations, statistics=StatisticsSpec(**table("statistics")),
+                strength=StrengthSpec(**strength))
 
 
 def schema_has_key(dotted_key: str) -> bool:
