@@ -32,8 +32,8 @@ On a straight segment write ``R = s t + d n`` (``n = ẑ × t``, ``s = R·t``, `
     k0 = -ν/(4π(1-ν)),
 
 and the segment from node A to node B contributes ``τ = Fseg(s_A) - Fseg(s_B)``.  Only one square
-root (shared by the two segments meeting at a node) and two divisions per pair: no transcendental
-call in the pair loop.  For a → 0 and an infinite line this is ``(c² + w²/(1-ν))/(2π d)``.
+root (shared by the two segments meeting at a node) and one division per pair (it yields 1/R_a at
+both ends and 1/ρ²): no transcendental call in the pair loop.  For a → 0 and an infinite line this is ``(c² + w²/(1-ν))/(2π d)``.
 
 Local part (the node's own two arms)
 ------------------------------------
@@ -53,6 +53,12 @@ tangent t0 from the three nodes), integrated to first order in κ:
 ``κ (1 - 2ν + 3ν c0²)/(4π(1-ν)) ln(2h/a)``: the local stiffness E + E'' of de Wit & Koehler
 (Phys. Rev. 116, 1959), so the total does not depend on the node spacing; for h ≪ a the
 correction vanishes and the polygon converges on its own.  A straight line gets no correction.
+This is our own first-order treatment of the local part; it assumes the line is smooth on the scale
+of its node spacing (κ h ≪ 1).  At a genuine corner (a node pinned at an obstacle, where the arms
+meet at a finite angle) it treats the corner as the arc through the three nodes, an approximation.
+The collocated stress is not the exact gradient of an energy of the polygon (the weak-form nodal
+force of the non-singular theory would be); the difference is of order (h/D)² for segments at
+distance D, and for the arms themselves it is what the arc treatment stands in for.
 
 Periodic images and the remainder
 ---------------------------------
@@ -60,7 +66,8 @@ The sum runs over a window of ``2 n_images + 1`` periods of the line centred on 
 (the images ``|k| <= n_images``, truncated symmetrically).  Every segment outside the window is
 replaced by its projection on the straight average line ``y = ȳ`` (ȳ the signed-area mean height);
 the projections telescope into two semi-infinite straight dislocations along x, from -∞ to the
-window's first node and from its last node to +∞, added in closed form.  What is left out is the
+window's first node and from its last node to +∞, added in closed form and joined to those nodes
+by short connectors along y so that the replacement path is continuous.  What is left out is the
 field of the line's deviation from its average over whole periods, which has no net area
 (∫ (y - ȳ) dx = 0), so it falls as the fourth power of the distance and the remainder decreases
 about as ``n_images⁻³``.  A straight line gets exactly zero.
@@ -467,6 +474,8 @@ _SELF_STRESS_DOC = """Non-singular elastic self-stress of the periodic line at i
         replaced by the straight average line.
     out : (>= n,) float64
         Receives τ_self,i (G), resolved shear σ_zj b_j with the sign of the applied stress.
+        It contains the line's whole elastic self-interaction, line tension included: do not add
+        a line-tension force on top of it.  Segments must have non-zero length.
 
     Notes
     -----
