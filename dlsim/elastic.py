@@ -75,7 +75,8 @@ about as ``n_images⁻³``.  A straight line gets exactly zero.
 With ``cutoff > 0`` the window is further cut to the contiguous run of segments around the target
 whose midpoints lie within ``cutoff`` of it in x, and the segments beyond are replaced by the same
 straight projection: the far-field correction is the field of the straight average line beyond the
-cutoff, leaving the deviation's field, of relative size (amplitude/cutoff)².
+cutoff.  What it leaves out is the far field of the line's deviation beyond the cutoff, which falls
+about as cutoff⁻² and matters for wavelengths longer than the cutoff (the tests measure it).
 """
 from __future__ import annotations
 

@@ -80,7 +80,8 @@ def test_segment_closed_form_matches_quadrature(reference, seed, rel):
 ])
 def test_parallel_dislocations_force_matches_hirth_lothe(theta0, expected):
     # Two straight parallel dislocations along x in one glide plane, d = 50 a apart: the core
-    # changes the far field only at order (a/d)⁴ here, so the singular H&L values apply.  The
+    # changes the far field at order (a/d)² = 4e-4 at most (edge; (a/d)⁴ for screw), so the
+    # singular H&L values apply.  The
     # source line is a chain of 400 segments 2·10⁵ b long (end effects ~ (d/L)² ~ 1e-7).
     d, half = 50.0, 1e5
     xs = np.linspace(-half, half, 401)
@@ -121,7 +122,8 @@ def test_self_stress_image_sum_converges(theta0):
 
 def test_self_stress_cutoff_approaches_full_sum():
     # the cutoff replaces the far line by its straight average: the error falls as the cutoff
-    # grows, and stays small against the self-stress once the cutoff passes a few amplitudes
+    # grows (measured 11 %, 2 %, 0.5 % of the largest self-stress for cutoffs of 0.075, 0.15 and
+    # 0.3 of the period, longest wavelength = period here) and is below 1 % at the largest
     rng = np.random.default_rng(11)
     n, Lx = 400, 4000.0
     x, y = wavy_line(rng, n, Lx, 30.0)
@@ -168,7 +170,9 @@ def test_circular_loop_self_force_matches_loop_energy():
     # H&L ch. 6: a circular glide loop has E = A R [ln(8R/ρ0) - 2], A = (2-ν)/(4(1-ν)) (G b²),
     # so the mean radial force per length is f = -dE/dR/(2πR) and 2πR f = -A [ln(8R/ρ0) - 1].
     # The non-singular core only changes the constant inside the log, so compare two radii:
-    # 2πR1 f1 - 2πR2 f2 = -A ln(R1/R2), independent of ρ0.  R >> a; 3 % tolerance.
+    # 2πR1 f1 - 2πR2 f2 = -A ln(R1/R2), independent of ρ0 and of the log's constant; only the
+    # prefactor A enters (the loop average of the straight-line factor (1 - ν cos²θ)/(1 - ν)).
+    # R >> a (100 a and 1000 a); 3 % tolerance.
     amp = (2 - NU) / (4 * (1 - NU))
     vals = []
     for radius in (100.0, 1000.0):
