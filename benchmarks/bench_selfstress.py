@@ -25,10 +25,10 @@ import time
 import numba
 import numpy as np
 
-sys.path.insert(0, os.path.join(os.path.dirname(__file__), ".."))
+sys.path.insert(0, os.path.join(os.path.dirname(__file__), "..", "tests"))
 
 from dlsim import elastic as E  # noqa: E402
-from tests import naive_elastic as N  # noqa: E402
+import naive_elastic as N  # noqa: E402
 
 NODE_SPACING = 10.0   # b
 AMPLITUDE = 50.0      # b, largest Fourier amplitude of the test line

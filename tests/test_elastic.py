@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 
 from dlsim import elastic as E
-from tests import naive_elastic as N
+import naive_elastic as N
 
 NU = 0.3
 A_CORE = 1.0
