@@ -59,3 +59,14 @@ def superpose(stresses, exponent: float) -> float:
         raise ValueError(f"superposition exponent {exponent} outside [1, 2]")
     s = np.asarray(stresses, dtype=float)
     return float(np.sum(s ** exponent) ** (1.0 / exponent))
+
+
+def random_bypass(gamma: float, spacing: float, mean_radius: float) -> float:
+    """Random impenetrable discs: 0.81 · 2Γ/(b (L_s − 2⟨ρ⟩)), the Foreman–Makin factor applied to
+    the free span between discs (a rough estimate, common practice; from memory)."""
+    return FOREMAN_MAKIN_FACTOR * orowan_finite(gamma, spacing, mean_radius)
+
+
+def strength_increment(crss: float, taylor_factor: float = TAYLOR_FCC) -> float:
+    """Uniaxial yield strength increment Δσ = M τ_c (physics.md; M from :data:`TAYLOR_FCC`)."""
+    return taylor_factor * crss

@@ -22,6 +22,15 @@ def _cmd_run(args: argparse.Namespace) -> int:
     return 0
 
 
+def _cmd_estimate(args: argparse.Namespace) -> int:
+    import json
+
+    from .api import estimate_case
+
+    print(json.dumps(estimate_case(args.case), indent=2, default=float))
+    return 0
+
+
 def _cmd_sweep(args: argparse.Namespace) -> int:
     from .sweep import run_sweep
 
@@ -88,6 +97,10 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("--out", default=None, help="output folder (overrides [output] folder)")
     run.add_argument("--quiet", action="store_true", help="no progress messages")
     run.set_defaults(func=_cmd_run)
+    estimate = sub.add_parser("estimate", help="analytic strength estimates of a case with "
+                                               "[[populations]], without simulating")
+    estimate.add_argument("case", help="case file (TOML)")
+    estimate.set_defaults(func=_cmd_estimate)
     _add_sweep_commands(sub)
     return parser
 
