@@ -41,7 +41,14 @@ M_STEPS = 3      # time steps taken (cumulative, the caller resets it)
 M_RELEASES = 4   # obstacles released (cumulative)
 M_CAPTURES = 5   # obstacles captured (cumulative)
 M_RECONNECT = 6  # reconnections (cumulative)
-N_META = 7
+M_REMESH = 7     # remeshing passes (cumulative)
+M_CONTACT_CHECKS = 8  # contact searches run (cumulative)
+N_META = 9
+
+#: Rows of the float and int work arrays relax_line takes (``work_f``: (N_WORK_F, cap) float64,
+#: ``work_i``: (N_WORK_I, cap) int64).
+N_WORK_F = 9
+N_WORK_I = 3
 
 # --- status codes of relax_line ----------------------------------------------------------------
 EQUILIBRIUM = 0
@@ -61,8 +68,12 @@ MAX_MOVE_FRACTION = 0.25
 MAX_CAPTURES = 256
 #: The remesher never thins a line below this many nodes.
 MIN_NODES = 4
-#: Nodes closer than this many places along the line are never reconnected with each other.
-RECONNECT_MIN_SEPARATION = 4
+#: Nodes closer than this many places along the line are never reconnected with each other.  The
+#: two arms at a pin meeting at angle φ come within the annihilation distance d = l_min at about
+#: s·φ = d from the pin, s the path length to the pin; with at least 20 nodes between them
+#: (s >= 10 l_min) that is φ < 0.1, so the wedge at a pin reconnects only when it has closed to
+#: within cos(φ/2) > 0.9987 of the Orowan configuration (4 nodes gave a 0.8 % early bypass).
+RECONNECT_MIN_SEPARATION = 20
 #: Two parts of the line reconnect only when their tangents are closer to antiparallel than this.
 RECONNECT_COS = -0.5
 
@@ -227,6 +238,52 @@ def _in_triangle(px, py, ax, ay, bx, by, cx, cy):
 
 
 @njit(**JIT)
+def _cell_span(lo, hi, period, ncell):
+    """Cells of a periodic axis that the interval [lo, hi] covers.
+
+    Returns the first cell (in [0, ncell)), the image shift that maps the interval into the box
+    from that cell on (add it to an obstacle coordinate), and the number of cells.  Walking on,
+    the cell index wraps to 0 and the shift grows by one period.
+    """
+    shift = period * np.floor(lo / period)
+    inv_cell = ncell / period
+    first = int((lo - shift) * inv_cell)
+    count = int((hi - shift) * inv_cell) - first + 1
+    if first >= ncell:          # lo a rounding error below the next period
+        first -= ncell
+        shift += period
+    return first, shift, count
+
+
+@njit(**JIT)
+def free_obstacle_in_triangle(ax, ay, bx, by, cx, cy, ox, oy, opin, cstart, citems, ncx, ncy,
+                              Lx, Ly):
+    """Whether some free obstacle (``opin == 0``; any periodic image) lies in the triangle abc."""
+    x0, x1 = min(ax, min(bx, cx)), max(ax, max(bx, cx))
+    y0, y1 = min(ay, min(by, cy)), max(ay, max(by, cy))
+    kx0, sx0, nx = _cell_span(x0, x1, Lx, ncx)
+    ky0, sy0, ny = _cell_span(y0, y1, Ly, ncy)
+    kx, shx = kx0, sx0
+    for _ in range(nx):
+        ky, shy = ky0, sy0
+        for _ in range(ny):
+            cell = kx + ncx * ky
+            for q in range(cstart[cell], cstart[cell + 1]):
+                k = citems[q]
+                px, py = ox[k] + shx, oy[k] + shy
+                if (x0 <= px <= x1 and y0 <= py <= y1 and opin[k] <= 0
+                        and _in_triangle(px, py, ax, ay, bx, by, cx, cy)):
+                    return True
+            ky += 1
+            if ky == ncy:
+                ky, shy = 0, shy + Ly
+        kx += 1
+        if kx == ncx:
+            kx, shx = 0, shx + Lx
+    return False
+
+
+@njit(**JIT)
 def find_captures(x, y, n, pin, ign, vx, vy, dt, ox, oy, opin, cstart, citems, ncx, ncy,
                   prm, cap_seg, cap_s, cap_obs, cap_x, cap_y):
     """Obstacles inside the area each segment sweeps during the step (no tunnelling).
@@ -361,16 +418,22 @@ def _node_curvature(x, y, n, pin, i, Lx):
 
 
 @njit(**JIT)
-def remesh(x, y, pin, ign, n, prm, xo, yo, pino, igno):
+def remesh(x, y, pin, ign, n, prm, xo, yo, pino, igno, ox, oy, opin, cstart, citems, ncx, ncy):
     """Keep every segment length within [l_min, l_max]; return the new node count.
 
     A free node is removed when one of its arms is shorter than l_min; pinned nodes are never
     removed.  A segment longer than l_max is then split into equal parts (each longer than
-    l_max/2 >= l_min, so a removal never leaves a segment out of bounds), the new nodes placed on the circular arc whose curvature is the mean of the free end
-    nodes' three-point curvatures (so remeshing does not flatten a bowed line).
+    l_max/2 >= l_min, so a removal never leaves a segment out of bounds), the new nodes placed on
+    the circular arc whose curvature is the mean of the free end nodes' three-point curvatures (so
+    remeshing does not flatten a bowed line).  Remeshing moves the line a little (a removed node's
+    corner is cut, an arc bulges off its chord); where that would carry the line across a free
+    obstacle (``ox, oy, opin`` and the periodic cell list, as in :func:`find_captures`) the node
+    is kept, or the new nodes go on the chord, so that remeshing never tunnels.  The line is written
+    to ``xo, yo, pino, igno``, shifted by a period if need be so that node 0 lies in [0, Lx).
     """
-    lmin, lmax, Lx = prm[P_LMIN], prm[P_LMAX], prm[P_LX]
-    # pass 1: mark removals, walking from the last kept node (node 0 is always kept)
+    lmin, lmax, Lx, Ly = prm[P_LMIN], prm[P_LMAX], prm[P_LX], prm[P_LY]
+    # pass 1: mark removals, walking from the last kept node; node 0 is decided last, against its
+    # kept neighbours across the seam (keeping it always would leave a short arm there for good)
     keep = np.ones(n, dtype=np.bool_)
     last = 0
     removed = 0
@@ -380,11 +443,23 @@ def remesh(x, y, pin, ign, n, prm, xo, yo, pino, igno):
         if pin[i] < 0 and n - removed > MIN_NODES:
             da = _dist(x[i] - x[last], y[i] - y[last])
             db = _dist(x[nxt] + sh - x[i], y[nxt] - y[i])
-            if da < lmin or db < lmin:
+            if (da < lmin or db < lmin) and not free_obstacle_in_triangle(
+                    x[last], y[last], x[i], y[i], x[nxt] + sh, y[nxt], ox, oy, opin, cstart,
+                    citems, ncx, ncy, Lx, Ly):
                 keep[i] = False
                 removed += 1
                 continue
         last = i
+    first = 1
+    while first < n and not keep[first]:
+        first += 1
+    if pin[0] < 0 and n - removed > MIN_NODES and first < n:
+        da = _dist(x[0] + Lx - x[last], y[0] - y[last])
+        db = _dist(x[first] - x[0], y[first] - y[0])
+        if (da < lmin or db < lmin) and not free_obstacle_in_triangle(
+                x[last] - Lx, y[last], x[0], y[0], x[first], y[first], ox, oy, opin, cstart,
+                citems, ncx, ncy, Lx, Ly):
+            keep[0] = False
     # pass 2: copy kept nodes, splitting long segments on the local arc
     kept = np.empty(n, dtype=np.int64)
     nk = 0
@@ -392,38 +467,73 @@ def remesh(x, y, pin, ign, n, prm, xo, yo, pino, igno):
         if keep[i]:
             kept[nk] = i
             nk += 1
+    # the new node 0 may be old node `first`: shift back into [0, Lx) so x stays in one period
+    wrap = Lx if x[kept[0]] >= Lx else 0.0
     m = 0
     for q in range(nk):
         i = kept[q]
         j = kept[q + 1] if q < nk - 1 else kept[0]
         sh = 0.0 if q < nk - 1 else Lx
-        xo[m], yo[m], pino[m], igno[m] = x[i], y[i], pin[i], ign[i]
+        xo[m], yo[m], pino[m], igno[m] = x[i] - wrap, y[i], pin[i], ign[i]
         m += 1
         ex, ey = x[j] + sh - x[i], y[j] - y[i]
         length = np.sqrt(ex * ex + ey * ey)
         if length <= lmax:
             continue
         parts = int(np.ceil(length / lmax))
-        ki = _node_curvature(x, y, n, pin, i, Lx)
-        kj = _node_curvature(x, y, n, pin, j, Lx)
-        if pin[i] >= 0:
-            kappa = kj
-        elif pin[j] >= 0:
-            kappa = ki
-        else:
-            kappa = 0.5 * (ki + kj)
-        if abs(kappa) * length > 1.0:  # never more than a near-semicircle per segment
-            kappa = np.sign(kappa) / length
+        kappa = _split_curvature(x, y, n, pin, i, j, Lx, length)
+        if kappa != 0.0 and _arc_crosses_obstacle(x[i], y[i], ex, ey, length, kappa, parts,
+                                                  ox, oy, opin, cstart, citems, ncx, ncy, Lx, Ly):
+            kappa = 0.0
         nx, ny = -ey / length, ex / length
         for p in range(1, parts):
             u = p / parts
             off = -0.5 * kappa * length * length * u * (1.0 - u)
-            xo[m] = x[i] + u * ex + off * nx
+            xo[m] = x[i] - wrap + u * ex + off * nx
             yo[m] = y[i] + u * ey + off * ny
             pino[m] = -1
             igno[m] = -1
             m += 1
     return m
+
+
+@njit(**JIT)
+def _split_curvature(x, y, n, pin, i, j, Lx, length):
+    """Curvature of the arc a long segment i -> j is split on: the mean of its free ends'."""
+    ki = _node_curvature(x, y, n, pin, i, Lx)
+    kj = _node_curvature(x, y, n, pin, j, Lx)
+    if pin[i] >= 0:
+        kappa = kj
+    elif pin[j] >= 0:
+        kappa = ki
+    else:
+        kappa = 0.5 * (ki + kj)
+    if abs(kappa) * length > 1.0:  # never more than a near-semicircle per segment
+        kappa = np.sign(kappa) / length
+    return kappa
+
+
+@njit(**JIT)
+def _arc_crosses_obstacle(xi, yi, ex, ey, length, kappa, parts, ox, oy, opin, cstart, citems,
+                          ncx, ncy, Lx, Ly):
+    """Whether a free obstacle lies between the chord r_i -> r_i + e and the split arc's polygon.
+
+    The region is the fan of triangles (r_i, p_k, p_k+1) over the arc points p_1 .. p_parts
+    (p_parts = r_i + e), convex for a circular arc.
+    """
+    nx, ny = -ey / length, ex / length
+    px, py = xi + ex / parts, yi + ey / parts
+    off = -0.5 * kappa * length * length * (1.0 / parts) * (1.0 - 1.0 / parts)
+    px, py = px + off * nx, py + off * ny
+    for p in range(2, parts + 1):
+        u = p / parts
+        off = -0.5 * kappa * length * length * u * (1.0 - u)
+        qx, qy = xi + u * ex + off * nx, yi + u * ey + off * ny
+        if free_obstacle_in_triangle(xi, yi, px, py, qx, qy, ox, oy, opin, cstart, citems,
+                                     ncx, ncy, Lx, Ly):
+            return True
+        px, py = qx, qy
+    return False
 
 
 @njit(**JIT)
@@ -580,6 +690,18 @@ def _copy_line(src_x, src_y, src_pin, src_ign, n, x, y, pin, ign):
 
 
 @njit(**JIT)
+def time_step(prm, stiff, vmax):
+    """Stable explicit time step, also short enough that no node moves MAX_MOVE_FRACTION l_min.
+
+    ``stiff`` is the largest 1/(a b) over free nodes (b⁻²), ``vmax`` the largest node speed.
+    """
+    dt = STABILITY_FRACTION / (2.0 * prm[P_MOB] * prm[P_GAMMA] * stiff)
+    if vmax * dt > MAX_MOVE_FRACTION * prm[P_LMIN]:
+        dt = MAX_MOVE_FRACTION * prm[P_LMIN] / vmax
+    return dt
+
+
+@njit(**JIT)
 def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
                ox, oy, ofc, opin, cstart, citems, ncx, ncy,
                lx, ly, lpin, loff, tau_int, work_f, work_i):
@@ -640,7 +762,9 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
             return CAPACITY
         area, bad = segment_pass(x, y, n, pin, prm, ux, uy, slen)
         if bad:
-            n = remesh(x, y, pin, ign, n, prm, bx, by, bpin, bign)
+            meta[M_REMESH] += 1
+            n = remesh(x, y, pin, ign, n, prm, bx, by, bpin, bign, ox, oy, opin, cstart, citems,
+                       ncx, ncy)
             _copy_line(bx, by, bpin, bign, n, x, y, pin, ign)
             area, bad = segment_pass(x, y, n, pin, prm, ux, uy, slen)
         if (area - prm[P_AREF]) / Lx > prm[P_FLOW]:
@@ -652,6 +776,7 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
         if released > 0:
             meta[M_RELEASES] += released
             continue
+        meta[M_CONTACT_CHECKS] += 1
         i, j = find_contact(x, y, n, pin, ntx, nty, prm, head, nxt)
         if i >= 0:
             n_new = reconnect(x, y, pin, ign, n, i, j, Lx, meta, lx, ly, lpin, loff)
@@ -665,9 +790,7 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
         if max_te < prm[P_TOL]:
             meta[M_N] = n
             return EQUILIBRIUM
-        dt = STABILITY_FRACTION / (2.0 * prm[P_MOB] * prm[P_GAMMA] * stiff)
-        if vmax * dt > MAX_MOVE_FRACTION * lmin:
-            dt = MAX_MOVE_FRACTION * lmin / vmax
+        dt = time_step(prm, stiff, vmax)
         ncap = find_captures(x, y, n, pin, ign, vx, vy, dt, ox, oy, opin, cstart, citems,
                              ncx, ncy, prm, cap_seg, cap_s, cap_obs, cap_x, cap_y)
         if ncap == 0:

@@ -1,0 +1,478 @@
+"""The line kernels against their NumPy twins (tests/naive.py), the energy, and physical limits.
+
+Sources: nodal forces are the energy-consistent forms of Hirth & Lothe, *Theory of Dislocations*
+(1982), ch. 6 (line tension) and ch. 3 (Peach–Koehler force); lattice friction as a threshold on the
+resolved stress and overdamped glide v = M τ_eff b as in physics.md (Kocks, Argon & Ashby 1975, §2);
+no-tunnelling capture and Orowan looping of impenetrable points as in physics.md ("Obstacles").
+"""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from dlsim import kernels as K
+from dlsim.fields import ObstacleField, random_field
+from dlsim.line import LineState
+from dlsim.solver import LineModel, Protocol, Relaxer
+
+import naive
+
+GAMMA = 0.5
+
+
+def wavy_line(rng, n, Lx, amplitude, x0=0.0, y0=0.0, jitter=0.3):
+    """A random periodic line of n nodes over one period, a sum of three random Fourier modes."""
+    x = x0 + (np.arange(n) + 0.5 + jitter * rng.uniform(-0.5, 0.5, n)) * (Lx / n)
+    phase = rng.uniform(0, 2 * np.pi, 3)
+    amp = amplitude * rng.uniform(0.2, 1.0, 3)
+    y = y0 + sum(a * np.sin(2 * np.pi * (k + 1) * (x - x0) / Lx + p)
+                 for k, (a, p) in enumerate(zip(amp, phase)))
+    return x, y
+
+
+def params(Lx, Ly=1.0, tau=0.0, tau_f=0.0, lmin=0.0, lmax=np.inf, dann=0.0, mobility=1.0):
+    prm = np.zeros(K.N_PRM)
+    prm[K.P_GAMMA], prm[K.P_TAU], prm[K.P_TAUF], prm[K.P_MOB] = GAMMA, tau, tau_f, mobility
+    prm[K.P_LMIN], prm[K.P_LMAX], prm[K.P_LX], prm[K.P_LY] = lmin, lmax, Lx, Ly
+    prm[K.P_DANN] = dann
+    return prm
+
+
+def padded(a, cap, fill):
+    out = np.full(cap, fill, dtype=np.asarray(a).dtype)
+    out[: len(a)] = a
+    return out
+
+
+def random_pins(rng, n, fraction, n_obs=1000):
+    pin = np.full(n, -1, np.int64)
+    sel = rng.random(n) < fraction
+    pin[sel] = rng.choice(n_obs, sel.sum(), replace=False)
+    return pin
+
+
+class Work:
+    """Scratch arrays of one capacity for calling kernels one by one."""
+
+    def __init__(self, cap):
+        self.vx, self.vy, self.fpin, self.ux, self.uy, self.slen, self.ntx, self.nty = (
+            np.zeros(cap) for _ in range(8))
+        mc = K.MAX_CAPTURES
+        self.cap_seg, self.cap_obs = np.zeros(mc, np.int64), np.zeros(mc, np.int64)
+        self.cap_s, self.cap_x, self.cap_y = np.zeros(mc), np.zeros(mc), np.zeros(mc)
+        self.head, self.nxt = np.zeros(cap, np.int64), np.zeros(cap, np.int64)
+
+
+def run_node_pass(x, y, pin, prm, tau_int=None):
+    n = len(x)
+    w = Work(n + 8)
+    xs, ys, ps = padded(x, n + 8, 0.0), padded(y, n + 8, 0.0), padded(pin, n + 8, -1)
+    ti = np.zeros(n + 8) if tau_int is None else padded(tau_int, n + 8, 0.0)
+    area, bad = K.segment_pass(xs, ys, n, ps, prm, w.ux, w.uy, w.slen)
+    out = K.node_pass(xs, ys, n, ps, prm, ti, w.ux, w.uy, w.slen, w.vx, w.vy, w.fpin, w.ntx, w.nty)
+    return w, area, bad, out
+
+
+# --- forces ----------------------------------------------------------------------------------
+
+@pytest.mark.parametrize("seed", [1, 2, 3])
+def test_nodal_forces_equal_twin_on_wavy_line(seed):
+    rng = np.random.default_rng(seed)
+    n, Lx = 64, 500.0
+    x, y = wavy_line(rng, n, Lx, 40.0, x0=rng.uniform(-Lx, Lx))
+    tau = rng.uniform(-0.01, 0.01, n)
+    fx, fy = np.zeros(n), np.zeros(n)
+    K.nodal_forces(x, y, n, params(Lx), tau, fx, fy)
+    ref = naive.nodal_forces(x, y, Lx, GAMMA, tau)
+    np.testing.assert_allclose(np.stack([fx, fy], 1), ref, rtol=1e-12, atol=1e-14)
+
+
+@pytest.mark.parametrize("seed,tau", [(4, 0.0), (5, 3e-3), (6, -2e-3)])
+def test_nodal_forces_equal_minus_energy_gradient(seed, tau):
+    # F_i = -∂E/∂r_i with E = Γ·length − τ·area (Hirth & Lothe 1982, ch. 6; physics.md)
+    rng = np.random.default_rng(seed)
+    n, Lx = 40, 400.0
+    x, y = wavy_line(rng, n, Lx, 30.0)
+    fx, fy = np.zeros(n), np.zeros(n)
+    K.nodal_forces(x, y, n, params(Lx), np.full(n, tau), fx, fy)
+    h = 1e-5
+    grad = np.zeros((n, 2))
+    for i in range(n):
+        for c, arr in enumerate((x, y)):
+            keep = arr[i]
+            arr[i] = keep + h
+            ep = naive.line_energy(x, y, Lx, GAMMA, tau)
+            arr[i] = keep - h
+            em = naive.line_energy(x, y, Lx, GAMMA, tau)
+            arr[i] = keep
+            grad[i, c] = (ep - em) / (2 * h)
+    # central differences of O(h²) on energies of O(Γ Lx): a few 1e-8 G b² of round-off
+    np.testing.assert_allclose(np.stack([fx, fy], 1), -grad, atol=1e-7)
+
+
+@pytest.mark.parametrize("seed", [7, 8])
+def test_segment_pass_equals_twin(seed):
+    rng = np.random.default_rng(seed)
+    n, Lx = 50, 300.0
+    x, y = wavy_line(rng, n, Lx, 20.0, x0=rng.uniform(-Lx, Lx), y0=rng.uniform(-1e3, 1e3))
+    pin = random_pins(rng, n, 0.2)
+    for lmin, lmax in ((0.0, np.inf), (5.5, 7.0), (1.0, 20.0)):
+        ux, uy, slen = np.zeros(n), np.zeros(n), np.zeros(n)
+        area, bad = K.segment_pass(x, y, n, pin, params(Lx, lmin=lmin, lmax=lmax), ux, uy, slen)
+        t, length, area_ref, bad_ref = naive.segment_pass(x, y, pin, Lx, lmin, lmax)
+        np.testing.assert_allclose(np.stack([ux, uy], 1), t, rtol=1e-12, atol=1e-15)
+        np.testing.assert_allclose(slen, length, rtol=1e-12)
+        assert area == pytest.approx(area_ref, rel=1e-12, abs=1e-9)
+        assert bad == bad_ref
+        assert K.line_area(x, y, n, Lx) == pytest.approx(area_ref, rel=1e-12, abs=1e-9)
+
+
+@pytest.mark.parametrize("seed,tau_f", [(9, 0.0), (10, 2e-3), (11, 1.0)])
+def test_node_pass_equals_twin(seed, tau_f):
+    rng = np.random.default_rng(seed)
+    n, Lx = 80, 800.0
+    x, y = wavy_line(rng, n, Lx, 60.0, x0=rng.uniform(-Lx, Lx))
+    pin = random_pins(rng, n, 0.15)
+    tau_int = rng.uniform(-1e-3, 1e-3, n)
+    prm = params(Lx, tau=4e-3, tau_f=tau_f, mobility=2.5)
+    w, _, _, (max_te, stiff, vmax) = run_node_pass(x, y, pin, prm, tau_int)
+    v, fpin, tchord, max_te_ref, stiff_ref, vmax_ref = naive.node_pass(
+        x, y, pin, Lx, GAMMA, 4e-3, tau_f, 2.5, tau_int)
+    np.testing.assert_allclose(np.stack([w.vx[:n], w.vy[:n]], 1), v, rtol=1e-10, atol=1e-15)
+    np.testing.assert_allclose(w.fpin[:n][pin >= 0], fpin[pin >= 0], rtol=1e-10, atol=1e-15)
+    np.testing.assert_allclose(np.stack([w.ntx[:n], w.nty[:n]], 1), tchord, rtol=1e-12, atol=1e-15)
+    assert max_te == pytest.approx(max_te_ref, rel=1e-10, abs=1e-18)
+    assert stiff == pytest.approx(stiff_ref, rel=1e-12)
+    assert vmax == pytest.approx(vmax_ref, rel=1e-10, abs=1e-18)
+
+
+@pytest.mark.parametrize("tau_over_tf", [0.0, 0.5, 1.0, 1.01, 2.0, 10.0])
+def test_straight_line_velocity_with_friction(tau_over_tf):
+    # friction threshold and overdamped glide: v = M (τ − τ_f) for τ > τ_f, else 0 (physics.md)
+    n, Lx, tau_f, mob = 32, 320.0, 1e-3, 3.0
+    x = (np.arange(n) + 0.5) * Lx / n
+    y = np.full(n, 7.0)
+    tau = tau_over_tf * tau_f
+    w, _, _, (max_te, _, vmax) = run_node_pass(x, y, np.full(n, -1), params(Lx, tau=tau, tau_f=tau_f,
+                                                                              mobility=mob))
+    expect = mob * max(tau - tau_f, 0.0)
+    np.testing.assert_allclose(w.vy[:n], expect, rtol=1e-12, atol=1e-18)
+    np.testing.assert_allclose(w.vx[:n], 0.0, atol=1e-18)
+    assert vmax == pytest.approx(expect, rel=1e-12, abs=1e-18)
+
+
+# --- capture ---------------------------------------------------------------------------------
+
+def run_captures(x, y, pin, ign, v, dt, ox, oy, opin, Lx, Ly, cell):
+    n = len(x)
+    cstart, citems, ncx, ncy = cells(ox, oy, Lx, Ly, cell)
+    w = Work(n)
+    ncap = K.find_captures(x, y, n, pin, ign, np.ascontiguousarray(v[:, 0]),
+                           np.ascontiguousarray(v[:, 1]), dt, ox, oy, opin, cstart, citems,
+                           ncx, ncy, params(Lx, Ly), w.cap_seg, w.cap_s, w.cap_obs, w.cap_x, w.cap_y)
+    return {int(w.cap_obs[c]): int(w.cap_seg[c]) for c in range(ncap)}, w, ncap
+
+
+CAPTURE_CASES = [
+    # seed, line x offset (b), line height (b), moving fraction: interior, and every seam
+    (21, 0.0, 500.0, 1.0),
+    (22, 0.0, 995.0, 1.0),      # crosses y = Ly while moving
+    (23, -37.0, 3.0, 0.7),      # segment n-1 and node 0 straddle x = 0; obstacles near y = 0
+    (24, 1000.0 - 5.0, -4.0, 1.0),  # unwrapped one period on; y below the box
+    (25, 2000.0 + 3.0, 3000.0 - 2.0, 0.5),  # several periods away in both directions
+]
+
+
+@pytest.mark.parametrize("seed,x0,y0,moving", CAPTURE_CASES)
+def test_find_captures_equals_brute_force(seed, x0, y0, moving):
+    rng = np.random.default_rng(seed)
+    Lx, Ly, n = 1000.0, 1000.0, 60
+    m = 3000
+    ox, oy = rng.uniform(0, Lx, m), rng.uniform(0, Ly, m)
+    # crowd the seams so that images matter
+    ox[:250] = rng.uniform(0, 8.0, 250)
+    ox[250:500] = Lx - rng.uniform(0, 8.0, 250)
+    oy[500:750] = rng.uniform(0, 8.0, 250)
+    oy[750:1000] = Ly - rng.uniform(0, 8.0, 250)
+    x, y = wavy_line(rng, n, Lx, 6.0, x0=x0, y0=y0)
+    v = rng.normal(0.0, 1.0, (n, 2)) + np.array([0.0, 2.0])
+    v[rng.random(n) > moving] = 0.0
+    dt = 3.0
+    pin = random_pins(rng, n, 0.1, m)
+    ign = np.full(n, -1, np.int64)
+    sel = rng.random(n) < 0.2
+    ign[sel] = rng.integers(0, m, sel.sum())
+    opin = np.zeros(m, np.int64)
+    opin[rng.choice(m, 200, replace=False)] = 1
+    found, w, ncap = run_captures(x, y, pin, ign, v, dt, ox, oy, opin, Lx, Ly, cell=50.0)
+    ref = naive.find_captures(x, y, pin, ign, v, dt, ox, oy, opin, Lx, Ly)
+    assert 5 < len(ref) < K.MAX_CAPTURES   # the case tests something, within one step's room
+    assert ncap == len(found)      # no obstacle captured twice
+    assert found == ref
+
+
+def test_find_captures_skips_obstacle_just_left():
+    # a released obstacle is not re-captured by the arms that just left it (physics.md)
+    Lx, Ly = 100.0, 100.0
+    x = np.array([10.0, 30.0, 50.0, 70.0, 90.0])
+    y = np.full(5, 50.0)
+    v = np.tile([0.0, 1.0], (5, 1))
+    ox, oy = np.array([40.0, 60.0]), np.array([50.5, 50.5])
+    ign = np.array([-1, 0, -1, -1, -1])
+    found, _, _ = run_captures(x, y, np.full(5, -1), ign, v, 1.0, ox, oy, np.zeros(2, np.int64),
+                               Lx, Ly, cell=25.0)
+    assert found == {1: 2}
+
+
+# --- remeshing -------------------------------------------------------------------------------
+
+def cells(ox, oy, Lx, Ly, cell):
+    """The periodic cell list of the field (ox, oy) in an Lx × Ly box."""
+    f = ObstacleField(np.asarray(ox, float), np.asarray(oy, float), np.zeros(len(ox)),
+                      np.full(len(ox), np.inf), np.zeros(len(ox), np.int64), Lx, Ly, cell, "random")
+    return f.cell_list()
+
+
+def remeshed(x, y, pin, prm, ox=(), oy=()):
+    n = len(x)
+    cap = 8 * n + 64
+    xs, ys, ps, gs = padded(x, cap, 0.0), padded(y, cap, 0.0), padded(pin, cap, -1), np.full(cap, -1)
+    xo, yo, po, go = np.zeros(cap), np.zeros(cap), np.full(cap, -1), np.full(cap, -1)
+    Lx, Ly = prm[K.P_LX], prm[K.P_LY]
+    cstart, citems, ncx, ncy = cells(ox, oy, Lx, Ly, Lx / 4)
+    m = K.remesh(xs, ys, ps, gs, n, prm, xo, yo, po, go, np.asarray(ox, float),
+                 np.asarray(oy, float), np.zeros(len(ox), np.int64), cstart, citems, ncx, ncy)
+    return xo[:m], yo[:m], po[:m]
+
+
+@pytest.mark.parametrize("seed", [31, 32, 33, 34])
+def test_remesh_bounds_pins_and_period(seed):
+    rng = np.random.default_rng(seed)
+    Lx, n = 1000.0, 120
+    x, y = wavy_line(rng, n, Lx, 30.0, jitter=0.95)
+    x[rng.random(n) < 0.1] += rng.uniform(-2, 2)      # some very short segments
+    x = np.sort(x)
+    pin = random_pins(rng, n, 0.1)
+    lmin, lmax = 4.0, 12.0
+    xo, yo, po = remeshed(x, y, pin, params(Lx, lmin=lmin, lmax=lmax))
+    # pinned nodes are never removed nor moved
+    held = {int(p): (a, b) for a, b, p in zip(x, y, pin) if p >= 0}
+    got = {int(p): (a, b) for a, b, p in zip(xo, yo, po) if p >= 0}
+    assert got == held
+    # one period, in order: node m is node 0 shifted by (Lx, 0)
+    dx = np.diff(np.append(xo, xo[0] + Lx))
+    assert np.all(dx > 0)
+    assert np.sum(dx) == pytest.approx(Lx)
+    assert 0.0 <= xo[0] < Lx
+    # every segment within bounds, except short ones between two pinned nodes
+    length = np.hypot(dx, np.diff(np.append(yo, yo[0])))
+    both_pinned = (po >= 0) & (np.roll(po, -1) >= 0)
+    assert np.all(length <= lmax * (1 + 1e-12))
+    assert np.all((length >= lmin) | both_pinned)
+
+
+def test_remesh_removes_short_arm_at_node_zero():
+    # the seam is not special: a free node 0 next to a pinned node n-1 loses its short arm
+    Lx = 100.0
+    x = np.array([1.0, 20.0, 40.0, 60.0, 80.0, 99.5])
+    y = np.zeros(6)
+    pin = np.array([-1, -1, -1, -1, -1, 3])
+    xo, yo, po = remeshed(x, y, pin, params(Lx, lmin=5.0, lmax=30.0))
+    length = np.hypot(np.diff(np.append(xo, xo[0] + Lx)), np.diff(np.append(yo, yo[0])))
+    assert length.min() >= 5.0
+    assert 3 in set(po.tolist())
+
+
+@pytest.mark.parametrize("radius_over_l", [3.0, 8.0, 30.0])
+def test_remesh_keeps_circular_arc(radius_over_l):
+    # a bowed segment pinned at both ends is a circular arc of radius Γ/(τb) (physics.md); the
+    # inserted nodes must stay on it, not on the chords (a flattened line would lose area)
+    lmax = 10.0
+    R = radius_over_l * lmax
+    span = 1.6 * R
+    half = np.arcsin(0.5 * span / R)
+    segs = int(2 * half * R / (2.5 * lmax))   # arc nodes about 2.5 l_max apart
+    theta = np.linspace(-half, half, segs + 1)
+    x = R * np.sin(theta) + 0.5 * span
+    y = R * np.cos(theta) - R * np.cos(half)
+    # the last arc node is node 0 shifted by (Lx, 0): drop it; node 0 is pinned (the arc's ends)
+    Lx = span
+    x, y = x[:-1], y[:-1]
+    pin = np.full(segs, -1)
+    pin[0] = 0
+    chord = 2 * R * np.sin(half / segs)
+    assert chord > 2 * lmax
+    prm = params(Lx, Ly=10 * Lx, lmin=0.3 * lmax, lmax=lmax)
+    xo, yo, po = remeshed(x, y, pin, prm)
+    assert len(xo) >= 3 * len(x)
+    r = np.hypot(xo - 0.5 * span, yo + R * np.cos(half))
+    sagitta = R * (1 - np.cos(half / segs))
+    # The new nodes sit on the parabola of the arc's three-point curvature, whose mid-chord offset
+    # l²/(8R) is cos²(α/4) of the true sagitta (α = half/segs... the chord's half angle is
+    # half/segs): a relative error of sin²(α/2).  Points on the chord would be off by the whole
+    # sagitta.
+    alpha = half / segs
+    assert np.max(np.abs(r - R)) <= (1.2 * np.sin(0.5 * alpha) ** 2 + 1e-9) * sagitta
+    assert np.max(np.abs(r - R)) < 0.1 * sagitta
+
+
+def test_remesh_does_not_tunnel():
+    # an obstacle between a long chord and its arc: the new nodes go on the chord, not past it;
+    # an obstacle in the corner a removal would cut: the node stays
+    Lx, Ly = 200.0, 200.0
+    t = np.linspace(0.0, np.pi, 5)[:-1]
+    x = 100.0 - 90.0 * np.cos(t)
+    y = 50.0 + 60.0 * np.sin(t)             # an upward arc whose segments are ~70 b long
+    pin = np.array([0, -1, -1, -1])
+    prm = params(Lx, Ly, lmin=5.0, lmax=30.0)
+    xa, ya, _ = remeshed(x, y, pin, prm)
+    mid = 0.5 * (np.array([x[1], y[1]]) + np.array([x[2], y[2]]))
+    outward = mid - np.array([100.0, 50.0])
+    ob = mid + 0.3 * outward / np.linalg.norm(outward)   # just beyond the chord 1-2, inside the arc
+    xb, yb, _ = remeshed(x, y, pin, prm, [ob[0]], [ob[1]])
+    on_chord = (xb > x[1]) & (xb < x[2])
+    assert np.count_nonzero(on_chord) >= 2
+    chord = np.array([x[2] - x[1], y[2] - y[1]])
+    normal = np.array([-chord[1], chord[0]]) / np.linalg.norm(chord)
+    dist = (np.stack([xb[on_chord], yb[on_chord]], 1) - [x[1], y[1]]) @ normal
+    np.testing.assert_allclose(dist, 0.0, atol=1e-9)
+    # without the obstacle the same nodes bulge off the chord
+    sel = (xa > x[1]) & (xa < x[2])
+    assert np.all(np.abs((np.stack([xa[sel], ya[sel]], 1) - [x[1], y[1]]) @ normal) > 1.0)
+    # a corner: node 2 has a 3.6 b arm; an obstacle inside triangle (1, 2, 3) keeps it
+    xc = np.array([10.0, 40.0, 60.0, 62.0, 90.0, 120.0, 150.0, 180.0])
+    yc = np.array([0.0, 0.0, 0.0, 3.0, 0.0, 0.0, 0.0, 0.0])
+    free = np.full(8, -1)
+    x1, _, _ = remeshed(xc, yc, free, prm)
+    assert 60.0 not in set(x1.tolist())
+    x2, _, _ = remeshed(xc, yc, free, prm, [58.0], [0.5])
+    assert 60.0 in set(x2.tolist())
+
+
+# --- contact and reconnection ------------------------------------------------------------------
+
+def hairpin(n_side=12, gap=2.0, h=5.0, Lx=400.0):
+    """A straight line with a narrow hairpin pushed up around a pinned node at its tip."""
+    left = np.arange(0, 160.0, h)
+    up = np.arange(h, n_side * h, h)
+    xs = list(left) + [160.0] * len(up) + [160.0 + gap / 2] + [160.0 + gap] * len(up)
+    ys = [0.0] * len(left) + list(up) + [n_side * h] + list(up[::-1])
+    right = np.arange(160.0 + gap + h, Lx, h)
+    xs += list(right)
+    ys += [0.0] * len(right)
+    x, y = np.array(xs) + 0.1, np.array(ys)
+    pin = np.full(len(x), -1, np.int64)
+    pin[len(left) + len(up)] = 5                  # the tip holds obstacle 5
+    return x, y, pin, Lx
+
+
+@pytest.mark.parametrize("gap,expect", [(2.0, True), (12.0, False)])
+def test_find_contact_equals_brute_force(gap, expect):
+    x, y, pin, Lx = hairpin(gap=gap)
+    n = len(x)
+    prm = params(Lx, lmax=7.5, dann=2.5)
+    w, _, _, _ = run_node_pass(x, y, pin, prm)
+    i, j = K.find_contact(x, y, n, pin, w.ntx, w.nty, prm, w.head, w.nxt)
+    ref = naive.find_contacts(x, y, pin, np.stack([w.ntx[:n], w.nty[:n]], 1), Lx, 2.5,
+                              K.RECONNECT_MIN_SEPARATION, K.RECONNECT_COS)
+    assert bool(ref) == expect
+    assert ((i, j) in ref) if ref else (i, j) == (-1, -1)
+
+
+@pytest.mark.parametrize("seed", [41, 42, 43])
+def test_find_contact_equals_brute_force_on_folded_lines(seed):
+    rng = np.random.default_rng(seed)
+    n, Lx = 150, 600.0
+    t = np.arange(n) / n
+    # a line that folds back on itself in loops: x(t) not monotonic
+    x = Lx * t + 25.0 * np.sin(2 * np.pi * 7 * t + rng.uniform(0, 6))
+    y = 25.0 * np.cos(2 * np.pi * 7 * t) + rng.normal(0, 2.0, n)
+    x, y = x + rng.uniform(-Lx, Lx), y
+    pin = random_pins(rng, n, 0.05)
+    prm = params(Lx, lmax=16.0, dann=rng.uniform(3.0, 8.0))
+    w, _, _, _ = run_node_pass(x, y, pin, prm)
+    i, j = K.find_contact(x, y, n, pin, w.ntx, w.nty, prm, w.head, w.nxt)
+    ref = naive.find_contacts(x, y, pin, np.stack([w.ntx[:n], w.nty[:n]], 1), Lx,
+                              prm[K.P_DANN], K.RECONNECT_MIN_SEPARATION, K.RECONNECT_COS)
+    assert ((i, j) in ref) if ref else (i, j) == (-1, -1)
+
+
+def test_reconnect_leaves_line_and_loop():
+    x, y, pin, Lx = hairpin(gap=2.0)
+    n = len(x)
+    prm = params(Lx, lmax=7.5, dann=2.5)
+    w, _, _, _ = run_node_pass(x, y, pin, prm)
+    i, j = K.find_contact(x, y, n, pin, w.ntx, w.nty, prm, w.head, w.nxt)
+    cap = 4 * n
+    xs, ys, ps, gs = padded(x, cap, 0.0), padded(y, cap, 0.0), padded(pin, cap, -1), np.full(cap, -1)
+    meta = np.zeros(K.N_META, np.int64)
+    lx, ly, lp, loff = np.zeros(cap), np.zeros(cap), np.full(cap, -1), np.zeros(cap, np.int64)
+    m = K.reconnect(xs, ys, ps, gs, n, i, j, Lx, meta, lx, ly, lp, loff)
+    used = int(meta[K.M_NLOOPNODES])
+    assert meta[K.M_NLOOPS] == 1
+    assert m + used == n - 1                      # nodes i and j merge into one
+    assert 5 in set(lp[:used].tolist())            # the loop holds the obstacle
+    assert 5 not in set(ps[:m].tolist())
+    # the loop is cut off where the legs touch: the line keeps the part below, the loop the rest
+    assert np.min(ly[:used]) >= np.max(ys[:m]) - 1e-12
+    assert naive.line_area(xs[:m], ys[:m], Lx) < naive.line_area(x, y, Lx)
+
+
+# --- whole relaxation: no tunnelling -------------------------------------------------------------
+
+def below_line(px, py, x, y, Lx):
+    """Points strictly below the periodic line (odd number of crossings of the upward ray)."""
+    xc, yc = naive.closed(x, y, Lx)
+    count = np.zeros(len(px), dtype=np.int64)
+    for shift in (-Lx, 0.0, Lx):
+        ax, bx = xc[:-1] + shift, xc[1:] + shift
+        ay, by = yc[:-1], yc[1:]
+        straddle = (ax[None, :] <= px[:, None]) != (bx[None, :] <= px[:, None])
+        with np.errstate(divide="ignore", invalid="ignore"):
+            s = (px[:, None] - ax[None, :]) / (bx - ax)[None, :]
+        yy = ay[None, :] + s * (by - ay)[None, :]
+        count += np.sum(straddle & (yy > py[:, None]), axis=1)
+    return count % 2 == 1
+
+
+def inside_polygon(px, py, x, y):
+    xc, yc = np.append(x, x[0]), np.append(y, y[0])
+    ax, bx, ay, by = xc[:-1], xc[1:], yc[:-1], yc[1:]
+    straddle = (ay[None, :] <= py[:, None]) != (by[None, :] <= py[:, None])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        s = (py[:, None] - ay[None, :]) / (by - ay)[None, :]
+    xx = ax[None, :] + s * (bx - ax)[None, :]
+    return np.sum(straddle & (xx > px[:, None]), axis=1) % 2 == 1
+
+
+@pytest.mark.parametrize("seed", [51, 52, 53])
+def test_relaxation_never_tunnels(seed):
+    # an impenetrable point the line has swept past must be held by the line or by an Orowan loop
+    rng = np.random.default_rng(seed)
+    Ls = 100.0
+    Lx, Ly = 10 * Ls, 40 * Ls
+    field = random_field(Lx, Ly, Ls ** -2, np.inf, rng)
+    model = LineModel(GAMMA, node_spacing=0.6 * Ls)      # large node spacing: long steps
+    tau = 5 * 2 * GAMMA / Ls
+    y0 = 1.0
+    protocol = Protocol(0.1 * tau, 1e-6 * tau, 25 * Ls, 0, 4000, 10 * tau)
+    relaxer = Relaxer(field, model)
+    state = LineState.straight(Lx, y0, model.node_spacing)
+    checks = []
+
+    def check(st, _tau, _steps):
+        n = st.n
+        x, y = st.x[:n], st.y[:n]
+        px = field.x + Lx * np.floor((x[0] - field.x) / Lx + 1.0)  # images in [x0, x0 + Lx)
+        swept = below_line(px, field.y, x, y, Lx) & (field.y > y0)
+        for lx, ly, _ in st.loops():          # a loop lies at any periodic image in x
+            for k in (-2, -1, 0, 1, 2):
+                swept &= ~inside_polygon(px + k * Lx, field.y, lx, ly)
+        held = relaxer.occupancy(st) > 0
+        checks.append(int(swept.sum()))
+        assert not np.any(swept & ~held), np.flatnonzero(swept & ~held)
+
+    name, steps = relaxer.relax(state, tau, state.area(), protocol, chunk=5, on_chunk=check)
+    assert name == "flowing"
+    assert state.meta[K.M_CAPTURES] > 20 and state.n_loops > 10
+    assert max(checks) > 20
