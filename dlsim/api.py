@@ -25,6 +25,12 @@ MAX_STRESS_IN_OROWAN = 5.0
 #: Random periodic boxes smaller than this many L_s on a side bias the CRSS upward (Nogaret &
 #: Rodney, Phys. Rev. B 74, 2006); 30 is common practice, not a value from that paper.
 MIN_BOX_IN_SPACINGS = 30.0
+#: The line sent through the field after the CRSS search (:func:`sweep_through`) is driven at the
+#: upper bracket stress; it flows there by construction, but a later particle arrangement can be a
+#: little stronger than the first and pin it again: the stress then rises by this fraction, up to
+#: SWEEP_TRIES times (a choice of dlsim).
+SWEEP_MARGIN = 0.05
+SWEEP_TRIES = 20
 #: Two-sided confidence level of ``crss_MPa_ci95`` (Student t).
 CONFIDENCE = 0.95
 
@@ -169,25 +175,41 @@ def _search(case: Case, obstacles: ObstacleField, show=None, every: int = 0, sna
                      on_snapshot=snap, on_relaxation=show)
 
 
-def sweep_through(case: Case, obstacles: ObstacleField, search: CrssResult) -> LineState:
-    """The line after it crossed the field once at the upper end of the CRSS bracket.
+def sweep_through(obstacles: ObstacleField, model: LineModel, protocol: Protocol,
+                  search: CrssResult) -> LineState:
+    """The line after it crossed the field once, at (or SWEEP_MARGIN steps above) the upper end
+    of the CRSS bracket.
 
-    Starts from the last pinned configuration and relaxes at ``search.hi`` until the line has
-    glided one box height Ly past it, so it has met every particle once; its Orowan loops are
-    the ones a dislocation leaves behind (the pinned line at the CRSS holds only the first).
+    Starts from the last pinned configuration (which may already have left loops) and relaxes at
+    ``search.hi``, one spacing of glide at a time, until every node of the line lies beyond the
+    box height Ly: every particle of the box has been met, and the Orowan loops are the ones a
+    dislocation leaves behind (the pinned line at the CRSS holds only the first ones).  Loops the
+    line left around periodic images beyond Ly are told apart by :func:`loop_particles`.
     """
-    model, protocol, _ = model_and_protocol(case, obstacles.spacing)
     state = search.line.copy()
-    if np.isfinite(search.hi):
-        once = dataclasses.replace(protocol, flow_distance=obstacles.Ly)
-        Relaxer(obstacles, model).relax(state, search.hi, state.area(), once)
+    if not np.isfinite(search.hi):
+        return state
+    relaxer, tau = Relaxer(obstacles, model), search.hi
+    step = dataclasses.replace(protocol, flow_distance=obstacles.spacing)
+    budget = SWEEP_TRIES + int(4 * obstacles.Ly / obstacles.spacing)
+    for _ in range(budget):
+        if state.y[: state.n].min() >= obstacles.Ly:
+            break
+        if relaxer.relax(state, tau, state.area(), step)[0] != "flowing":
+            tau *= 1.0 + SWEEP_MARGIN
     return state
 
 
-def loop_particles(obstacles: ObstacleField, state: LineState) -> list[np.ndarray]:
-    """The particles each Orowan loop of ``state`` holds (row indices of the field's table)."""
+def loop_particles(obstacles: ObstacleField, state: LineState, first_crossing: bool = True
+                   ) -> list[np.ndarray]:
+    """The particles each Orowan loop of ``state`` holds (row indices of the field's table).
+
+    With ``first_crossing`` only loops whose centre lies inside the box (mean y < Ly) count: the
+    line's y is unwrapped, so loops around periodic images met a second time are left out.
+    """
     owner = obstacles.owner
-    return [np.unique(owner[pin[pin >= 0]]) for _, _, pin in state.loops()]
+    return [np.unique(owner[pin[pin >= 0]]) for _, ly, pin in state.loops()
+            if not first_crossing or ly.mean() < obstacles.Ly]
 
 
 def loops_per_particle(obstacles: ObstacleField, state: LineState) -> np.ndarray:
@@ -214,7 +236,8 @@ def _passes(case: Case, table: ParticleTable, show=None, every: int = 0, snap=No
         current = table if k == 0 else enlarged_table(table, loops, spacing)
         obstacles = population_field(case, table=current)
         search = _search(case, obstacles, show, every if k == 0 else 0, snap if k == 0 else None)
-        swept = sweep_through(case, obstacles, search)
+        model, protocol, _ = model_and_protocol(case, obstacles.spacing)
+        swept = sweep_through(obstacles, model, protocol, search)
         out.append((obstacles, search, swept))
         loops = loops + loops_per_particle(obstacles, swept)
     return out
@@ -410,7 +433,7 @@ def write_run(folder: Path, case: Case, obstacles: ObstacleField, search: CrssRe
     state = search.line if swept is None else swept
     loops = state.loops()
     if loops:
-        held = loop_particles(obstacles, state)
+        held = loop_particles(obstacles, state, first_crossing=False)
         output.write_table(folder / output.LOOPS, ("loop", "particle", "x_nm", "y_nm"), (
             (k, int(held[k][0]) if held[k].size else -1, float(u.length_nm(xx)),
              float(u.length_nm(yy)))
