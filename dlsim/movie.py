@@ -16,7 +16,7 @@ import numpy as np
 from matplotlib.figure import Figure
 
 from .errors import DlsimError
-from .plots import STYLE, draw_field, draw_line, read_run, wrap_polyline
+from .plots import STYLE, close_period, draw_field, draw_line, read_run, wrap_polyline
 
 MOVIE_FORMATS = ("gif", "mp4")
 # 6 × 5 in at 80 dpi: 480 × 400 px (even sides, as H.264 requires); at most DEFAULT_MAX_FRAMES
@@ -145,7 +145,7 @@ def _scene(run: dict, snaps: dict):
     def update(i: int) -> None:
         sl = slice(offsets[i], offsets[i + 1])
         x, y, pinned = snaps["x_nm"][sl], snaps["y_nm"][sl], snaps["pinned"][sl].astype(bool)
-        curve.set_data(*wrap_polyline(x, y, box))
+        curve.set_data(*wrap_polyline(*close_period(x, y, box[0]), box))
         pins.set_data(np.mod(x[pinned], box[0]), np.mod(y[pinned], box[1]))
         title.set_text(f"τ = {snaps['stress_MPa'][i]:.4g} MPa   step {snaps['step'][i]}")
 

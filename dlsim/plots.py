@@ -102,7 +102,8 @@ def key_label(key: str) -> str:
 def value_label(key: str, value) -> str:
     """``"obstacles.spacing_nm", 30`` → ``"spacing = 30 nm"``."""
     name, _, unit = key_label(key).partition(" (")
-    return f"{name} = {_fmt(value)}" + (f" {unit[:-1]}" if unit else "")
+    unit = unit[:-1]
+    return f"{name} = {_fmt(value)}" + ("" if unit in ("", "°") else " ") + unit
 
 
 def _short_names(keys: list[str]) -> dict[str, str]:
@@ -112,7 +113,7 @@ def _short_names(keys: list[str]) -> dict[str, str]:
 
 
 def _fmt(value) -> str:
-    return f"{value:g}" if isinstance(value, (float, np.floating)) else str(value)
+    return f"{value:.4g}" if isinstance(value, (float, np.floating)) else str(value)
 
 
 # --------------------------------------------------------------------------- sweep figures
@@ -164,6 +165,7 @@ def plot_sweep(folder, quantity: str = "crss", x: str | None = None) -> list[Pat
         ax.set_ylabel(QUANTITIES[quantity])
         if meta["scales"].get(x) == "log":
             ax.set_xscale("log")
+            _log_ticks(ax, table[x][rows])
         ax.set_title(", ".join([meta["title"]] * bool(meta.get("title"))
                                + [value_label(k, v) for k, v in zip(rest, combo)]))
         ax.legend(loc="best", frameon=False)
@@ -195,24 +197,49 @@ def _roles(meta: dict, table: dict, x: str | None) -> tuple[str, str | None, lis
 
 
 def _draw_curves(ax, table: dict, rows: np.ndarray, x: str, curve: str | None, q: str) -> None:
+    """Simulated means with CI bars per curve; estimates in the curve's colour.
+
+    Without estimates in the results, the Orowan stress 2Γ/(bL) (always reported) is drawn for
+    CRSS: once in grey when every curve has the same values, otherwise per curve.
+    """
     estimates = [c for c in table if c.startswith("estimate_")]
-    if not estimates and q == "crss" and "orowan_MPa" in table:
-        estimates = ["orowan_MPa"]  # the Orowan stress 2Γ/(bL) is always known
     values = _distinct(table[curve][rows]) if curve else [None]
+    orowan = []
     for i, value in enumerate(values):
         sel = rows & (table[curve] == value) if curve else rows
-        xs = table[x][sel]
-        order = np.argsort(xs) if xs.dtype != object else np.arange(xs.size)
-        mean = table[f"{q}_mean_MPa"][sel][order]
-        lo = np.nan_to_num(mean - table[f"{q}_ci95_lo_MPa"][sel][order])
-        hi = np.nan_to_num(table[f"{q}_ci95_hi_MPa"][sel][order] - mean)
+        xs, (mean, lo, hi) = _sorted(table, sel, x, [f"{q}_mean_MPa", f"{q}_ci95_lo_MPa",
+                                                     f"{q}_ci95_hi_MPa"])
         label = value_label(curve, value) if curve else "simulation"
-        bars = ax.errorbar(xs[order], mean, yerr=[lo, hi], marker="o", capsize=4, label=label)
+        bars = ax.errorbar(xs, mean, yerr=[np.nan_to_num(mean - lo), np.nan_to_num(hi - mean)],
+                           marker="o", capsize=4, label=label)
         colour = bars[0].get_color()
-        for style, col in zip(itertools.cycle(ESTIMATE_STYLES), estimates):
+        for style, col in zip(itertools.cycle(ESTIMATE_STYLES), estimates if q == "crss" else []):
             name = col.removeprefix("estimate_").removesuffix("_MPa")
-            ax.plot(xs[order], table[col][sel][order], linestyle=style, color=colour,
+            ax.plot(xs, _sorted(table, sel, x, [col])[1][0], linestyle=style, color=colour,
                     linewidth=1.5, label=f"{name} estimate" if i == 0 else None)
+        if not estimates and q == "crss" and "orowan_MPa" in table:
+            orowan.append((xs, _sorted(table, sel, x, ["orowan_MPa"])[1][0], colour))
+    shared = all(len(o[0]) == len(orowan[0][0]) and np.array_equal(o[0], orowan[0][0]) and
+                 np.allclose(o[1], orowan[0][1]) for o in orowan)
+    for k, (xs, tau, colour) in enumerate(orowan[:1] if shared else orowan):
+        ax.plot(xs, tau, linestyle=":", linewidth=1.5, color="0.35" if shared else colour,
+                label="Orowan 2Γ/(bL)" if k == 0 else None)
+
+
+def _sorted(table: dict, sel: np.ndarray, x: str, cols: list[str]):
+    """The selected x values in increasing order and the given columns in the same order."""
+    xs = table[x][sel]
+    order = np.argsort(xs) if xs.dtype != object else np.arange(xs.size)
+    return xs[order], [table[c][sel][order] for c in cols]
+
+
+def _log_ticks(ax, xs: np.ndarray) -> None:
+    """Plain-number ticks at the swept values (a sweep has few, and 3×10¹ reads badly)."""
+    from matplotlib.ticker import NullFormatter
+
+    ticks = np.unique(xs.astype(float))
+    ax.set_xticks(ticks, labels=[f"{t:.3g}" for t in ticks])
+    ax.xaxis.set_minor_formatter(NullFormatter())
 
 
 # --------------------------------------------------------------------------- run figures
@@ -253,6 +280,13 @@ def wrap_polyline(x: np.ndarray, y: np.ndarray, box: tuple[float, float]):
     return np.insert(xw, jump, np.nan), np.insert(yw, jump, np.nan)
 
 
+def close_period(x: np.ndarray, y: np.ndarray, Lx: float) -> tuple[np.ndarray, np.ndarray]:
+    """Append node n = node 0 shifted by (Lx, 0), so the drawn line spans the whole period."""
+    if x.size == 0:
+        return x, y
+    return np.append(x, x[0] + Lx), np.append(y, y[0])
+
+
 def draw_field(ax, obstacles: dict, box: tuple[float, float]) -> None:
     """Obstacles on ``ax``: points as dots, finite particles as discs of their radius (nm)."""
     Lx, Ly = box
@@ -277,8 +311,11 @@ def _box_patch(Lx: float, Ly: float):
 
 
 def draw_line(ax, x, y, pinned, box, **style):
-    """A line (nm, unwrapped) folded into the box, its pinned nodes marked; returns the artists."""
-    xw, yw = wrap_polyline(x, y, box)
+    """A line (nm, unwrapped) folded into the box, its pinned nodes marked; returns the artists.
+
+    The files hold nodes 0..n-1 of the periodic line; node n is node 0 shifted by Lx.
+    """
+    xw, yw = wrap_polyline(*close_period(x, y, box[0]), box)
     (curve,) = ax.plot(xw, yw, color=style.get("color", "C0"), linewidth=2.0, zorder=3)
     (pins,) = ax.plot(np.mod(x[pinned], box[0]), np.mod(y[pinned], box[1]), "o", color="C3",
                       markersize=5, zorder=4)

@@ -14,7 +14,7 @@ from dlsim.errors import DlsimError
 from dlsim.movie import MOVIE_DPI, MOVIE_SIZE_IN, make_movie, scale_bar_length, thin_frames
 from test_sweep import TINY_CASE
 
-MOVIE_CASE = TINY_CASE + "[output]\nsnapshot_every = 1\n"
+MOVIE_CASE = TINY_CASE + "[output]\nsnapshot_every = 1000\n"  # time steps: about 40 frames
 
 
 @pytest.fixture(scope="module")
