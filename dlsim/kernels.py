@@ -66,6 +66,12 @@ MAX_MOVE_FRACTION = 0.25
 #: Captures recorded in one step at the most (a step moves each node by < l_min/4, so even dense
 #: fields capture a handful).
 MAX_CAPTURES = 256
+#: Clearance of a node whose distance to the nearest free obstacle is not known (must be measured
+#: before the node can vouch that its segments sweep no obstacle).
+UNKNOWN = -np.inf
+#: A node closer to a free obstacle than its half-segment measures its clearance again only after
+#: moving this fraction of l_min (until then its segments are always tested exactly).
+REFRESH_FRACTION = 0.25
 #: The remesher never thins a line below this many nodes.
 MIN_NODES = 4
 #: Nodes closer than this many places along the line are never reconnected with each other.  The
@@ -122,8 +128,29 @@ def nodal_forces(x, y, n, prm, tau_node, fx, fy):
 
 
 @njit(**JIT)
-def segment_pass(x, y, n, pin, prm, ux, uy, slen):
-    """Unit tangent and length of every segment; area under the line; whether to remesh.
+def node_pass(x, y, n, pin, prm, tau_int, vx, vy, fpin, ntx, nty):
+    """Forces, friction and velocities of every node in one pass over the line.
+
+    At a free node the local driving stress ``τ_loc = F·n/l`` (``F`` line tension plus
+    Peach–Koehler, ``n`` the normal of the chord r_{i+1} − r_{i−1}, ``l`` the nodal length) is
+    reduced by the friction threshold τ_f (no motion while |τ_loc| <= τ_f); the node moves along
+    ``n`` at ``M τ_eff``.  A pinned node does not move; ``fpin`` receives the magnitude of the force
+    the line exerts on it, with the Peach–Koehler part reduced by friction like everywhere else.
+    ``ntx, nty`` receive the unit chord tangent at each node.  Each segment is computed once and
+    carried to the next node, so every node's data is read once per pass.
+
+    Parameters
+    ----------
+    x, y : (>= n,) float64
+        Node positions (b); node n is node 0 shifted by (Lx, 0).
+    pin : (>= n,) int64
+        Obstacle holding each node, -1 if free.
+    prm : (N_PRM,) float64
+        Parameters (Γ, τ, τ_f, M, l_min, l_max, Lx used here).
+    tau_int : (>= n,) float64
+        Internal resolved shear stress at each node (G), added to the applied stress.
+    vx, vy, fpin, ntx, nty : (>= n,) float64
+        Outputs: velocity (b per time unit), pin force (G b²), unit chord tangent.
 
     Returns
     -------
@@ -131,96 +158,77 @@ def segment_pass(x, y, n, pin, prm, ux, uy, slen):
         Signed area between the line and y = 0 over one period (b²), as :func:`line_area`.
     remesh_needed : bool
         Some segment with a free end is shorter than l_min, or some segment longer than l_max.
-    """
-    Lx, lmin, lmax = prm[P_LX], prm[P_LMIN], prm[P_LMAX]
-    area = 0.0
-    bad = False
-    for i in range(n):
-        j = i + 1 if i < n - 1 else 0
-        xj = x[j] if i < n - 1 else x[j] + Lx
-        ex, ey = xj - x[i], y[j] - y[i]
-        length = np.sqrt(ex * ex + ey * ey)
-        inv = 1.0 / length
-        ux[i], uy[i], slen[i] = ex * inv, ey * inv, length
-        area += 0.5 * ex * (y[i] + y[j])
-        if length > lmax or (length < lmin and (pin[i] < 0 or pin[j] < 0)):
-            bad = True
-    return area, bad
-
-
-@njit(**JIT)
-def node_pass(x, y, n, pin, prm, tau_int, ux, uy, slen, vx, vy, fpin, ntx, nty):
-    """Overdamped velocities of the free nodes and the force on each pinned node.
-
-    The local driving stress ``τ_loc = F·n/l`` at a free node (``F`` line tension plus
-    Peach–Koehler, ``n`` the node normal, ``l`` the nodal length) is reduced by the friction
-    threshold τ_f (no motion while |τ_loc| <= τ_f); the node moves along its normal at ``M τ_eff``.
-    A pinned node does not move; ``fpin`` receives the magnitude of the force the line exerts on it,
-    the Peach–Koehler part of its two half-segments reduced by friction like everywhere else.
-    ``ntx, nty`` receive the unit chord tangent at each node.
-
-    Parameters
-    ----------
-    tau_int : (>= n,) float64
-        Internal resolved shear stress at each node (G), added to the applied stress.
-    ux, uy, slen : (>= n,) float64
-        Segment tangents and lengths from :func:`segment_pass`.
-
-    Returns
-    -------
     max_tau_eff : float
         Largest |τ_eff| over free nodes (G): the equilibrium residual.
     stiffness : float
         Largest 1/(a b) over free nodes with arms a, b (b⁻²), for the stable time step.
     vmax : float
         Largest node speed.
+    n_turned : int
+        Free nodes whose chord tangent has t_x < 1/2: only these can start a contact
+        (:func:`find_contact`).
     """
-    gamma, tau, tau_f, mob, Lx = prm[P_GAMMA], prm[P_TAU], prm[P_TAUF], prm[P_MOB], prm[P_LX]
+    gamma, tau, tau_f, mob = prm[P_GAMMA], prm[P_TAU], prm[P_TAUF], prm[P_MOB]
+    Lx, lmin, lmax = prm[P_LX], prm[P_LMIN], prm[P_LMAX]
+    # the arm behind node 0 is segment n-1, across the seam
+    ax, ay = x[0] + Lx - x[n - 1], y[0] - y[n - 1]
+    a = np.sqrt(ax * ax + ay * ay)
+    uax, uay = ax / a, ay / a
+    area = 0.0
+    bad = False
     max_te = 0.0
-    stiff = 0.0
+    min_ab = np.inf
     vmax = 0.0
+    turned = 0
     for i in range(n):
-        k = i - 1 if i > 0 else n - 1
-        a, b = slen[k], slen[i]
-        cx = a * ux[k] + b * ux[i]      # chord r_{i+1} - r_{i-1}
-        cy = a * uy[k] + b * uy[i]
-        tx = gamma * (ux[i] - ux[k])
-        ty = gamma * (uy[i] - uy[k])
+        xi, yi, pi = x[i], y[i], pin[i]
+        if i < n - 1:
+            xj, yj, pj = x[i + 1], y[i + 1], pin[i + 1]
+        else:
+            xj, yj, pj = x[0] + Lx, y[0], pin[0]
+        bx, by = xj - xi, yj - yi
+        b = np.sqrt(bx * bx + by * by)
+        inv_b = 1.0 / b
+        ubx, uby = bx * inv_b, by * inv_b
+        area += 0.5 * bx * (yi + yj)
+        if b > lmax or (b < lmin and (pi < 0 or pj < 0)):
+            bad = True
+        cx, cy = ax + bx, ay + by           # chord r_{i+1} - r_{i-1}
+        tx, ty = gamma * (ubx - uax), gamma * (uby - uay)
         c = np.sqrt(cx * cx + cy * cy)
-        ntx[i], nty[i] = cx / c, cy / c
+        inv_c = 1.0 / c
+        tnx, tny = cx * inv_c, cy * inv_c
+        ntx[i], nty[i] = tnx, tny
         t_node = tau + tau_int[i]
-        if pin[i] >= 0:
-            t_pk = abs(t_node) - tau_f
-            if t_pk < 0.0:
-                t_pk = 0.0
+        if pi >= 0:
+            t_pk = max(abs(t_node) - tau_f, 0.0)
             if t_node < 0.0:
                 t_pk = -t_pk
-            px = tx - 0.5 * t_pk * cy
-            py = ty + 0.5 * t_pk * cx
+            px, py = tx - 0.5 * t_pk * cy, ty + 0.5 * t_pk * cx
             fpin[i] = np.sqrt(px * px + py * py)
             vx[i] = 0.0
             vy[i] = 0.0
-            continue
-        nx, ny = -nty[i], ntx[i]
-        t_loc = (tx * nx + ty * ny + 0.5 * t_node * c) / (0.5 * (a + b))
-        t_eff = abs(t_loc) - tau_f
-        if t_eff <= 0.0:
-            vx[i] = 0.0
-            vy[i] = 0.0
         else:
-            if t_eff > max_te:
-                max_te = t_eff
-            speed = mob * t_eff
-            if speed > vmax:
-                vmax = speed
-            if t_loc < 0.0:
-                speed = -speed
-            vx[i] = speed * nx
-            vy[i] = speed * ny
-        kab = 1.0 / (a * b)
-        if kab > stiff:
-            stiff = kab
-    return max_te, stiff, vmax
+            if tnx < 0.5:
+                turned += 1
+            # normal (-tny, tnx): F·n = ty tnx - tx tny + ½ τ c
+            t_loc = (ty * tnx - tx * tny + 0.5 * t_node * c) / (0.5 * (a + b))
+            t_eff = abs(t_loc) - tau_f
+            if t_eff <= 0.0:
+                vx[i] = 0.0
+                vy[i] = 0.0
+            else:
+                max_te = max(max_te, t_eff)
+                speed = mob * t_eff
+                vmax = max(vmax, speed)
+                if t_loc < 0.0:
+                    speed = -speed
+                vx[i] = -speed * tny
+                vy[i] = speed * tnx
+            min_ab = min(min_ab, a * b)
+        ax, ay, a, uax, uay = bx, by, b, ubx, uby
+    stiff = 0.0 if min_ab == np.inf else 1.0 / min_ab
+    return area, bad, max_te, stiff, vmax, turned
 
 
 @njit(**JIT)
@@ -237,7 +245,7 @@ def _in_triangle(px, py, ax, ay, bx, by, cx, cy):
     return d1 <= 0.0 and d2 <= 0.0 and d3 <= 0.0
 
 
-@njit(**JIT)
+@njit(inline="always", **JIT)
 def _cell_span(lo, hi, period, ncell):
     """Cells of a periodic axis that the interval [lo, hi] covers.
 
@@ -283,76 +291,160 @@ def free_obstacle_in_triangle(ax, ay, bx, by, cx, cy, ox, oy, opin, cstart, cite
     return False
 
 
-@njit(**JIT)
-def find_captures(x, y, n, pin, ign, vx, vy, dt, ox, oy, opin, cstart, citems, ncx, ncy,
-                  prm, cap_seg, cap_s, cap_obs, cap_x, cap_y):
-    """Obstacles inside the area each segment sweeps during the step (no tunnelling).
+@njit(inline="always", **JIT)
+def _capture_in_quad(i, x0, y0, x1, y1, x2, y2, x3, y3, skip_a, skip_b, ox, oy, opin, cstart,
+                     citems, ncx, ncy, Lx, Ly, ncap, cap_seg, cap_s, cap_obs, cap_x, cap_y):
+    """Record the free obstacles inside the quadrilateral 0-1-2-3 swept by segment i.
 
-    The swept area of segment i is the quadrilateral old(i), old(i+1), new(i+1), new(i), tested as
-    two closed triangles.  Obstacles are found through a periodic cell list (``cstart``/``citems``,
-    CSR over ``ncx × ncy`` cells of the box) and tested at their periodic image inside the
-    segment's bounding box.  Obstacles already held, and the one a node has just left, are skipped.
+    The quadrilateral is old(i), old(i+1), new(i+1), new(i), tested as the closed triangles
+    (0, 1, 2) and (0, 2, 3); obstacles are found in the cells its bounding box covers, at their
+    image inside that box.  Held obstacles, ``skip_a``/``skip_b`` (just left by an end node) and
+    obstacles already recorded are skipped.  Returns the new capture count.
+    """
+    xmin, xmax = min(min(x0, x1), min(x2, x3)), max(max(x0, x1), max(x2, x3))
+    ymin, ymax = min(min(y0, y1), min(y2, y3)), max(max(y0, y1), max(y2, y3))
+    kx0, sx0, nx = _cell_span(xmin, xmax, Lx, ncx)
+    ky0, sy0, ny = _cell_span(ymin, ymax, Ly, ncy)
+    kx, shx = kx0, sx0
+    for _ in range(nx):
+        ky, shy = ky0, sy0
+        for _ in range(ny):
+            cell = kx + ncx * ky
+            for q in range(cstart[cell], cstart[cell + 1]):
+                k = citems[q]
+                px, py = ox[k] + shx, oy[k] + shy
+                if px < xmin or px > xmax or py < ymin or py > ymax:
+                    continue
+                if opin[k] > 0 or k == skip_a or k == skip_b:
+                    continue
+                if not (_in_triangle(px, py, x0, y0, x1, y1, x2, y2)
+                        or _in_triangle(px, py, x0, y0, x2, y2, x3, y3)):
+                    continue
+                dup = False
+                for m in range(ncap):
+                    dup |= cap_obs[m] == k
+                if dup or ncap >= cap_obs.shape[0]:
+                    continue
+                ex, ey = x2 - x3, y2 - y3
+                ee = ex * ex + ey * ey
+                cap_seg[ncap] = i
+                cap_s[ncap] = 0.5 if ee == 0.0 else ((px - x3) * ex + (py - y3) * ey) / ee
+                cap_obs[ncap], cap_x[ncap], cap_y[ncap] = k, px, py
+                ncap += 1
+            ky += 1
+            if ky == ncy:
+                ky, shy = 0, shy + Ly
+        kx += 1
+        if kx == ncx:
+            kx, shx = 0, shx + Lx
+    return ncap
+
+
+@njit(**JIT)
+def _clearance(px, py, reach, ox, oy, opin, cstart, citems, ncx, ncy, Lx, Ly):
+    """Distance from (px, py) to the nearest free obstacle (any image), capped at ``reach``.
+
+    ``reach`` must not exceed one cell of the list, so the cells scanned hold every obstacle
+    closer than it.
+    """
+    best = reach * reach
+    kx0, sx0, nx = _cell_span(px - reach, px + reach, Lx, ncx)
+    ky0, sy0, ny = _cell_span(py - reach, py + reach, Ly, ncy)
+    kx, shx = kx0, sx0
+    for _ in range(nx):
+        ky, shy = ky0, sy0
+        for _ in range(ny):
+            cell = kx + ncx * ky
+            for q in range(cstart[cell], cstart[cell + 1]):
+                k = citems[q]
+                dx, dy = ox[k] + shx - px, oy[k] + shy - py
+                d2 = dx * dx + dy * dy
+                if d2 < best and opin[k] <= 0:
+                    best = d2
+            ky += 1
+            if ky == ncy:
+                ky, shy = 0, shy + Ly
+        kx += 1
+        if kx == ncx:
+            kx, shx = 0, shx + Lx
+    return np.sqrt(best)
+
+
+@njit(inline="always", **JIT)
+def _inside(px, py, cx, cy, r):
+    """Whether (px, py) lies strictly inside the disc of radius r > 0 about (cx, cy)."""
+    dx, dy = px - cx, py - cy
+    return r > 0.0 and dx * dx + dy * dy < r * r
+
+
+@njit(**JIT)
+def move_and_capture(x, y, n, ign, vx, vy, dt, ox, oy, opin, cstart, citems, ncx, ncy, prm,
+                     rx, ry, rad, cap_seg, cap_s, cap_obs, cap_x, cap_y):
+    """Advance every node by ``v dt`` and list the obstacles the segments sweep (no tunnelling).
+
+    The area segment i sweeps is the quadrilateral old(i), old(i+1), new(i+1), new(i)
+    (:func:`_capture_in_quad`); segments with both ends at rest sweep nothing.  Obstacles come from a
+    periodic cell list (``cstart``/``citems``, CSR over ``ncx × ncy`` cells of the box).
+
+    Most segments are far from every free obstacle, and most steps move them by a small fraction of
+    that distance, so each node keeps a disc free of obstacles: centre ``rx, ry`` (where its
+    clearance was measured) and radius ``rad`` (the clearance less ``h = l_max/2``).  A point of the
+    area a segment no longer than l_max before and after the step sweeps lies within ``h`` of one
+    end's path (the segment's length along the way is at most the larger of the two), and each
+    path, a straight step from a position inside the disc, stays inside it (discs are convex); so
+    when both ends end the step inside their discs the segment sweeps no obstacle and its exact
+    test is skipped.  A node outside its
+    disc (or with ``rad = UNKNOWN``) measures its clearance again at its new position, except that
+    a node nearer than ``h`` to an obstacle waits until it has moved REFRESH_FRACTION l_min (its
+    segments are tested exactly meanwhile).  Callers set ``rad = UNKNOWN`` wherever nodes are
+    created or moved other than here and everywhere when an obstacle becomes free.  Each node is
+    moved right after the segment it starts has been tested, so the line is read once.  The
+    captures are not inserted here (:func:`insert_pins`).
 
     Returns
     -------
     int
-        Number of captures written to ``cap_*`` (segment, position along it, obstacle, x, y).
+        Number of captures written to ``cap_*`` (segment, position along the new segment,
+        obstacle, x, y of its image).
     """
-    Lx, Ly = prm[P_LX], prm[P_LY]
-    inv_lx, inv_ly = 1.0 / Lx, 1.0 / Ly
-    inv_cw, inv_ch = ncx * inv_lx, ncy * inv_ly
+    Lx, Ly, lmin, lmax = prm[P_LX], prm[P_LY], prm[P_LMIN], prm[P_LMAX]
+    reach = min(Lx / ncx, Ly / ncy)
+    half = 0.5 * lmax
+    lmax2 = lmax * lmax
+    wait2 = (REFRESH_FRACTION * lmin) ** 2
+    x_first, y_first = x[0], y[0]          # node 0 before it moves, for the closing segment
+    xa, ya, vxa, vya, ga = x[0], y[0], vx[0], vy[0], ign[0]
+    xa_new, ya_new = xa + vxa * dt, ya + vya * dt
+    safe_a = _inside(xa_new, ya_new, rx[0], ry[0], rad[0])
+    safe_first = safe_a
     ncap = 0
     for i in range(n):
-        j = i + 1 if i < n - 1 else 0
-        if (vx[i] == 0.0 and vy[i] == 0.0) and (vx[j] == 0.0 and vy[j] == 0.0):
-            continue
-        x0, y0 = x[i], y[i]
-        x1, y1 = (x[j] if i < n - 1 else x[j] + Lx), y[j]
-        x3, y3 = x0 + vx[i] * dt, y0 + vy[i] * dt
-        x2, y2 = x1 + vx[j] * dt, y1 + vy[j] * dt
-        xmin = min(min(x0, x1), min(x2, x3))
-        xmax = max(max(x0, x1), max(x2, x3))
-        ymin = min(min(y0, y1), min(y2, y3))
-        ymax = max(max(y0, y1), max(y2, y3))
-        sx = Lx * np.floor(xmin * inv_lx)    # image shift putting xmin in [0, Lx)
-        sy = Ly * np.floor(ymin * inv_ly)
-        ix1 = int((xmax - sx) * inv_cw)
-        iy0, iy1 = int((ymin - sy) * inv_ch), int((ymax - sy) * inv_ch)
-        for icx in range(int((xmin - sx) * inv_cw), ix1 + 1):
-            kx, shx = icx, sx
-            while kx >= ncx:
-                kx -= ncx
-                shx += Lx
-            for icy in range(iy0, iy1 + 1):
-                ky, shy = icy, sy
-                while ky >= ncy:
-                    ky -= ncy
-                    shy += Ly
-                cell = kx + ncx * ky
-                for q in range(cstart[cell], cstart[cell + 1]):
-                    k = citems[q]
-                    px, py = ox[k] + shx, oy[k] + shy
-                    if px < xmin or px > xmax or py < ymin or py > ymax:
-                        continue
-                    if opin[k] > 0 or k == ign[i] or k == ign[j]:
-                        continue
-                    if not (_in_triangle(px, py, x0, y0, x1, y1, x2, y2)
-                            or _in_triangle(px, py, x0, y0, x2, y2, x3, y3)):
-                        continue
-                    dup = False
-                    for m in range(ncap):
-                        if cap_obs[m] == k:
-                            dup = True
-                    if dup or ncap >= cap_obs.shape[0]:
-                        continue
-                    ex, ey = x2 - x3, y2 - y3
-                    ee = ex * ex + ey * ey
-                    cap_seg[ncap] = i
-                    cap_s[ncap] = 0.5 if ee == 0.0 else ((px - x3) * ex + (py - y3) * ey) / ee
-                    cap_obs[ncap] = k
-                    cap_x[ncap] = px
-                    cap_y[ncap] = py
-                    ncap += 1
+        if i < n - 1:
+            xb, yb, vxb, vyb, gb = x[i + 1], y[i + 1], vx[i + 1], vy[i + 1], ign[i + 1]
+            xb_new, yb_new = xb + vxb * dt, yb + vyb * dt
+            safe_b = _inside(xb_new, yb_new, rx[i + 1], ry[i + 1], rad[i + 1])
+        else:
+            xb, yb, vxb, vyb, gb = x_first + Lx, y_first, vx[0], vy[0], ign[0]
+            xb_new, yb_new = xb + vxb * dt, yb + vyb * dt
+            safe_b = safe_first
+        if vxa != 0.0 or vya != 0.0 or vxb != 0.0 or vyb != 0.0:
+            ex, ey = xb - xa, yb - ya
+            fx, fy = xb_new - xa_new, yb_new - ya_new
+            if (not (safe_a and safe_b) or ex * ex + ey * ey > lmax2
+                    or fx * fx + fy * fy > lmax2):
+                ncap = _capture_in_quad(i, xa, ya, xb, yb, xb_new, yb_new, xa_new, ya_new, ga, gb,
+                                        ox, oy, opin, cstart, citems, ncx, ncy, Lx, Ly, ncap,
+                                        cap_seg, cap_s, cap_obs, cap_x, cap_y)
+        x[i], y[i] = xa_new, ya_new
+        if not safe_a:
+            r = rad[i]
+            dx, dy = xa_new - rx[i], ya_new - ry[i]
+            if r > 0.0 or r == UNKNOWN or dx * dx + dy * dy > wait2:
+                rx[i], ry[i] = xa_new, ya_new
+                rad[i] = _clearance(xa_new, ya_new, reach, ox, oy, opin, cstart, citems,
+                                    ncx, ncy, Lx, Ly) - half
+        xa, ya, vxa, vya, ga = xb, yb, vxb, vyb, gb
+        xa_new, ya_new, safe_a = xb_new, yb_new, safe_b
     return ncap
 
 
@@ -372,29 +464,30 @@ def _sort_captures(ncap, cap_seg, cap_s, cap_obs, cap_x, cap_y):
 
 
 @njit(**JIT)
-def move_and_pin(x, y, pin, ign, n, vx, vy, dt, ncap, cap_seg, cap_obs, cap_x, cap_y, opin,
-                 xo, yo, pino, igno):
-    """Advance the free nodes by one step and insert a pinned node at every captured obstacle.
+def insert_pins(x, y, pin, ign, n, ncap, cap_seg, cap_s, cap_obs, cap_x, cap_y, opin,
+                rx, ry, rad):
+    """Insert a pinned node at every captured obstacle, in place; return the new node count.
 
-    Writes the new line into ``xo, yo, pino, igno`` and returns its node count.
+    Each capture becomes a node after the start of its segment, in order along the segment; the
+    arrays must hold ``n + ncap`` nodes.  The line is shifted from its end backwards, so no buffer
+    is needed; the clearances ``rx, ry, rad`` (:func:`move_and_capture`) move with their nodes.
     """
-    m = 0
-    c = 0
-    for i in range(n):
-        xo[m] = x[i] + vx[i] * dt
-        yo[m] = y[i] + vy[i] * dt
-        pino[m] = pin[i]
-        igno[m] = ign[i]
-        m += 1
-        while c < ncap and cap_seg[c] == i:
-            xo[m] = cap_x[c]
-            yo[m] = cap_y[c]
-            pino[m] = cap_obs[c]
-            igno[m] = -1
+    _sort_captures(ncap, cap_seg, cap_s, cap_obs, cap_x, cap_y)
+    dst = n + ncap - 1
+    c = ncap - 1
+    for i in range(n - 1, -1, -1):
+        if c < 0:
+            break
+        while c >= 0 and cap_seg[c] == i:
+            x[dst], y[dst], pin[dst], ign[dst] = cap_x[c], cap_y[c], cap_obs[c], -1
+            rad[dst] = UNKNOWN
             opin[cap_obs[c]] += 1
-            m += 1
-            c += 1
-    return m
+            dst -= 1
+            c -= 1
+        x[dst], y[dst], pin[dst], ign[dst] = x[i], y[i], pin[i], ign[i]
+        rx[dst], ry[dst], rad[dst] = rx[i], ry[i], rad[i]
+        dst -= 1
+    return n + ncap
 
 
 @njit(**JIT)
@@ -418,7 +511,8 @@ def _node_curvature(x, y, n, pin, i, Lx):
 
 
 @njit(**JIT)
-def remesh(x, y, pin, ign, n, prm, xo, yo, pino, igno, ox, oy, opin, cstart, citems, ncx, ncy):
+def remesh(x, y, pin, ign, n, prm, xo, yo, pino, igno, src, ox, oy, opin, cstart, citems, ncx,
+           ncy):
     """Keep every segment length within [l_min, l_max]; return the new node count.
 
     A free node is removed when one of its arms is shorter than l_min; pinned nodes are never
@@ -427,9 +521,11 @@ def remesh(x, y, pin, ign, n, prm, xo, yo, pino, igno, ox, oy, opin, cstart, cit
     the circular arc whose curvature is the mean of the free end nodes' three-point curvatures (so
     remeshing does not flatten a bowed line).  Remeshing moves the line a little (a removed node's
     corner is cut, an arc bulges off its chord); where that would carry the line across a free
-    obstacle (``ox, oy, opin`` and the periodic cell list, as in :func:`find_captures`) the node
+    obstacle (``ox, oy, opin`` and the periodic cell list, as in :func:`move_and_capture`) the node
     is kept, or the new nodes go on the chord, so that remeshing never tunnels.  The line is written
-    to ``xo, yo, pino, igno``, shifted by a period if need be so that node 0 lies in [0, Lx).
+    to ``xo, yo, pino, igno``, shifted by a period if need be so that node 0 lies in [0, Lx);
+    ``src`` receives the old index of each new node (-1 for an inserted node, and for every node
+    when the line was shifted).
     """
     lmin, lmax, Lx, Ly = prm[P_LMIN], prm[P_LMAX], prm[P_LX], prm[P_LY]
     # pass 1: mark removals, walking from the last kept node; node 0 is decided last, against its
@@ -475,6 +571,7 @@ def remesh(x, y, pin, ign, n, prm, xo, yo, pino, igno, ox, oy, opin, cstart, cit
         j = kept[q + 1] if q < nk - 1 else kept[0]
         sh = 0.0 if q < nk - 1 else Lx
         xo[m], yo[m], pino[m], igno[m] = x[i] - wrap, y[i], pin[i], ign[i]
+        src[m] = i if wrap == 0.0 else -1
         m += 1
         ex, ey = x[j] + sh - x[i], y[j] - y[i]
         length = np.sqrt(ex * ex + ey * ey)
@@ -493,6 +590,7 @@ def remesh(x, y, pin, ign, n, prm, xo, yo, pino, igno, ox, oy, opin, cstart, cit
             yo[m] = y[i] + u * ey + off * ny
             pino[m] = -1
             igno[m] = -1
+            src[m] = -1
             m += 1
     return m
 
@@ -616,7 +714,7 @@ def find_contact(x, y, n, pin, ntx, nty, prm, head, nxt):
 
 
 @njit(**JIT)
-def reconnect(x, y, pin, ign, n, i, j, Lx, meta, lx, ly, lpin, loff):
+def reconnect(x, y, pin, ign, n, i, j, Lx, meta, lx, ly, lpin, loff, rx, ry, rad):
     """Join two parts of opposite sense at nodes i < j, cutting off a closed loop.
 
     The line is rebuilt in place as ``[..i-1, m, j+1..]`` (m the midpoint of i and j) and the part
@@ -626,7 +724,8 @@ def reconnect(x, y, pin, ign, n, i, j, Lx, meta, lx, ly, lpin, loff):
     loop left around its obstacles, which stay held.  A loop holding none is dropped (under line
     tension alone it would shrink away).  Returns the new node count; ``n`` unchanged when the
     contact is not a reconnection (folded across the seam backwards), -1 when the loop buffers are
-    full (nothing changed).
+    full (nothing changed).  The clearances ``rx, ry, rad`` (:func:`move_and_capture`) move with
+    their nodes; the joining node's is unknown.
     """
     shift = Lx * np.floor((x[j] - x[i]) / Lx + 0.5)
     if shift < 0.0:
@@ -655,17 +754,19 @@ def reconnect(x, y, pin, ign, n, i, j, Lx, meta, lx, ly, lpin, loff):
     xmid = 0.5 * (x[i] + shift + x[j])
     ymid = 0.5 * (y[i] + y[j])
     if shift == 0.0:  # line = [0 .. i-1] + [m] + [j+1 .. n-1]
-        x[i], y[i], pin[i], ign[i] = xmid, ymid, -1, -1
+        x[i], y[i], pin[i], ign[i], rad[i] = xmid, ymid, -1, -1, UNKNOWN
         m = i + 1
         for q in range(j + 1, n):
             x[m], y[m], pin[m], ign[m] = x[q], y[q], pin[q], ign[q]
+            rx[m], ry[m], rad[m] = rx[q], ry[q], rad[q]
             m += 1
         return m
     m = 0  # across the seam: line = [i+1 .. j-1] + [m]
     for q in range(i + 1, j):
         x[m], y[m], pin[m], ign[m] = x[q], y[q], pin[q], ign[q]
+        rx[m], ry[m], rad[m] = rx[q], ry[q], rad[q]
         m += 1
-    x[m], y[m], pin[m], ign[m] = xmid, ymid, -1, -1
+    x[m], y[m], pin[m], ign[m], rad[m] = xmid, ymid, -1, -1, UNKNOWN
     return m + 1
 
 
@@ -687,6 +788,22 @@ def _release(n, pin, ign, fpin, ofc, opin):
 def _copy_line(src_x, src_y, src_pin, src_ign, n, x, y, pin, ign):
     for i in range(n):
         x[i], y[i], pin[i], ign[i] = src_x[i], src_y[i], src_pin[i], src_ign[i]
+
+
+@njit(**JIT)
+def _gather_clearance(n, src, rx, ry, rad, buf_a, buf_b):
+    """Reorder the node clearances after remeshing (``src``: old index or -1, see :func:`remesh`)."""
+    for m in range(n):
+        k = src[m]
+        if k >= 0:
+            buf_a[m], buf_b[m] = rx[k], ry[k]
+    for m in range(n):
+        if src[m] >= 0:
+            rx[m], ry[m] = buf_a[m], buf_b[m]
+    for m in range(n):
+        buf_a[m] = rad[src[m]] if src[m] >= 0 else UNKNOWN
+    for m in range(n):
+        rad[m] = buf_a[m]
 
 
 @njit(**JIT)
@@ -743,16 +860,17 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
         EQUILIBRIUM, FLOWING, MAX_STEPS or CAPACITY (grow the arrays and call again).
     """
     cap = x.shape[0]
-    vx, vy, fpin, ux, uy, slen, ntx, nty = (work_f[0], work_f[1], work_f[2], work_f[3],
-                                            work_f[4], work_f[5], work_f[6], work_f[7])
+    vx, vy, fpin, ntx, nty = work_f[0], work_f[1], work_f[2], work_f[6], work_f[7]
+    rx, ry, rad = work_f[3], work_f[4], work_f[5]
     cap_s = work_f[8, :MAX_CAPTURES]
     cap_x = work_f[8, MAX_CAPTURES:2 * MAX_CAPTURES]
     cap_y = work_f[8, 2 * MAX_CAPTURES:3 * MAX_CAPTURES]
     cap_seg = work_i[0, :MAX_CAPTURES]
     cap_obs = work_i[0, MAX_CAPTURES:2 * MAX_CAPTURES]
     head, nxt = work_i[1], work_i[2]
-    Lx, lmin = prm[P_LX], prm[P_LMIN]
+    Lx = prm[P_LX]
     n = meta[M_N]
+    rad[:n] = UNKNOWN       # the line may have changed since the last call
     moved = 0
     for _ in range(4 * max_steps):
         if moved >= max_steps:
@@ -760,49 +878,47 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
         if 2 * n + MAX_CAPTURES + 16 > cap:
             meta[M_N] = n
             return CAPACITY
-        area, bad = segment_pass(x, y, n, pin, prm, ux, uy, slen)
+        area, bad, max_te, stiff, vmax, turned = node_pass(x, y, n, pin, prm, tau_int,
+                                                           vx, vy, fpin, ntx, nty)
         if bad:
             meta[M_REMESH] += 1
-            n = remesh(x, y, pin, ign, n, prm, bx, by, bpin, bign, ox, oy, opin, cstart, citems,
-                       ncx, ncy)
+            n = remesh(x, y, pin, ign, n, prm, bx, by, bpin, bign, head, ox, oy, opin, cstart,
+                       citems, ncx, ncy)
             _copy_line(bx, by, bpin, bign, n, x, y, pin, ign)
-            area, bad = segment_pass(x, y, n, pin, prm, ux, uy, slen)
+            _gather_clearance(n, head, rx, ry, rad, bx, by)
+            area, bad, max_te, stiff, vmax, turned = node_pass(x, y, n, pin, prm, tau_int,
+                                                               vx, vy, fpin, ntx, nty)
         if (area - prm[P_AREF]) / Lx > prm[P_FLOW]:
             meta[M_N] = n
             return FLOWING
-        max_te, stiff, vmax = node_pass(x, y, n, pin, prm, tau_int, ux, uy, slen,
-                                        vx, vy, fpin, ntx, nty)
         released = _release(n, pin, ign, fpin, ofc, opin)
         if released > 0:
             meta[M_RELEASES] += released
+            rad[:n] = UNKNOWN   # a freed obstacle may lie in any node's disc
             continue
-        meta[M_CONTACT_CHECKS] += 1
-        i, j = find_contact(x, y, n, pin, ntx, nty, prm, head, nxt)
-        if i >= 0:
-            n_new = reconnect(x, y, pin, ign, n, i, j, Lx, meta, lx, ly, lpin, loff)
-            if n_new < 0:
-                meta[M_N] = n
-                return CAPACITY
-            if n_new != n:
-                n = n_new
-                meta[M_RECONNECT] += 1
-                continue
+        if turned > 0:  # no free node turned past 60° from x: no two parts can be antiparallel
+            meta[M_CONTACT_CHECKS] += 1
+            i, j = find_contact(x, y, n, pin, ntx, nty, prm, head, nxt)
+            if i >= 0:
+                n_new = reconnect(x, y, pin, ign, n, i, j, Lx, meta, lx, ly, lpin, loff,
+                                  rx, ry, rad)
+                if n_new < 0:
+                    meta[M_N] = n
+                    return CAPACITY
+                if n_new != n:
+                    n = n_new
+                    meta[M_RECONNECT] += 1
+                    continue
         if max_te < prm[P_TOL]:
             meta[M_N] = n
             return EQUILIBRIUM
         dt = time_step(prm, stiff, vmax)
-        ncap = find_captures(x, y, n, pin, ign, vx, vy, dt, ox, oy, opin, cstart, citems,
-                             ncx, ncy, prm, cap_seg, cap_s, cap_obs, cap_x, cap_y)
-        if ncap == 0:
-            for k in range(n):
-                x[k] += vx[k] * dt
-                y[k] += vy[k] * dt
-        else:
-            _sort_captures(ncap, cap_seg, cap_s, cap_obs, cap_x, cap_y)
+        ncap = move_and_capture(x, y, n, ign, vx, vy, dt, ox, oy, opin, cstart, citems, ncx, ncy,
+                                prm, rx, ry, rad, cap_seg, cap_s, cap_obs, cap_x, cap_y)
+        if ncap > 0:
             meta[M_CAPTURES] += ncap
-            n = move_and_pin(x, y, pin, ign, n, vx, vy, dt, ncap, cap_seg, cap_obs, cap_x, cap_y,
-                             opin, bx, by, bpin, bign)
-            _copy_line(bx, by, bpin, bign, n, x, y, pin, ign)
+            n = insert_pins(x, y, pin, ign, n, ncap, cap_seg, cap_s, cap_obs, cap_x, cap_y, opin,
+                            rx, ry, rad)
         moved += 1
         meta[M_STEPS] += 1
     meta[M_N] = n

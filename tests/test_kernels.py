@@ -64,13 +64,14 @@ class Work:
 
 
 def run_node_pass(x, y, pin, prm, tau_int=None):
+    """node_pass on padded copies; returns the work arrays and (area, bad, max_te, stiff, vmax,
+    turned)."""
     n = len(x)
     w = Work(n + 8)
     xs, ys, ps = padded(x, n + 8, 0.0), padded(y, n + 8, 0.0), padded(pin, n + 8, -1)
     ti = np.zeros(n + 8) if tau_int is None else padded(tau_int, n + 8, 0.0)
-    area, bad = K.segment_pass(xs, ys, n, ps, prm, w.ux, w.uy, w.slen)
-    out = K.node_pass(xs, ys, n, ps, prm, ti, w.ux, w.uy, w.slen, w.vx, w.vy, w.fpin, w.ntx, w.nty)
-    return w, area, bad, out
+    out = K.node_pass(xs, ys, n, ps, prm, ti, w.vx, w.vy, w.fpin, w.ntx, w.nty)
+    return w, out
 
 
 # --- forces ----------------------------------------------------------------------------------
@@ -111,17 +112,14 @@ def test_nodal_forces_equal_minus_energy_gradient(seed, tau):
 
 
 @pytest.mark.parametrize("seed", [7, 8])
-def test_segment_pass_equals_twin(seed):
+def test_node_pass_area_and_bounds_equal_twin(seed):
     rng = np.random.default_rng(seed)
     n, Lx = 50, 300.0
     x, y = wavy_line(rng, n, Lx, 20.0, x0=rng.uniform(-Lx, Lx), y0=rng.uniform(-1e3, 1e3))
     pin = random_pins(rng, n, 0.2)
     for lmin, lmax in ((0.0, np.inf), (5.5, 7.0), (1.0, 20.0)):
-        ux, uy, slen = np.zeros(n), np.zeros(n), np.zeros(n)
-        area, bad = K.segment_pass(x, y, n, pin, params(Lx, lmin=lmin, lmax=lmax), ux, uy, slen)
-        t, length, area_ref, bad_ref = naive.segment_pass(x, y, pin, Lx, lmin, lmax)
-        np.testing.assert_allclose(np.stack([ux, uy], 1), t, rtol=1e-12, atol=1e-15)
-        np.testing.assert_allclose(slen, length, rtol=1e-12)
+        _, (area, bad, *_) = run_node_pass(x, y, pin, params(Lx, lmin=lmin, lmax=lmax))
+        _, _, area_ref, bad_ref = naive.segment_pass(x, y, pin, Lx, lmin, lmax)
         assert area == pytest.approx(area_ref, rel=1e-12, abs=1e-9)
         assert bad == bad_ref
         assert K.line_area(x, y, n, Lx) == pytest.approx(area_ref, rel=1e-12, abs=1e-9)
@@ -135,9 +133,10 @@ def test_node_pass_equals_twin(seed, tau_f):
     pin = random_pins(rng, n, 0.15)
     tau_int = rng.uniform(-1e-3, 1e-3, n)
     prm = params(Lx, tau=4e-3, tau_f=tau_f, mobility=2.5)
-    w, _, _, (max_te, stiff, vmax) = run_node_pass(x, y, pin, prm, tau_int)
+    w, (_, _, max_te, stiff, vmax, turned) = run_node_pass(x, y, pin, prm, tau_int)
     v, fpin, tchord, max_te_ref, stiff_ref, vmax_ref = naive.node_pass(
         x, y, pin, Lx, GAMMA, 4e-3, tau_f, 2.5, tau_int)
+    assert turned == np.count_nonzero((pin < 0) & (tchord[:, 0] < 0.5))
     np.testing.assert_allclose(np.stack([w.vx[:n], w.vy[:n]], 1), v, rtol=1e-10, atol=1e-15)
     np.testing.assert_allclose(w.fpin[:n][pin >= 0], fpin[pin >= 0], rtol=1e-10, atol=1e-15)
     np.testing.assert_allclose(np.stack([w.ntx[:n], w.nty[:n]], 1), tchord, rtol=1e-12, atol=1e-15)
@@ -153,7 +152,7 @@ def test_straight_line_velocity_with_friction(tau_over_tf):
     x = (np.arange(n) + 0.5) * Lx / n
     y = np.full(n, 7.0)
     tau = tau_over_tf * tau_f
-    w, _, _, (max_te, _, vmax) = run_node_pass(x, y, np.full(n, -1), params(Lx, tau=tau, tau_f=tau_f,
+    w, (_, _, max_te, _, vmax, _) = run_node_pass(x, y, np.full(n, -1), params(Lx, tau=tau, tau_f=tau_f,
                                                                               mobility=mob))
     expect = mob * max(tau - tau_f, 0.0)
     np.testing.assert_allclose(w.vy[:n], expect, rtol=1e-12, atol=1e-18)
@@ -167,9 +166,14 @@ def run_captures(x, y, pin, ign, v, dt, ox, oy, opin, Lx, Ly, cell):
     n = len(x)
     cstart, citems, ncx, ncy = cells(ox, oy, Lx, Ly, cell)
     w = Work(n)
-    ncap = K.find_captures(x, y, n, pin, ign, np.ascontiguousarray(v[:, 0]),
-                           np.ascontiguousarray(v[:, 1]), dt, ox, oy, opin, cstart, citems,
-                           ncx, ncy, params(Lx, Ly), w.cap_seg, w.cap_s, w.cap_obs, w.cap_x, w.cap_y)
+    xm, ym = x.copy(), y.copy()
+    rx, ry, rad = np.zeros(n), np.zeros(n), np.full(n, K.UNKNOWN)
+    ncap = K.move_and_capture(xm, ym, n, ign, np.ascontiguousarray(v[:, 0]),
+                              np.ascontiguousarray(v[:, 1]), dt, ox, oy, opin, cstart, citems,
+                              ncx, ncy, params(Lx, Ly), rx, ry, rad, w.cap_seg, w.cap_s,
+                              w.cap_obs, w.cap_x, w.cap_y)
+    # every node advanced by v dt
+    np.testing.assert_allclose(np.stack([xm, ym], 1), np.stack([x, y], 1) + v * dt, rtol=1e-15)
     return {int(w.cap_obs[c]): int(w.cap_seg[c]) for c in range(ncap)}, w, ncap
 
 
@@ -211,6 +215,70 @@ def test_find_captures_equals_brute_force(seed, x0, y0, moving):
     assert found == ref
 
 
+@pytest.mark.parametrize("seed", [26, 27])
+def test_insert_pins_equals_twin(seed):
+    rng = np.random.default_rng(seed)
+    Lx, Ly, n, m = 1000.0, 1000.0, 40, 3000
+    ox, oy = rng.uniform(0, Lx, m), rng.uniform(0, Ly, m)
+    x, y = wavy_line(rng, n, Lx, 6.0, y0=500.0)
+    v = rng.normal(0.0, 1.0, (n, 2)) + np.array([0.0, 2.0])
+    pin, ign = np.full(n, -1, np.int64), np.full(n, -1, np.int64)
+    opin = np.zeros(m, np.int64)
+    _, w, ncap = run_captures(x, y, pin, ign, v, 4.0, ox, oy, opin, Lx, Ly, cell=50.0)
+    assert ncap > 3
+    caps = [(int(w.cap_seg[c]), w.cap_s[c], int(w.cap_obs[c]), w.cap_x[c], w.cap_y[c])
+            for c in range(ncap)]
+    ref = naive.move_and_pin(x, y, pin, ign, v, 4.0, caps)
+    cap = n + ncap
+    xs, ys = padded(x + v[:, 0] * 4.0, cap, 0.0), padded(y + v[:, 1] * 4.0, cap, 0.0)
+    ps, gs = padded(pin, cap, -1), padded(ign, cap, -1)
+    rx, ry, rad = np.arange(cap, dtype=float), np.zeros(cap), np.arange(cap, dtype=float)
+    n_new = K.insert_pins(xs, ys, ps, gs, n, ncap, w.cap_seg, w.cap_s, w.cap_obs, w.cap_x,
+                          w.cap_y, opin, rx, ry, rad)
+    assert n_new == n + ncap
+    np.testing.assert_allclose(xs, ref[0], rtol=1e-15)
+    np.testing.assert_allclose(ys, ref[1], rtol=1e-15)
+    np.testing.assert_array_equal(ps, ref[2])
+    np.testing.assert_array_equal(gs, ref[3])
+    assert opin.sum() == ncap
+    # clearances travel with their nodes; the new pinned nodes' are unknown
+    moved = rx[ps < 0]
+    np.testing.assert_array_equal(moved, np.arange(n, dtype=float))
+    assert np.all(rad[ps >= 0] == K.UNKNOWN)
+
+
+@pytest.mark.parametrize("seed", [28, 29])
+def test_captures_with_kept_clearances_equal_brute_force_every_step(seed):
+    # the obstacle-free discs carried from step to step must never hide a capture
+    rng = np.random.default_rng(seed)
+    Lx, Ly, n, m = 400.0, 400.0, 40, 400
+    ox, oy = rng.uniform(0, Lx, m), rng.uniform(0, Ly, m)
+    cstart, citems, ncx, ncy = cells(ox, oy, Lx, Ly, 20.0)
+    x, y = wavy_line(rng, n, Lx, 5.0, y0=50.0)
+    prm = params(Lx, Ly, lmin=5.0, lmax=15.0)
+    pin, ign = np.full(n, -1, np.int64), np.full(n, -1, np.int64)
+    opin = np.zeros(m, np.int64)
+    rx, ry, rad = np.zeros(n), np.zeros(n), np.full(n, K.UNKNOWN)
+    w = Work(n)
+    total = skipped = 0
+    for step in range(300):
+        v = np.abs(rng.normal(0.0, 0.4, (n, 2))) * [0.3, 1.0]
+        v[rng.random(n) < 0.1] = 0.0
+        dt = 1.0
+        ref = naive.find_captures(x, y, pin, ign, v, dt, ox, oy, opin, Lx, Ly)
+        skipped += np.count_nonzero(rad > 0)
+        ncap = K.move_and_capture(x, y, n, ign, np.ascontiguousarray(v[:, 0]),
+                                  np.ascontiguousarray(v[:, 1]), dt, ox, oy, opin, cstart, citems,
+                                  ncx, ncy, prm, rx, ry, rad, w.cap_seg, w.cap_s, w.cap_obs,
+                                  w.cap_x, w.cap_y)
+        found = {int(w.cap_obs[c]): int(w.cap_seg[c]) for c in range(ncap)}
+        assert found == ref, step
+        opin[list(found)] = 1        # held from now on (the line is not rebuilt here)
+        total += ncap
+    assert total > 10                # the line did meet obstacles
+    assert skipped > 0.5 * 300 * n   # and most node-steps vouched for their segments
+
+
 def test_find_captures_skips_obstacle_just_left():
     # a released obstacle is not re-captured by the arms that just left it (physics.md)
     Lx, Ly = 100.0, 100.0
@@ -240,8 +308,11 @@ def remeshed(x, y, pin, prm, ox=(), oy=()):
     xo, yo, po, go = np.zeros(cap), np.zeros(cap), np.full(cap, -1), np.full(cap, -1)
     Lx, Ly = prm[K.P_LX], prm[K.P_LY]
     cstart, citems, ncx, ncy = cells(ox, oy, Lx, Ly, Lx / 4)
-    m = K.remesh(xs, ys, ps, gs, n, prm, xo, yo, po, go, np.asarray(ox, float),
+    src = np.zeros(cap, np.int64)
+    m = K.remesh(xs, ys, ps, gs, n, prm, xo, yo, po, go, src, np.asarray(ox, float),
                  np.asarray(oy, float), np.zeros(len(ox), np.int64), cstart, citems, ncx, ncy)
+    kept = src[:m] >= 0
+    np.testing.assert_array_equal(xo[:m][kept], xs[src[:m][kept]])   # src names the old node
     return xo[:m], yo[:m], po[:m]
 
 
@@ -371,7 +442,7 @@ def test_find_contact_equals_brute_force(gap, expect):
     x, y, pin, Lx = hairpin(gap=gap)
     n = len(x)
     prm = params(Lx, lmax=7.5, dann=2.5)
-    w, _, _, _ = run_node_pass(x, y, pin, prm)
+    w, _ = run_node_pass(x, y, pin, prm)
     i, j = K.find_contact(x, y, n, pin, w.ntx, w.nty, prm, w.head, w.nxt)
     ref = naive.find_contacts(x, y, pin, np.stack([w.ntx[:n], w.nty[:n]], 1), Lx, 2.5,
                               K.RECONNECT_MIN_SEPARATION, K.RECONNECT_COS)
@@ -390,7 +461,7 @@ def test_find_contact_equals_brute_force_on_folded_lines(seed):
     x, y = x + rng.uniform(-Lx, Lx), y
     pin = random_pins(rng, n, 0.05)
     prm = params(Lx, lmax=16.0, dann=rng.uniform(3.0, 8.0))
-    w, _, _, _ = run_node_pass(x, y, pin, prm)
+    w, _ = run_node_pass(x, y, pin, prm)
     i, j = K.find_contact(x, y, n, pin, w.ntx, w.nty, prm, w.head, w.nxt)
     ref = naive.find_contacts(x, y, pin, np.stack([w.ntx[:n], w.nty[:n]], 1), Lx,
                               prm[K.P_DANN], K.RECONNECT_MIN_SEPARATION, K.RECONNECT_COS)
@@ -401,13 +472,14 @@ def test_reconnect_leaves_line_and_loop():
     x, y, pin, Lx = hairpin(gap=2.0)
     n = len(x)
     prm = params(Lx, lmax=7.5, dann=2.5)
-    w, _, _, _ = run_node_pass(x, y, pin, prm)
+    w, _ = run_node_pass(x, y, pin, prm)
     i, j = K.find_contact(x, y, n, pin, w.ntx, w.nty, prm, w.head, w.nxt)
     cap = 4 * n
     xs, ys, ps, gs = padded(x, cap, 0.0), padded(y, cap, 0.0), padded(pin, cap, -1), np.full(cap, -1)
     meta = np.zeros(K.N_META, np.int64)
     lx, ly, lp, loff = np.zeros(cap), np.zeros(cap), np.full(cap, -1), np.zeros(cap, np.int64)
-    m = K.reconnect(xs, ys, ps, gs, n, i, j, Lx, meta, lx, ly, lp, loff)
+    rx, ry, rad = np.zeros(cap), np.zeros(cap), np.zeros(cap)
+    m = K.reconnect(xs, ys, ps, gs, n, i, j, Lx, meta, lx, ly, lp, loff, rx, ry, rad)
     used = int(meta[K.M_NLOOPNODES])
     assert meta[K.M_NLOOPS] == 1
     assert m + used == n - 1                      # nodes i and j merge into one
