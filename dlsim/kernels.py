@@ -156,8 +156,9 @@ def node_pass(x, y, n, pin, prm, tau_int, vx, vy, fpin, ntx, nty):
     -------
     area : float
         Signed area between the line and y = 0 over one period (b²), as :func:`line_area`.
-    remesh_needed : bool
-        Some segment with a free end is shorter than l_min, or some segment longer than l_max.
+    first_bad : int
+        The first segment that is longer than l_max or shorter than l_min with a free end (it
+        starts at that node), -1 if none: where :func:`remesh` has to start.
     max_tau_eff : float
         Largest |τ_eff| over free nodes (G): the equilibrium residual.
     stiffness : float
@@ -175,7 +176,7 @@ def node_pass(x, y, n, pin, prm, tau_int, vx, vy, fpin, ntx, nty):
     a = np.sqrt(ax * ax + ay * ay)
     uax, uay = ax / a, ay / a
     area = 0.0
-    bad = False
+    first_bad = -1
     max_te = 0.0
     min_ab = np.inf
     vmax = 0.0
@@ -191,8 +192,8 @@ def node_pass(x, y, n, pin, prm, tau_int, vx, vy, fpin, ntx, nty):
         inv_b = 1.0 / b
         ubx, uby = bx * inv_b, by * inv_b
         area += 0.5 * bx * (yi + yj)
-        if b > lmax or (b < lmin and (pi < 0 or pj < 0)):
-            bad = True
+        if first_bad < 0 and (b > lmax or (b < lmin and (pi < 0 or pj < 0))):
+            first_bad = i
         cx, cy = ax + bx, ay + by           # chord r_{i+1} - r_{i-1}
         tx, ty = gamma * (ubx - uax), gamma * (uby - uay)
         c = np.sqrt(cx * cx + cy * cy)
@@ -228,7 +229,7 @@ def node_pass(x, y, n, pin, prm, tau_int, vx, vy, fpin, ntx, nty):
             min_ab = min(min_ab, a * b)
         ax, ay, a, uax, uay = bx, by, b, ubx, uby
     stiff = 0.0 if min_ab == np.inf else 1.0 / min_ab
-    return area, bad, max_te, stiff, vmax, turned
+    return area, first_bad, max_te, stiff, vmax, turned
 
 
 @njit(**JIT)
@@ -491,8 +492,8 @@ def insert_pins(x, y, pin, ign, n, ncap, cap_seg, cap_s, cap_obs, cap_x, cap_y, 
 
 
 @njit(**JIT)
-def _dist(dx, dy):
-    return np.sqrt(dx * dx + dy * dy)
+def _dist2(dx, dy):
+    return dx * dx + dy * dy
 
 
 @njit(**JIT)
@@ -511,9 +512,9 @@ def _node_curvature(x, y, n, pin, i, Lx):
 
 
 @njit(**JIT)
-def remesh(x, y, pin, ign, n, prm, xo, yo, pino, igno, src, ox, oy, opin, cstart, citems, ncx,
-           ncy):
-    """Keep every segment length within [l_min, l_max]; return the new node count.
+def remesh(x, y, pin, ign, n, prm, first_bad, bx, by, bpin, bign, src, keep, ox, oy, opin,
+           cstart, citems, ncx, ncy):
+    """Keep every segment length within [l_min, l_max], in place; return (node count, lo).
 
     A free node is removed when one of its arms is shorter than l_min; pinned nodes are never
     removed.  A segment longer than l_max is then split into equal parts (each longer than
@@ -522,76 +523,95 @@ def remesh(x, y, pin, ign, n, prm, xo, yo, pino, igno, src, ox, oy, opin, cstart
     remeshing does not flatten a bowed line).  Remeshing moves the line a little (a removed node's
     corner is cut, an arc bulges off its chord); where that would carry the line across a free
     obstacle (``ox, oy, opin`` and the periodic cell list, as in :func:`move_and_capture`) the node
-    is kept, or the new nodes go on the chord, so that remeshing never tunnels.  The line is written
-    to ``xo, yo, pino, igno``, shifted by a period if need be so that node 0 lies in [0, Lx);
-    ``src`` receives the old index of each new node (-1 for an inserted node, and for every node
-    when the line was shifted).
+    is kept, or the new nodes go on the chord, so that remeshing never tunnels.
+
+    Segments before ``first_bad`` (from :func:`node_pass`; 0 redoes the whole line) are within
+    bounds, so the nodes before ``lo = first_bad - 1`` stay where they are and only the rest of
+    the line is rebuilt, through the scratch arrays ``bx, by, bpin, bign`` (``keep``: int64
+    scratch).  The seam is no special place: when node 0 may have to go (its arm across the seam
+    is short) the whole line is redone, and shifted by a period if need be so that node 0 lies in
+    [0, Lx).  ``src[lo:m]`` receives the old index of each rebuilt node (-1 for an inserted node,
+    and for every node when the line was shifted).
     """
     lmin, lmax, Lx, Ly = prm[P_LMIN], prm[P_LMAX], prm[P_LX], prm[P_LY]
+    lmin2 = lmin * lmin
+    seam_short = pin[0] < 0 and _dist2(x[0] + Lx - x[n - 1], y[0] - y[n - 1]) < lmin2
+    lo = first_bad - 1 if first_bad >= 1 and not seam_short else 0
     # pass 1: mark removals, walking from the last kept node; node 0 is decided last, against its
-    # kept neighbours across the seam (keeping it always would leave a short arm there for good)
-    keep = np.ones(n, dtype=np.bool_)
-    last = 0
+    # kept neighbours across the seam
+    for i in range(lo, n):
+        keep[i] = 1
+    last = lo
     removed = 0
-    for i in range(1, n):
+    for i in range(lo + 1, n):
         nxt = i + 1 if i < n - 1 else 0
         sh = 0.0 if i < n - 1 else Lx
         if pin[i] < 0 and n - removed > MIN_NODES:
-            da = _dist(x[i] - x[last], y[i] - y[last])
-            db = _dist(x[nxt] + sh - x[i], y[nxt] - y[i])
-            if (da < lmin or db < lmin) and not free_obstacle_in_triangle(
+            da = _dist2(x[i] - x[last], y[i] - y[last])
+            db = _dist2(x[nxt] + sh - x[i], y[nxt] - y[i])
+            if (da < lmin2 or db < lmin2) and not free_obstacle_in_triangle(
                     x[last], y[last], x[i], y[i], x[nxt] + sh, y[nxt], ox, oy, opin, cstart,
                     citems, ncx, ncy, Lx, Ly):
-                keep[i] = False
+                keep[i] = 0
                 removed += 1
                 continue
         last = i
-    first = 1
-    while first < n and not keep[first]:
+    first = lo + 1              # the first kept node after lo
+    while first < n and keep[first] == 0:
         first += 1
-    if pin[0] < 0 and n - removed > MIN_NODES and first < n:
-        da = _dist(x[0] + Lx - x[last], y[0] - y[last])
-        db = _dist(x[first] - x[0], y[first] - y[0])
-        if (da < lmin or db < lmin) and not free_obstacle_in_triangle(
+    if lo == 0 and pin[0] < 0 and n - removed > MIN_NODES and first < n:
+        da = _dist2(x[0] + Lx - x[last], y[0] - y[last])
+        db = _dist2(x[first] - x[0], y[first] - y[0])
+        if (da < lmin2 or db < lmin2) and not free_obstacle_in_triangle(
                 x[last] - Lx, y[last], x[0], y[0], x[first], y[first], ox, oy, opin, cstart,
                 citems, ncx, ncy, Lx, Ly):
-            keep[0] = False
-    # pass 2: copy kept nodes, splitting long segments on the local arc
-    kept = np.empty(n, dtype=np.int64)
-    nk = 0
-    for i in range(n):
-        if keep[i]:
-            kept[nk] = i
-            nk += 1
-    # the new node 0 may be old node `first`: shift back into [0, Lx) so x stays in one period
-    wrap = Lx if x[kept[0]] >= Lx else 0.0
-    m = 0
-    for q in range(nk):
-        i = kept[q]
-        j = kept[q + 1] if q < nk - 1 else kept[0]
-        sh = 0.0 if q < nk - 1 else Lx
-        xo[m], yo[m], pino[m], igno[m] = x[i] - wrap, y[i], pin[i], ign[i]
+            keep[0] = 0
+    head = lo if keep[lo] == 1 else first     # new node 0 when lo = 0, else node lo itself
+    wrap = Lx if lo == 0 and x[head] >= Lx else 0.0
+    # pass 2: copy kept nodes from `head` on, splitting long segments on the local arc
+    m = lo
+    i = head
+    while True:
+        j = i + 1
+        while j < n and keep[j] == 0:
+            j += 1
+        closing = j >= n
+        if closing:
+            j = 0 if lo > 0 else head
+        sh = Lx if closing else 0.0
+        bx[m], by[m], bpin[m], bign[m] = x[i] - wrap, y[i], pin[i], ign[i]
         src[m] = i if wrap == 0.0 else -1
         m += 1
         ex, ey = x[j] + sh - x[i], y[j] - y[i]
-        length = np.sqrt(ex * ex + ey * ey)
-        if length <= lmax:
-            continue
-        parts = int(np.ceil(length / lmax))
-        kappa = _split_curvature(x, y, n, pin, i, j, Lx, length)
-        if kappa != 0.0 and _arc_crosses_obstacle(x[i], y[i], ex, ey, length, kappa, parts,
-                                                  ox, oy, opin, cstart, citems, ncx, ncy, Lx, Ly):
-            kappa = 0.0
-        nx, ny = -ey / length, ex / length
-        for p in range(1, parts):
-            u = p / parts
-            off = -0.5 * kappa * length * length * u * (1.0 - u)
-            xo[m] = x[i] - wrap + u * ex + off * nx
-            yo[m] = y[i] + u * ey + off * ny
-            pino[m] = -1
-            igno[m] = -1
-            src[m] = -1
-            m += 1
+        if ex * ex + ey * ey > lmax * lmax:
+            m = _split_segment(x, y, n, pin, i, j, ex, ey, np.sqrt(ex * ex + ey * ey), prm, wrap,
+                               bx, by, bpin, bign, src, m, ox, oy, opin, cstart, citems, ncx, ncy)
+        if closing:
+            break
+        i = j
+    for q in range(lo, m):
+        x[q], y[q], pin[q], ign[q] = bx[q], by[q], bpin[q], bign[q]
+    return m, lo
+
+
+@njit(**JIT)
+def _split_segment(x, y, n, pin, i, j, ex, ey, length, prm, wrap, bx, by, bpin, bign, src, m,
+                   ox, oy, opin, cstart, citems, ncx, ncy):
+    """Write the free nodes that split the long segment i -> i + e at m on; return the next m."""
+    Lx, Ly, lmax = prm[P_LX], prm[P_LY], prm[P_LMAX]
+    parts = int(np.ceil(length / lmax))
+    kappa = _split_curvature(x, y, n, pin, i, j, Lx, length)
+    if kappa != 0.0 and _arc_crosses_obstacle(x[i], y[i], ex, ey, length, kappa, parts,
+                                              ox, oy, opin, cstart, citems, ncx, ncy, Lx, Ly):
+        kappa = 0.0
+    nx, ny = -ey / length, ex / length
+    for p in range(1, parts):
+        u = p / parts
+        off = -0.5 * kappa * length * length * u * (1.0 - u)
+        bx[m] = x[i] - wrap + u * ex + off * nx
+        by[m] = y[i] + u * ey + off * ny
+        bpin[m], bign[m], src[m] = -1, -1, -1
+        m += 1
     return m
 
 
@@ -785,24 +805,19 @@ def _release(n, pin, ign, fpin, ofc, opin):
 
 
 @njit(**JIT)
-def _copy_line(src_x, src_y, src_pin, src_ign, n, x, y, pin, ign):
-    for i in range(n):
-        x[i], y[i], pin[i], ign[i] = src_x[i], src_y[i], src_pin[i], src_ign[i]
-
-
-@njit(**JIT)
-def _gather_clearance(n, src, rx, ry, rad, buf_a, buf_b):
-    """Reorder the node clearances after remeshing (``src``: old index or -1, see :func:`remesh`)."""
-    for m in range(n):
+def _gather_clearance(lo, n, src, rx, ry, rad, buf_a, buf_b):
+    """Reorder the clearances of nodes lo.. after remeshing (``src``: old index or -1, see
+    :func:`remesh`)."""
+    for m in range(lo, n):
         k = src[m]
         if k >= 0:
             buf_a[m], buf_b[m] = rx[k], ry[k]
-    for m in range(n):
+    for m in range(lo, n):
         if src[m] >= 0:
             rx[m], ry[m] = buf_a[m], buf_b[m]
-    for m in range(n):
+    for m in range(lo, n):
         buf_a[m] = rad[src[m]] if src[m] >= 0 else UNKNOWN
-    for m in range(n):
+    for m in range(lo, n):
         rad[m] = buf_a[m]
 
 
@@ -880,12 +895,11 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
             return CAPACITY
         area, bad, max_te, stiff, vmax, turned = node_pass(x, y, n, pin, prm, tau_int,
                                                            vx, vy, fpin, ntx, nty)
-        if bad:
+        if bad >= 0:
             meta[M_REMESH] += 1
-            n = remesh(x, y, pin, ign, n, prm, bx, by, bpin, bign, head, ox, oy, opin, cstart,
-                       citems, ncx, ncy)
-            _copy_line(bx, by, bpin, bign, n, x, y, pin, ign)
-            _gather_clearance(n, head, rx, ry, rad, bx, by)
+            n, lo = remesh(x, y, pin, ign, n, prm, bad, bx, by, bpin, bign, head, nxt, ox, oy,
+                           opin, cstart, citems, ncx, ncy)
+            _gather_clearance(lo, n, head, rx, ry, rad, bx, by)
             area, bad, max_te, stiff, vmax, turned = node_pass(x, y, n, pin, prm, tau_int,
                                                                vx, vy, fpin, ntx, nty)
         if (area - prm[P_AREF]) / Lx > prm[P_FLOW]:

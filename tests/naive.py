@@ -58,12 +58,12 @@ def nodal_forces(x, y, Lx, gamma, tau_node):
 
 
 def segment_pass(x, y, pin, Lx, lmin, lmax):
-    """Tangents (n, 2), lengths (n,), area, and whether a segment is out of its bounds."""
+    """Tangents (n, 2), lengths (n,), area, and the first segment out of its bounds (-1: none)."""
     s = segments(x, y, Lx)
     length = np.hypot(*s.T)
     free_end = (pin < 0) | (np.roll(pin, -1) < 0)
-    bad = bool(np.any(length > lmax) or np.any((length < lmin) & free_end))
-    return s / length[:, None], length, line_area(x, y, Lx), bad
+    bad = np.flatnonzero((length > lmax) | ((length < lmin) & free_end))
+    return s / length[:, None], length, line_area(x, y, Lx), int(bad[0]) if len(bad) else -1
 
 
 def node_pass(x, y, pin, Lx, gamma, tau, tau_f, mobility, tau_int):

@@ -118,10 +118,12 @@ def test_node_pass_area_and_bounds_equal_twin(seed):
     x, y = wavy_line(rng, n, Lx, 20.0, x0=rng.uniform(-Lx, Lx), y0=rng.uniform(-1e3, 1e3))
     pin = random_pins(rng, n, 0.2)
     for lmin, lmax in ((0.0, np.inf), (5.5, 7.0), (1.0, 20.0)):
-        _, (area, bad, *_) = run_node_pass(x, y, pin, params(Lx, lmin=lmin, lmax=lmax))
+        _, (area, first_bad, *_) = run_node_pass(x, y, pin, params(Lx, lmin=lmin, lmax=lmax))
         _, _, area_ref, bad_ref = naive.segment_pass(x, y, pin, Lx, lmin, lmax)
         assert area == pytest.approx(area_ref, rel=1e-12, abs=1e-9)
-        assert bad == bad_ref
+        assert (first_bad >= 0) == (bad_ref >= 0)
+        if bad_ref >= 0:
+            assert first_bad == bad_ref
         assert K.line_area(x, y, n, Lx) == pytest.approx(area_ref, rel=1e-12, abs=1e-9)
 
 
@@ -251,7 +253,7 @@ def test_insert_pins_equals_twin(seed):
 def test_captures_with_kept_clearances_equal_brute_force_every_step(seed):
     # the obstacle-free discs carried from step to step must never hide a capture
     rng = np.random.default_rng(seed)
-    Lx, Ly, n, m = 400.0, 400.0, 40, 400
+    Lx, Ly, n, m = 400.0, 400.0, 40, 800
     ox, oy = rng.uniform(0, Lx, m), rng.uniform(0, Ly, m)
     cstart, citems, ncx, ncy = cells(ox, oy, Lx, Ly, 20.0)
     x, y = wavy_line(rng, n, Lx, 5.0, y0=50.0)
@@ -261,7 +263,8 @@ def test_captures_with_kept_clearances_equal_brute_force_every_step(seed):
     rx, ry, rad = np.zeros(n), np.zeros(n), np.full(n, K.UNKNOWN)
     w = Work(n)
     total = skipped = 0
-    for step in range(300):
+    steps = 100
+    for step in range(steps):
         v = np.abs(rng.normal(0.0, 0.4, (n, 2))) * [0.3, 1.0]
         v[rng.random(n) < 0.1] = 0.0
         dt = 1.0
@@ -276,7 +279,7 @@ def test_captures_with_kept_clearances_equal_brute_force_every_step(seed):
         opin[list(found)] = 1        # held from now on (the line is not rebuilt here)
         total += ncap
     assert total > 10                # the line did meet obstacles
-    assert skipped > 0.5 * 300 * n   # and most node-steps vouched for their segments
+    assert skipped > 0.5 * steps * n  # and most node-steps vouched for their segments
 
 
 def test_find_captures_skips_obstacle_just_left():
@@ -301,19 +304,22 @@ def cells(ox, oy, Lx, Ly, cell):
     return f.cell_list()
 
 
-def remeshed(x, y, pin, prm, ox=(), oy=()):
+def remeshed(x, y, pin, prm, ox=(), oy=(), first_bad=0):
+    """remesh on padded copies from segment ``first_bad``; returns the new x, y, pin."""
     n = len(x)
     cap = 8 * n + 64
     xs, ys, ps, gs = padded(x, cap, 0.0), padded(y, cap, 0.0), padded(pin, cap, -1), np.full(cap, -1)
-    xo, yo, po, go = np.zeros(cap), np.zeros(cap), np.full(cap, -1), np.full(cap, -1)
+    bx, by, bp, bg = np.zeros(cap), np.zeros(cap), np.full(cap, -1), np.full(cap, -1)
     Lx, Ly = prm[K.P_LX], prm[K.P_LY]
     cstart, citems, ncx, ncy = cells(ox, oy, Lx, Ly, Lx / 4)
-    src = np.zeros(cap, np.int64)
-    m = K.remesh(xs, ys, ps, gs, n, prm, xo, yo, po, go, src, np.asarray(ox, float),
-                 np.asarray(oy, float), np.zeros(len(ox), np.int64), cstart, citems, ncx, ncy)
-    kept = src[:m] >= 0
-    np.testing.assert_array_equal(xo[:m][kept], xs[src[:m][kept]])   # src names the old node
-    return xo[:m], yo[:m], po[:m]
+    src, keep = np.zeros(cap, np.int64), np.zeros(cap, np.int64)
+    m, lo = K.remesh(xs, ys, ps, gs, n, prm, first_bad, bx, by, bp, bg, src, keep,
+                     np.asarray(ox, float), np.asarray(oy, float), np.zeros(len(ox), np.int64),
+                     cstart, citems, ncx, ncy)
+    kept = src[lo:m] >= 0
+    np.testing.assert_array_equal(xs[lo:m][kept], np.asarray(x, float)[src[lo:m][kept]])
+    np.testing.assert_array_equal(xs[:lo], x[:lo])                          # the rest stays
+    return xs[:m], ys[:m], ps[:m]
 
 
 @pytest.mark.parametrize("seed", [31, 32, 33, 34])
@@ -325,7 +331,8 @@ def test_remesh_bounds_pins_and_period(seed):
     x = np.sort(x)
     pin = random_pins(rng, n, 0.1)
     lmin, lmax = 4.0, 12.0
-    xo, yo, po = remeshed(x, y, pin, params(Lx, lmin=lmin, lmax=lmax))
+    prm = params(Lx, lmin=lmin, lmax=lmax)
+    xo, yo, po = remeshed(x, y, pin, prm)
     # pinned nodes are never removed nor moved
     held = {int(p): (a, b) for a, b, p in zip(x, y, pin) if p >= 0}
     got = {int(p): (a, b) for a, b, p in zip(xo, yo, po) if p >= 0}
@@ -340,6 +347,28 @@ def test_remesh_bounds_pins_and_period(seed):
     both_pinned = (po >= 0) & (np.roll(po, -1) >= 0)
     assert np.all(length <= lmax * (1 + 1e-12))
     assert np.all((length >= lmin) | both_pinned)
+
+
+@pytest.mark.parametrize("seed", [35, 36])
+def test_remesh_from_first_bad_segment_equals_whole(seed):
+    # the nodes before the first bad segment stay; the rest comes out as from a whole pass
+    rng = np.random.default_rng(seed)
+    Lx = 800.0
+    x = (np.arange(100) + 0.5) * 8.0
+    y = 10.0 * np.sin(2 * np.pi * x / Lx) + rng.normal(0, 0.5, 100)
+    keep = np.ones(100, bool)
+    keep[rng.integers(50, 60):][:4] = False          # a long segment
+    x, y = x[keep], y[keep]
+    j = rng.integers(70, 80)
+    x, y = np.insert(x, j, x[j - 1] + 1.5), np.insert(y, j, y[j - 1])   # a short one
+    pin = np.full(len(x), -1)
+    pin[rng.choice(len(x), 8, replace=False)] = np.arange(8)
+    prm = params(Lx, lmin=4.0, lmax=12.0)
+    _, (_, first_bad, *_) = run_node_pass(x, y, pin, prm)
+    assert first_bad > 40
+    for part, whole in zip(remeshed(x, y, pin, prm, first_bad=first_bad),
+                           remeshed(x, y, pin, prm)):
+        np.testing.assert_array_equal(part, whole)
 
 
 def test_remesh_removes_short_arm_at_node_zero():
