@@ -118,6 +118,9 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("dlsim: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:  # output piped into `head` and the like: not an error of the run
+        sys.stderr.close()
+        return 0
 
 
 if __name__ == "__main__":  # pragma: no cover
