@@ -18,6 +18,7 @@ import difflib
 import json
 import math
 import os
+import re
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -806,10 +807,28 @@ def load_case(source: str | os.PathLike | dict | Case, base_dir: str | os.PathLi
                 strength=StrengthSpec(**strength))
 
 
+_ARRAY_KEY = re.compile(r"^(\w+)\[(\d+)\]\.(\w+)$")
+
+
+def _locate(dotted_key: str) -> tuple[str, int | None, str, Section] | None:
+    """(section or array name, 1-based element or None, key, its Section), or None if unknown.
+
+    ``"line.length"`` names a key of a section; ``"populations[2].mean_radius_nm"`` a key of the
+    second element of an array of tables (counted from 1, as in error messages).
+    """
+    m = _ARRAY_KEY.match(dotted_key)
+    if m:
+        name, index, key = m.group(1), int(m.group(2)), m.group(3)
+        sec = ARRAY_SCHEMA.get(name)
+        return (name, index, key, sec) if sec and index >= 1 and key in sec.keys else None
+    section, _, key = dotted_key.rpartition(".")
+    sec = SCHEMA.get(section)
+    return (section, None, key, sec) if sec and key in sec.keys else None
+
+
 def schema_has_key(dotted_key: str) -> bool:
-    """Whether ``"section.key"`` (or a top-level ``"key"``) is a key of :data:`SCHEMA`."""
-    section, _, name = dotted_key.rpartition(".")
-    return section in SCHEMA and name in SCHEMA[section].keys
+    """Whether ``"section.key"``, a top-level ``"key"`` or ``"array[i].key"`` is a case key."""
+    return _locate(dotted_key) is not None
 
 
 def apply_overrides(raw: dict, overrides: dict[str, object], source: str = "<overrides>"
@@ -836,14 +855,24 @@ def apply_overrides(raw: dict, overrides: dict[str, object], source: str = "<ove
     """
     new = copy.deepcopy(raw)
     for dotted, value in overrides.items():
-        if not schema_has_key(dotted):
-            near = _nearest(dotted, [_join(s, k) for s, sec in SCHEMA.items() for k in sec.keys])
+        where = _locate(dotted)
+        if where is None:
+            known = [_join(s, k) for s, sec in SCHEMA.items() for k in sec.keys]
+            known += [f"{a}[1].{k}" for a, sec in ARRAY_SCHEMA.items() for k in sec.keys]
+            near = _nearest(dotted, known)
             raise CaseError(source, dotted, f"got {_show(value)}; {_hint(near)}not a key of a case")
-        prefix, _, name = dotted.rpartition(".")
-        table = new.setdefault(prefix, {}) if prefix else new
+        prefix, index, name, section = where
+        if index is None:
+            table = new.setdefault(prefix, {}) if prefix else new
+        else:
+            elements = new.get(prefix)
+            if not isinstance(elements, list) or index > len(elements):
+                count = len(elements) if isinstance(elements, list) else 0
+                raise CaseError(source, dotted, f"got {_show(value)}; the base case has {count} "
+                                                f"[[{prefix}]] table(s)")
+            table = elements[index - 1]
         if not isinstance(table, dict):
             raise CaseError(source, prefix, f"got {_show(table)}; must be a table [{prefix}]")
-        section = SCHEMA[prefix]
         for group in section.exactly_one + section.at_most_one:
             if name in group:
                 for other in group:

@@ -4,6 +4,7 @@ from __future__ import annotations
 import copy
 import json
 import math
+import re
 from pathlib import Path
 
 import numpy as np
@@ -467,3 +468,22 @@ def test_apply_overrides_values_checked_by_load_case():
 def test_apply_overrides_later_key_of_a_pair_wins():
     new = apply_overrides(BASE, {"line.length_nm": 500.0, "line.length": 4})
     assert new["line"] == {"length": 4}
+
+
+def test_apply_overrides_reaches_array_elements():
+    raw = {"seed": 1, "populations": [{"name": "a", "radius_nm": 2.0, "volume_fraction": 0.01},
+                                      {"name": "b", "radius_nm": 9.0, "volume_fraction": 0.02}]}
+    new = apply_overrides(raw, {"populations[2].number_density_per_um3": 50.0,
+                                "populations[1].radius_nm": 3.0})
+    assert new["populations"][0]["radius_nm"] == 3.0
+    # the either/or partner of the swept key is dropped, so the override wins
+    assert "volume_fraction" not in new["populations"][1]
+    assert raw["populations"][1]["volume_fraction"] == 0.02  # the base is not modified
+
+
+@pytest.mark.parametrize("key", ["populations[3].radius_nm", "populations[0].radius_nm",
+                                 "populations[1].radius"])
+def test_apply_overrides_rejects_unknown_array_keys(key):
+    raw = {"seed": 1, "populations": [{"name": "a"}, {"name": "b"}]}
+    with pytest.raises(CaseError, match=re.escape(f"`{key}`")):
+        apply_overrides(raw, {key: 1.0})
