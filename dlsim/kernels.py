@@ -57,11 +57,17 @@ MAX_STEPS = 2
 CAPACITY = 3
 STATUS_NAMES = ("pinned", "flowing", "unresolved", "capacity")
 
-#: Explicit Euler is stable for dt < 1/λ_max with λ_i = 2MΓ/(a_i b_i) the Gershgorin bound of the
-#: line-tension Jacobian at a node with arms a_i, b_i; 0.8 keeps a margin for the friction kink.
-STABILITY_FRACTION = 0.8
+#: Each node's own line-tension stiffness k_i = 2MΓ/(a_i b_i) (a_i, b_i its arms; the diagonal of
+#: the line-tension Jacobian) is taken implicitly: a node moves by v dt/(1 + k_i dt) (point-implicit
+#: Euler).  The update is non-expansive in the max norm at any dt, so short arms next to pins no
+#: longer bound the step of the whole line (explicit Euler needs dt < a b/(2MΓ) at the shortest
+#: arms), and every equilibrium (v = 0) is the same.  The step is set so that k dt equals this at a
+#: node whose arms are the target spacing (l_min + l_max)/2 (2: half the way to the largest
+#: damped step, a choice checked against the regular-array CRSS).
+STEP_STIFFNESS = 2.0
 #: No node moves more than this fraction of the shortest segment in one step, so that the swept
-#: quadrilaterals stay simple and capture geometry stays accurate.
+#: quadrilaterals stay simple and capture geometry stays accurate.  The few fast nodes (next to a
+#: fresh pin) are held to it one by one rather than shortening the step of the whole line.
 MAX_MOVE_FRACTION = 0.25
 #: Captures recorded in one step at the most (a step moves each node by < l_min/4, so even dense
 #: fields capture a handful).
@@ -135,7 +141,8 @@ def node_pass(x, y, n, pin, prm, tau_int, vx, vy, fpin, ntx, nty):
     Peach–Koehler, ``n`` the normal of the chord r_{i+1} − r_{i−1}, ``l`` the nodal length) is
     reduced by the friction threshold τ_f (no motion while |τ_loc| <= τ_f); the node moves along
     ``n`` at ``M τ_eff``.  A pinned node does not move; ``fpin`` receives the magnitude of the force
-    the line exerts on it, with the Peach–Koehler part reduced by friction like everywhere else.
+    the line exerts on it, with the Peach–Koehler part reduced by friction like everywhere else,
+    and at a free node its line-tension stiffness ``2 M Γ/(a b)`` (per time unit; STEP_STIFFNESS).
     ``ntx, nty`` receive the unit chord tangent at each node.  Each segment is computed once and
     carried to the next node, so every node's data is read once per pass.
 
@@ -227,6 +234,7 @@ def node_pass(x, y, n, pin, prm, tau_int, vx, vy, fpin, ntx, nty):
                 vx[i] = -speed * tny
                 vy[i] = speed * tnx
             min_ab = min(min_ab, a * b)
+            fpin[i] = 2.0 * mob * gamma / (a * b)
         ax, ay, a, uax, uay = bx, by, b, ubx, uby
     stiff = 0.0 if min_ab == np.inf else 1.0 / min_ab
     return area, first_bad, max_te, stiff, vmax, turned
@@ -378,10 +386,24 @@ def _inside(px, py, cx, cy, r):
     return r > 0.0 and dx * dx + dy * dy < r * r
 
 
+@njit(inline="always", **JIT)
+def _step_factor(vx, vy, k, dt, cap2):
+    """Time a node moves for: dt/(1 + k dt), less if it would move more than sqrt(cap2)."""
+    h = dt / (1.0 + k * dt)
+    v2 = vx * vx + vy * vy
+    if v2 * h * h > cap2:
+        h = np.sqrt(cap2 / v2)
+    return h
+
+
 @njit(**JIT)
-def move_and_capture(x, y, n, ign, vx, vy, dt, ox, oy, opin, cstart, citems, ncx, ncy, prm,
-                     rx, ry, rad, cap_seg, cap_s, cap_obs, cap_x, cap_y):
-    """Advance every node by ``v dt`` and list the obstacles the segments sweep (no tunnelling).
+def move_and_capture(x, y, n, ign, vx, vy, stiff, dt, ox, oy, opin, cstart, citems, ncx, ncy,
+                     prm, rx, ry, rad, cap_seg, cap_s, cap_obs, cap_x, cap_y):
+    """Advance every node by ``v dt / (1 + k dt)`` and list the obstacles the segments sweep.
+
+    ``k = stiff`` is each node's line-tension stiffness (per time unit, from :func:`node_pass`;
+    zero gives plain explicit Euler), see STEP_STIFFNESS; no node moves more than
+    MAX_MOVE_FRACTION l_min.  No obstacle is tunnelled through:
 
     The area segment i sweeps is the quadrilateral old(i), old(i+1), new(i+1), new(i)
     (:func:`_capture_in_quad`); segments with both ends at rest sweep nothing.  Obstacles come from a
@@ -415,18 +437,22 @@ def move_and_capture(x, y, n, ign, vx, vy, dt, ox, oy, opin, cstart, citems, ncx
     wait2 = (REFRESH_FRACTION * lmin) ** 2
     x_first, y_first = x[0], y[0]          # node 0 before it moves, for the closing segment
     xa, ya, vxa, vya, ga = x[0], y[0], vx[0], vy[0], ign[0]
-    xa_new, ya_new = xa + vxa * dt, ya + vya * dt
+    cap2 = (MAX_MOVE_FRACTION * lmin) ** 2
+    ha = _step_factor(vx[0], vy[0], stiff[0], dt, cap2)
+    h_first = ha
+    xa_new, ya_new = xa + vxa * ha, ya + vya * ha
     safe_a = _inside(xa_new, ya_new, rx[0], ry[0], rad[0])
     safe_first = safe_a
     ncap = 0
     for i in range(n):
         if i < n - 1:
             xb, yb, vxb, vyb, gb = x[i + 1], y[i + 1], vx[i + 1], vy[i + 1], ign[i + 1]
-            xb_new, yb_new = xb + vxb * dt, yb + vyb * dt
+            hb = _step_factor(vxb, vyb, stiff[i + 1], dt, cap2)
+            xb_new, yb_new = xb + vxb * hb, yb + vyb * hb
             safe_b = _inside(xb_new, yb_new, rx[i + 1], ry[i + 1], rad[i + 1])
         else:
             xb, yb, vxb, vyb, gb = x_first + Lx, y_first, vx[0], vy[0], ign[0]
-            xb_new, yb_new = xb + vxb * dt, yb + vyb * dt
+            xb_new, yb_new = xb + vxb * h_first, yb + vyb * h_first
             safe_b = safe_first
         if vxa != 0.0 or vya != 0.0 or vxb != 0.0 or vyb != 0.0:
             ex, ey = xb - xa, yb - ya
@@ -734,7 +760,71 @@ def find_contact(x, y, n, pin, ntx, nty, prm, head, nxt):
 
 
 @njit(**JIT)
-def reconnect(x, y, pin, ign, n, i, j, Lx, meta, lx, ly, lpin, loff, rx, ry, rad):
+def _cut_crosses_obstacle(x, y, n, i, j, shift, Lx, Ly, ox, oy, opin, cstart, citems, ncx, ncy):
+    """Whether a free obstacle lies in the corner a reconnection of i and j cuts (i's frame).
+
+    The corner is the polygon i-1, i, i+1, j-1, j, j+1, m (m the joining midpoint) or, across the
+    seam, where the loop is the other part, i-1, i, i+1, m, j-1, j, j+1; the fan of triangles from
+    m over its other edges covers it (the winding number of the polygon about any inside point is
+    the sum of the fan triangles').
+    """
+    ixm, iym, ixp, iyp = _neighbours(x, y, n, i, Lx)
+    jxm, jym, jxp, jyp = _neighbours(x, y, n, j, Lx)
+    jx = x[j] - shift
+    jxm, jxp = jxm - shift, jxp - shift
+    mx, my = 0.5 * (x[i] + jx), 0.5 * (y[i] + y[j])
+    px = (ixm, x[i], ixp, jxm, jx, jxp)
+    py = (iym, y[i], iyp, jym, y[j], jyp)
+    for k in range(5):
+        a = k if shift == 0.0 or k < 2 else k + 1    # across the seam: skip (i+1, j-1) ...
+        b = (a + 1) % 6                                # ... and close with (j+1, i-1)
+        if free_obstacle_in_triangle(mx, my, px[a], py[a], px[b], py[b], ox, oy, opin,
+                                     cstart, citems, ncx, ncy, Lx, Ly):
+            return True
+    return False
+
+
+@njit(**JIT)
+def _obstacle_in_loop(x, y, n, lo, hi, shift, Lx, Ly, ox, oy, opin, cstart, citems, ncx, ncy):
+    """Whether a free obstacle lies inside the closed loop of nodes lo..hi (indices mod n, the
+    nodes past n shifted by ``shift``): crossing number of a ray in +x over the loop's edges."""
+    x0, x1, y0, y1 = np.inf, -np.inf, np.inf, -np.inf
+    for q in range(lo, hi + 1):
+        qx = x[q % n] + (shift if q >= n else 0.0)
+        x0, x1, y0, y1 = min(x0, qx), max(x1, qx), min(y0, y[q % n]), max(y1, y[q % n])
+    kx0, sx0, nx = _cell_span(x0, x1, Lx, ncx)
+    ky0, sy0, ny = _cell_span(y0, y1, Ly, ncy)
+    kx, shx = kx0, sx0
+    for _ in range(nx):
+        ky, shy = ky0, sy0
+        for _ in range(ny):
+            cell = kx + ncx * ky
+            for c in range(cstart[cell], cstart[cell + 1]):
+                k = citems[c]
+                px, py = ox[k] + shx, oy[k] + shy
+                if opin[k] > 0 or px < x0 or px > x1 or py < y0 or py > y1:
+                    continue
+                inside = False
+                for q in range(lo, hi + 1):
+                    r = q + 1 if q < hi else lo
+                    ax, ay = x[q % n] + (shift if q >= n else 0.0), y[q % n]
+                    bx, by = x[r % n] + (shift if r >= n else 0.0), y[r % n]
+                    if (ay > py) != (by > py) and px < ax + (py - ay) * (bx - ax) / (by - ay):
+                        inside = not inside
+                if inside:
+                    return True
+            ky += 1
+            if ky == ncy:
+                ky, shy = 0, shy + Ly
+        kx += 1
+        if kx == ncx:
+            kx, shx = 0, shx + Lx
+    return False
+
+
+@njit(**JIT)
+def reconnect(x, y, pin, ign, n, i, j, Lx, Ly, meta, lx, ly, lpin, loff, rx, ry, rad,
+              ox, oy, opin, cstart, citems, ncx, ncy):
     """Join two parts of opposite sense at nodes i < j, cutting off a closed loop.
 
     The line is rebuilt in place as ``[..i-1, m, j+1..]`` (m the midpoint of i and j) and the part
@@ -746,6 +836,11 @@ def reconnect(x, y, pin, ign, n, i, j, Lx, meta, lx, ly, lpin, loff, rx, ry, rad
     contact is not a reconnection (folded across the seam backwards), -1 when the loop buffers are
     full (nothing changed).  The clearances ``rx, ry, rad`` (:func:`move_and_capture`) move with
     their nodes; the joining node's is unknown.
+
+    Reconnection must not tunnel either: it is refused (``n`` returned, nothing changed) while a
+    free obstacle (``ox, oy, opin`` and the periodic cell list) lies in the corner it cuts, the
+    polygon i-1, i, i+1, j-1, j, j+1, m, or inside a loop that would be dropped.  The line then
+    moves on, sweeps and captures that obstacle, and reconnects later around it.
     """
     shift = Lx * np.floor((x[j] - x[i]) / Lx + 0.5)
     if shift < 0.0:
@@ -758,6 +853,11 @@ def reconnect(x, y, pin, ign, n, i, j, Lx, meta, lx, ly, lpin, loff, rx, ry, rad
     for q in range(lo, hi + 1):
         if pin[q % n] >= 0:
             has_pin = True
+    if _cut_crosses_obstacle(x, y, n, i, j, shift, Lx, Ly, ox, oy, opin, cstart, citems, ncx, ncy):
+        return n
+    if not has_pin and _obstacle_in_loop(x, y, n, lo, hi, shift, Lx, Ly, ox, oy, opin, cstart,
+                                         citems, ncx, ncy):
+        return n
     if has_pin:
         nl, used = meta[M_NLOOPS], meta[M_NLOOPNODES]
         if used + (hi - lo + 1) > lx.shape[0] or nl + 2 > loff.shape[0]:
@@ -822,15 +922,10 @@ def _gather_clearance(lo, n, src, rx, ry, rad, buf_a, buf_b):
 
 
 @njit(**JIT)
-def time_step(prm, stiff, vmax):
-    """Stable explicit time step, also short enough that no node moves MAX_MOVE_FRACTION l_min.
-
-    ``stiff`` is the largest 1/(a b) over free nodes (b⁻²), ``vmax`` the largest node speed.
-    """
-    dt = STABILITY_FRACTION / (2.0 * prm[P_MOB] * prm[P_GAMMA] * stiff)
-    if vmax * dt > MAX_MOVE_FRACTION * prm[P_LMIN]:
-        dt = MAX_MOVE_FRACTION * prm[P_LMIN] / vmax
-    return dt
+def time_step(prm):
+    """Time step of the point-implicit update (STEP_STIFFNESS; time unit 1/(M G))."""
+    h = 0.5 * (prm[P_LMIN] + prm[P_LMAX])
+    return STEP_STIFFNESS * h * h / (2.0 * prm[P_MOB] * prm[P_GAMMA])
 
 
 @njit(**JIT)
@@ -914,8 +1009,8 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
             meta[M_CONTACT_CHECKS] += 1
             i, j = find_contact(x, y, n, pin, ntx, nty, prm, head, nxt)
             if i >= 0:
-                n_new = reconnect(x, y, pin, ign, n, i, j, Lx, meta, lx, ly, lpin, loff,
-                                  rx, ry, rad)
+                n_new = reconnect(x, y, pin, ign, n, i, j, Lx, prm[P_LY], meta, lx, ly, lpin,
+                                  loff, rx, ry, rad, ox, oy, opin, cstart, citems, ncx, ncy)
                 if n_new < 0:
                     meta[M_N] = n
                     return CAPACITY
@@ -926,9 +1021,9 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
         if max_te < prm[P_TOL]:
             meta[M_N] = n
             return EQUILIBRIUM
-        dt = time_step(prm, stiff, vmax)
-        ncap = move_and_capture(x, y, n, ign, vx, vy, dt, ox, oy, opin, cstart, citems, ncx, ncy,
-                                prm, rx, ry, rad, cap_seg, cap_s, cap_obs, cap_x, cap_y)
+        dt = time_step(prm)
+        ncap = move_and_capture(x, y, n, ign, vx, vy, fpin, dt, ox, oy, opin, cstart, citems,
+                                ncx, ncy, prm, rx, ry, rad, cap_seg, cap_s, cap_obs, cap_x, cap_y)
         if ncap > 0:
             meta[M_CAPTURES] += ncap
             n = insert_pins(x, y, pin, ign, n, ncap, cap_seg, cap_s, cap_obs, cap_x, cap_y, opin,

@@ -170,9 +170,10 @@ def run_captures(x, y, pin, ign, v, dt, ox, oy, opin, Lx, Ly, cell):
     w = Work(n)
     xm, ym = x.copy(), y.copy()
     rx, ry, rad = np.zeros(n), np.zeros(n), np.full(n, K.UNKNOWN)
+    # l_min large: the step limit MAX_MOVE_FRACTION l_min does not hold any node back here
     ncap = K.move_and_capture(xm, ym, n, ign, np.ascontiguousarray(v[:, 0]),
-                              np.ascontiguousarray(v[:, 1]), dt, ox, oy, opin, cstart, citems,
-                              ncx, ncy, params(Lx, Ly), rx, ry, rad, w.cap_seg, w.cap_s,
+                              np.ascontiguousarray(v[:, 1]), np.zeros(n), dt, ox, oy, opin,
+                              cstart, citems, ncx, ncy, params(Lx, Ly, lmin=1e3), rx, ry, rad, w.cap_seg, w.cap_s,
                               w.cap_obs, w.cap_x, w.cap_y)
     # every node advanced by v dt
     np.testing.assert_allclose(np.stack([xm, ym], 1), np.stack([x, y], 1) + v * dt, rtol=1e-15)
@@ -265,13 +266,14 @@ def test_captures_with_kept_clearances_equal_brute_force_every_step(seed):
     total = skipped = 0
     steps = 100
     for step in range(steps):
-        v = np.abs(rng.normal(0.0, 0.4, (n, 2))) * [0.3, 1.0]
+        v = np.minimum(np.abs(rng.normal(0.0, 0.4, (n, 2))), 0.8) * [0.3, 1.0]  # < l_min/4
         v[rng.random(n) < 0.1] = 0.0
         dt = 1.0
         ref = naive.find_captures(x, y, pin, ign, v, dt, ox, oy, opin, Lx, Ly)
         skipped += np.count_nonzero(rad > 0)
         ncap = K.move_and_capture(x, y, n, ign, np.ascontiguousarray(v[:, 0]),
-                                  np.ascontiguousarray(v[:, 1]), dt, ox, oy, opin, cstart, citems,
+                                  np.ascontiguousarray(v[:, 1]), np.zeros(n), dt, ox, oy, opin,
+                                  cstart, citems,
                                   ncx, ncy, prm, rx, ry, rad, w.cap_seg, w.cap_s, w.cap_obs,
                                   w.cap_x, w.cap_y)
         found = {int(w.cap_obs[c]): int(w.cap_seg[c]) for c in range(ncap)}
@@ -508,7 +510,10 @@ def test_reconnect_leaves_line_and_loop():
     meta = np.zeros(K.N_META, np.int64)
     lx, ly, lp, loff = np.zeros(cap), np.zeros(cap), np.full(cap, -1), np.zeros(cap, np.int64)
     rx, ry, rad = np.zeros(cap), np.zeros(cap), np.zeros(cap)
-    m = K.reconnect(xs, ys, ps, gs, n, i, j, Lx, meta, lx, ly, lp, loff, rx, ry, rad)
+    cstart, citems, ncx, ncy = cells([], [], Lx, 100.0, 50.0)
+    none = np.zeros(0)
+    m = K.reconnect(xs, ys, ps, gs, n, i, j, Lx, 100.0, meta, lx, ly, lp, loff, rx, ry, rad,
+                    none, none, np.zeros(0, np.int64), cstart, citems, ncx, ncy)
     used = int(meta[K.M_NLOOPNODES])
     assert meta[K.M_NLOOPS] == 1
     assert m + used == n - 1                      # nodes i and j merge into one
@@ -517,6 +522,46 @@ def test_reconnect_leaves_line_and_loop():
     # the loop is cut off where the legs touch: the line keeps the part below, the loop the rest
     assert np.min(ly[:used]) >= np.max(ys[:m]) - 1e-12
     assert naive.line_area(xs[:m], ys[:m], Lx) < naive.line_area(x, y, Lx)
+
+
+def test_move_and_capture_point_implicit_step():
+    # a node moves by v dt/(1 + k dt), and never more than MAX_MOVE_FRACTION l_min
+    Lx, n = 100.0, 4
+    x, y = np.array([10.0, 35.0, 60.0, 85.0]), np.zeros(n)
+    vx, vy = np.zeros(n), np.array([1.0, 2.0, 0.5, 40.0])
+    k = np.array([0.0, 1.0, 3.0, 0.0])
+    dt = 0.5
+    prm = params(Lx, 100.0, lmin=20.0, lmax=30.0)
+    cstart, citems, ncx, ncy = cells([], [], Lx, 100.0, 25.0)
+    w = Work(n)
+    none = np.zeros(0)
+    K.move_and_capture(x, y, n, np.full(n, -1), vx, vy, k, dt, none, none, np.zeros(0, np.int64),
+                       cstart, citems, ncx, ncy, prm, np.zeros(n), np.zeros(n),
+                       np.full(n, K.UNKNOWN), w.cap_seg, w.cap_s, w.cap_obs, w.cap_x, w.cap_y)
+    expect = vy * dt / (1 + k * dt)
+    expect[3] = K.MAX_MOVE_FRACTION * 20.0
+    np.testing.assert_allclose(y, expect, rtol=1e-14)
+
+
+def test_relaxation_bows_to_circular_arc():
+    # a segment pinned at both ends bows to a circular arc of radius Γ/(τ b) (physics.md;
+    # Hirth & Lothe 1982, ch. 6): here one obstacle per period, so the arc spans L
+    from dlsim.fields import square_field
+    L = 200.0
+    field = square_field(L, 1, 1, np.inf)
+    model = LineModel(GAMMA, node_spacing=L / 40)
+    tau = 0.5 * 2 * GAMMA / L                       # R = Γ/τ = L, below the Orowan stress
+    protocol = Protocol(0.1 * tau, 1e-7 * tau, 10 * L, 0, 400_000, 10 * tau)
+    state = LineState.straight(L, 0.0, model.node_spacing)
+    name, _ = Relaxer(field, model).relax(state, tau, state.area(), protocol)
+    assert name == "pinned"
+    x, y, pin = state.nodes()
+    R = GAMMA / tau
+    cx, cy = L, 0.5 * L - np.sqrt(R * R - 0.25 * L * L)   # arc from (L/2, L/2) to its image
+    xs = np.where(x < 0.5 * L, x + L, x)
+    r = np.hypot(xs - cx, y - cy)
+    # the arc is resolved by 40 chords: the nodes lie on it to well under 1% of R
+    assert np.max(np.abs(r - R)) < 1e-3 * R
 
 
 # --- whole relaxation: no tunnelling -------------------------------------------------------------
