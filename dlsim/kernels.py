@@ -397,8 +397,8 @@ def _step_factor(vx, vy, k, dt, cap2):
 
 
 @njit(**JIT)
-def move_and_capture(x, y, n, ign, vx, vy, stiff, dt, ox, oy, opin, cstart, citems, ncx, ncy,
-                     prm, rx, ry, rad, cap_seg, cap_s, cap_obs, cap_x, cap_y):
+def move_and_capture(x, y, n, pin, ign, vx, vy, stiff, dt, ox, oy, opin, cstart, citems, ncx,
+                     ncy, prm, rx, ry, rad, cap_seg, cap_s, cap_obs, cap_x, cap_y):
     """Advance every node by ``v dt / (1 + k dt)`` and list the obstacles the segments sweep.
 
     ``k = stiff`` is each node's line-tension stiffness (per time unit, from :func:`node_pass`;
@@ -426,17 +426,21 @@ def move_and_capture(x, y, n, ign, vx, vy, stiff, dt, ox, oy, opin, cstart, cite
 
     Returns
     -------
-    int
+    ncap : int
         Number of captures written to ``cap_*`` (segment, position along the new segment,
         obstacle, x, y of its image).
+    first_bad : int
+        The first segment out of its bounds after the move, as in :func:`node_pass` (-1: none).
     """
     Lx, Ly, lmin, lmax = prm[P_LX], prm[P_LY], prm[P_LMIN], prm[P_LMAX]
+    lmin2 = lmin * lmin
+    first_bad = -1
     reach = min(Lx / ncx, Ly / ncy)
     half = 0.5 * lmax
     lmax2 = lmax * lmax
     wait2 = (REFRESH_FRACTION * lmin) ** 2
     x_first, y_first = x[0], y[0]          # node 0 before it moves, for the closing segment
-    xa, ya, vxa, vya, ga = x[0], y[0], vx[0], vy[0], ign[0]
+    xa, ya, vxa, vya, ga, pa = x[0], y[0], vx[0], vy[0], ign[0], pin[0]
     cap2 = (MAX_MOVE_FRACTION * lmin) ** 2
     ha = _step_factor(vx[0], vy[0], stiff[0], dt, cap2)
     h_first = ha
@@ -447,18 +451,22 @@ def move_and_capture(x, y, n, ign, vx, vy, stiff, dt, ox, oy, opin, cstart, cite
     for i in range(n):
         if i < n - 1:
             xb, yb, vxb, vyb, gb = x[i + 1], y[i + 1], vx[i + 1], vy[i + 1], ign[i + 1]
+            pb = pin[i + 1]
             hb = _step_factor(vxb, vyb, stiff[i + 1], dt, cap2)
             xb_new, yb_new = xb + vxb * hb, yb + vyb * hb
             safe_b = _inside(xb_new, yb_new, rx[i + 1], ry[i + 1], rad[i + 1])
         else:
             xb, yb, vxb, vyb, gb = x_first + Lx, y_first, vx[0], vy[0], ign[0]
+            pb = pin[0]
             xb_new, yb_new = xb + vxb * h_first, yb + vyb * h_first
             safe_b = safe_first
+        fx, fy = xb_new - xa_new, yb_new - ya_new
+        f2 = fx * fx + fy * fy
+        if first_bad < 0 and (f2 > lmax2 or (f2 < lmin2 and (pa < 0 or pb < 0))):
+            first_bad = i
         if vxa != 0.0 or vya != 0.0 or vxb != 0.0 or vyb != 0.0:
             ex, ey = xb - xa, yb - ya
-            fx, fy = xb_new - xa_new, yb_new - ya_new
-            if (not (safe_a and safe_b) or ex * ex + ey * ey > lmax2
-                    or fx * fx + fy * fy > lmax2):
+            if not (safe_a and safe_b) or ex * ex + ey * ey > lmax2 or f2 > lmax2:
                 ncap = _capture_in_quad(i, xa, ya, xb, yb, xb_new, yb_new, xa_new, ya_new, ga, gb,
                                         ox, oy, opin, cstart, citems, ncx, ncy, Lx, Ly, ncap,
                                         cap_seg, cap_s, cap_obs, cap_x, cap_y)
@@ -470,9 +478,9 @@ def move_and_capture(x, y, n, ign, vx, vy, stiff, dt, ox, oy, opin, cstart, cite
                 rx[i], ry[i] = xa_new, ya_new
                 rad[i] = _clearance(xa_new, ya_new, reach, ox, oy, opin, cstart, citems,
                                     ncx, ncy, Lx, Ly) - half
-        xa, ya, vxa, vya, ga = xb, yb, vxb, vyb, gb
+        xa, ya, vxa, vya, ga, pa = xb, yb, vxb, vyb, gb, pb
         xa_new, ya_new, safe_a = xb_new, yb_new, safe_b
-    return ncap
+    return ncap, first_bad
 
 
 @njit(**JIT)
@@ -905,6 +913,16 @@ def _release(n, pin, ign, fpin, ofc, opin):
 
 
 @njit(**JIT)
+def _remesh_line(x, y, pin, ign, n, prm, first_bad, bx, by, bpin, bign, src, keep, rx, ry, rad,
+                 ox, oy, opin, cstart, citems, ncx, ncy):
+    """:func:`remesh` from ``first_bad`` on, the node clearances following; return the count."""
+    n, lo = remesh(x, y, pin, ign, n, prm, first_bad, bx, by, bpin, bign, src, keep, ox, oy,
+                   opin, cstart, citems, ncx, ncy)
+    _gather_clearance(lo, n, src, rx, ry, rad, bx, by)
+    return n
+
+
+@njit(**JIT)
 def _gather_clearance(lo, n, src, rx, ry, rad, buf_a, buf_b):
     """Reorder the clearances of nodes lo.. after remeshing (``src``: old index or -1, see
     :func:`remesh`)."""
@@ -985,16 +1003,15 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
     for _ in range(4 * max_steps):
         if moved >= max_steps:
             break
-        if 2 * n + MAX_CAPTURES + 16 > cap:
+        if 2 * n + 2 * MAX_CAPTURES + 16 > cap:   # room to insert captures, then remesh
             meta[M_N] = n
             return CAPACITY
         area, bad, max_te, stiff, vmax, turned = node_pass(x, y, n, pin, prm, tau_int,
                                                            vx, vy, fpin, ntx, nty)
-        if bad >= 0:
+        if bad >= 0:   # the line was changed since the last move, or could not be remeshed
             meta[M_REMESH] += 1
-            n, lo = remesh(x, y, pin, ign, n, prm, bad, bx, by, bpin, bign, head, nxt, ox, oy,
-                           opin, cstart, citems, ncx, ncy)
-            _gather_clearance(lo, n, head, rx, ry, rad, bx, by)
+            n = _remesh_line(x, y, pin, ign, n, prm, bad, bx, by, bpin, bign, head, nxt, rx, ry,
+                             rad, ox, oy, opin, cstart, citems, ncx, ncy)
             area, bad, max_te, stiff, vmax, turned = node_pass(x, y, n, pin, prm, tau_int,
                                                                vx, vy, fpin, ntx, nty)
         if (area - prm[P_AREF]) / Lx > prm[P_FLOW]:
@@ -1022,12 +1039,18 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
             meta[M_N] = n
             return EQUILIBRIUM
         dt = time_step(prm)
-        ncap = move_and_capture(x, y, n, ign, vx, vy, fpin, dt, ox, oy, opin, cstart, citems,
-                                ncx, ncy, prm, rx, ry, rad, cap_seg, cap_s, cap_obs, cap_x, cap_y)
+        ncap, bad = move_and_capture(x, y, n, pin, ign, vx, vy, fpin, dt, ox, oy, opin, cstart,
+                                     citems, ncx, ncy, prm, rx, ry, rad, cap_seg, cap_s, cap_obs,
+                                     cap_x, cap_y)
         if ncap > 0:
             meta[M_CAPTURES] += ncap
             n = insert_pins(x, y, pin, ign, n, ncap, cap_seg, cap_s, cap_obs, cap_x, cap_y, opin,
                             rx, ry, rad)
+            bad = cap_seg[0] if bad < 0 else min(bad, cap_seg[0])   # pins split segments
+        if bad >= 0:   # remesh now, so that the next step's node_pass is its only one
+            meta[M_REMESH] += 1
+            n = _remesh_line(x, y, pin, ign, n, prm, bad, bx, by, bpin, bign, head, nxt, rx, ry,
+                             rad, ox, oy, opin, cstart, citems, ncx, ncy)
         moved += 1
         meta[M_STEPS] += 1
     meta[M_N] = n

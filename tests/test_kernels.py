@@ -171,7 +171,7 @@ def run_captures(x, y, pin, ign, v, dt, ox, oy, opin, Lx, Ly, cell):
     xm, ym = x.copy(), y.copy()
     rx, ry, rad = np.zeros(n), np.zeros(n), np.full(n, K.UNKNOWN)
     # l_min large: the step limit MAX_MOVE_FRACTION l_min does not hold any node back here
-    ncap = K.move_and_capture(xm, ym, n, ign, np.ascontiguousarray(v[:, 0]),
+    ncap, _ = K.move_and_capture(xm, ym, n, pin, ign, np.ascontiguousarray(v[:, 0]),
                               np.ascontiguousarray(v[:, 1]), np.zeros(n), dt, ox, oy, opin,
                               cstart, citems, ncx, ncy, params(Lx, Ly, lmin=1e3), rx, ry, rad, w.cap_seg, w.cap_s,
                               w.cap_obs, w.cap_x, w.cap_y)
@@ -271,7 +271,7 @@ def test_captures_with_kept_clearances_equal_brute_force_every_step(seed):
         dt = 1.0
         ref = naive.find_captures(x, y, pin, ign, v, dt, ox, oy, opin, Lx, Ly)
         skipped += np.count_nonzero(rad > 0)
-        ncap = K.move_and_capture(x, y, n, ign, np.ascontiguousarray(v[:, 0]),
+        ncap, _ = K.move_and_capture(x, y, n, pin, ign, np.ascontiguousarray(v[:, 0]),
                                   np.ascontiguousarray(v[:, 1]), np.zeros(n), dt, ox, oy, opin,
                                   cstart, citems,
                                   ncx, ncy, prm, rx, ry, rad, w.cap_seg, w.cap_s, w.cap_obs,
@@ -535,7 +535,7 @@ def test_move_and_capture_point_implicit_step():
     cstart, citems, ncx, ncy = cells([], [], Lx, 100.0, 25.0)
     w = Work(n)
     none = np.zeros(0)
-    K.move_and_capture(x, y, n, np.full(n, -1), vx, vy, k, dt, none, none, np.zeros(0, np.int64),
+    K.move_and_capture(x, y, n, np.full(n, -1), np.full(n, -1), vx, vy, k, dt, none, none, np.zeros(0, np.int64),
                        cstart, citems, ncx, ncy, prm, np.zeros(n), np.zeros(n),
                        np.full(n, K.UNKNOWN), w.cap_seg, w.cap_s, w.cap_obs, w.cap_x, w.cap_y)
     expect = vy * dt / (1 + k * dt)
