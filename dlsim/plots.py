@@ -214,7 +214,7 @@ def _draw_curves(ax, table: dict, rows: np.ndarray, x: str, curve: str | None, q
                            marker="o", capsize=4, label=label)
         colour = bars[0].get_color()
         for style, col in zip(itertools.cycle(ESTIMATE_STYLES), estimates if q == "crss" else []):
-            name = col.removeprefix("estimate_").removesuffix("_MPa")
+            name = col.removeprefix("estimate_").removesuffix("_MPa").replace("_", " ")
             ax.plot(xs, _sorted(table, sel, x, [col])[1][0], linestyle=style, color=colour,
                     linewidth=1.5, label=f"{name} estimate" if i == 0 else None)
         if not estimates and q == "crss" and "orowan_MPa" in table:
@@ -358,7 +358,8 @@ def _field_figure(run: dict, box) -> Figure:
             sel = loops["loop"] == k
             lx, ly = np.append(loops["x_nm"][sel], loops["x_nm"][sel][:1]), \
                 np.append(loops["y_nm"][sel], loops["y_nm"][sel][:1])
-            ax.plot(*wrap_polyline(lx, ly, box), color="C1", linewidth=1.5, zorder=3)
+            # Under the line (zorder 2.5), so the final configuration stays readable.
+            ax.plot(*wrap_polyline(lx, ly, box), color="C1", linewidth=1.0, zorder=2.5)
     ax.set_xlabel("x (nm)")
     ax.set_ylabel("glide direction y (nm)")
     ax.set_title(f"final pinned line, CRSS = {run['result']['crss_MPa']:.4g} MPa")
