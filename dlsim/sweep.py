@@ -88,7 +88,8 @@ class RunSpec:
     params : dict
         Swept dotted key → value at this point.
     case : dict
-        The complete raw case (base with the overrides and the seed applied).
+        The complete resolved case (base with the overrides and the seed applied, every default
+        filled in, paths absolute), as :meth:`dlsim.case.Case.to_dict` gives it.
     """
 
     run_id: str
@@ -176,7 +177,7 @@ def load_sweep(sweep: str | os.PathLike | dict) -> Sweep:
     unknown = sorted(set(raw) - set(SWEEP_KEYS))
     if unknown:
         raise CaseError(source, unknown[0], f"unknown sweep key; allowed: {', '.join(SWEEP_KEYS)}")
-    base = _load_base(raw, source, folder)
+    base, base_dir = _load_base(raw, source, folder)
     vary, scales = _parse_vary(raw.get("vary"), source)
     combine = raw.get("combine", "grid")
     if combine not in COMBINE_MODES:
@@ -188,7 +189,7 @@ def load_sweep(sweep: str | os.PathLike | dict) -> Sweep:
     if not isinstance(title, str):
         raise CaseError(source, "title", f"got {title!r}; must be a string")
     points = _combine(vary, combine, source)
-    runs = _expand(base, points, seeds, source)
+    runs = _expand(base, base_dir, points, seeds, source)
     return Sweep(source=source, vary=vary, scales=scales, combine=combine, seeds=seeds,
                  runs=runs, out_dir=_output_folder(raw.get("output"), source, folder),
                  title=title)
@@ -207,8 +208,8 @@ def _read_toml(sweep) -> tuple[dict, str, Path]:
         raise CaseError(str(path), "", f"not valid TOML: {err}") from None
 
 
-def _load_base(raw: dict, source: str, folder: Path) -> dict:
-    """The base case as a raw dictionary, validated once."""
+def _load_base(raw: dict, source: str, folder: Path) -> tuple[dict, Path]:
+    """The base case as a raw dictionary, validated once, and the folder its paths count from."""
     from .case import load_case
 
     base = raw.get("base")
@@ -220,19 +221,23 @@ def _load_base(raw: dict, source: str, folder: Path) -> dict:
             raise CaseError(source, "base", f"case file {str(path)!r} not found")
         load_case(path)  # errors name the case file itself
         with open(path, "rb") as fh:
-            return tomllib.load(fh)
+            return tomllib.load(fh), path.resolve().parent
     if isinstance(base, dict):
-        _validate_case(base, source, "base")
-        return copy.deepcopy(base)
+        _resolved_case(base, folder, source, "base")
+        return copy.deepcopy(base), folder
     raise CaseError(source, "base", f"got {base!r}; must be a path or a table")
 
 
-def _validate_case(case: dict, source: str, where: str) -> None:
-    """Validate a raw case; re-raise its errors against the sweep file."""
+def _resolved_case(case: dict, base_dir: Path, source: str, where: str) -> dict:
+    """Validate a raw case and return it resolved (every default filled in, paths absolute).
+
+    Resolving here makes each run independent of the folder a worker runs in, and ``sweep.json``
+    shows exactly what ran.  Errors are re-raised against the sweep file.
+    """
     from .case import load_case
 
     try:
-        load_case(case)
+        return load_case(case, base_dir=base_dir).to_dict()
     except CaseError as err:
         raise CaseError(source, err.key, f"{err.problem} ({where})") from None
 
@@ -320,15 +325,19 @@ def _combine(vary: dict, combine: str, source: str) -> list[dict]:
     return [dict(zip(keys, row)) for row in rows]
 
 
-def _expand(base: dict, points: list[dict], seeds: int, source: str) -> list[RunSpec]:
+def _expand(base: dict, base_dir: Path, points: list[dict], seeds: int, source: str
+            ) -> list[RunSpec]:
     from .case import apply_overrides
 
     width = max(3, len(str(len(points) - 1)))
     swidth = max(2, len(str(seeds - 1)))
     runs = []
     for p, params in enumerate(points):
-        case = apply_overrides(base, params, source=source)
-        _validate_case(case, source, f"sweep point {p}: {_describe(params)}")
+        case = _resolved_case(apply_overrides(base, params, source=source), base_dir, source,
+                              f"sweep point {p}: {_describe(params)}")
+        # A run's folder is runs/<id>; the resolved default (an absolute path on this machine)
+        # would only tie sweep.json to where the sweep was first started.
+        case.get("output", {}).pop("folder", None)
         for k, seed in enumerate(derive_seeds(case["seed"], seeds)):
             run_case = copy.deepcopy(case)
             run_case["seed"] = seed

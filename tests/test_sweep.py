@@ -302,3 +302,20 @@ def test_run_sweep_dask_missing_gives_install_hint(tmp_path, monkeypatch):
     with pytest.raises(DlsimError, match=r"pip install 'dlsim\[cluster\]'"):
         run_sweep(write_sweep(tmp_path), out_dir=tmp_path / "out", scheduler="local",
                   progress=False)
+
+
+def test_load_sweep_base_paths_resolved_against_case_file(tmp_path):
+    """A particle file named relative to the base case still resolves from another folder."""
+    cases, sweeps = tmp_path / "cases", tmp_path / "sweeps"
+    cases.mkdir()
+    sweeps.mkdir()
+    (cases / "parts.csv").write_text("x_nm,y_nm,radius_nm\n10,10,2\n50,60,3\n")
+    (cases / "base.toml").write_text(
+        'seed = 3\n[material]\nsymbol = "Al"\n[line]\nlength_nm = 100\n[[populations]]\n'
+        'name = "p"\narrangement = "file"\nfile = "parts.csv"\nfile_kind = "sections"\n'
+        'strength = "impenetrable"\n')
+    (sweeps / "s.toml").write_text('base = "../cases/base.toml"\n[vary]\n'
+                                   '"line.tension_alpha" = [0.4, 0.5]\n')
+    sw = load_sweep(sweeps / "s.toml")
+    assert [Path(r.case["populations"][0]["file"]) for r in sw.runs] == [
+        (cases / "parts.csv").resolve()] * 2
