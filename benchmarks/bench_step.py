@@ -8,7 +8,7 @@ Run: ``python benchmarks/bench_step.py [--repeats 3] [--quick]``.
    square-array Orowan stress 2Γ/(b L_s), above the random-array CRSS, so it keeps moving and
    capturing.  The line is first run for a while so that it is bowed and pinned; each measurement
    restarts from that state.
-2. The cost of each kernel of the step, timed alone on that state, as a share of the step.
+2. The share of each kernel in the step, from a Python-driven copy of the loop (StepProfile).
 3. The wall time of :func:`dlsim.solver.find_crss` on regular and random fields of 10^3 and 10^4
    impenetrable points (node spacing 0.2 L_s, stress step 0.02, tolerance 1e-3 of 2Γ/(b L_s), flow
    distance = box height, 8 bisections), the part of it spent outside compiled code, and how it
@@ -97,29 +97,118 @@ class StepRig:
         return (np.empty(cap), np.empty(cap), np.empty(cap, np.int64), np.empty(cap, np.int64),
                 np.zeros(cap), np.zeros((K.N_WORK_F, cap)), np.zeros((K.N_WORK_I, cap), np.int64))
 
-    def kernel_shares(self, repeats: int, calls: int) -> dict[str, float]:
-        """Seconds per call of each kernel of the step on the warmed state."""
-        s = self.state.copy()
-        opin = self.relaxer.occupancy(s)
-        n = s.n
-        bx, by, bpin, bign, tau_int, work_f, work_i = self._arrays(s)
-        r, prm = self.relaxer, self.prm
-        w = _Work(work_f, work_i)
-        out = {}
-        out["node_pass"] = _best(lambda: _repeat_node(calls, s, n, prm, tau_int, w), repeats) / calls
-        _, _, _, stiff, vmax, _ = K.node_pass(s.x, s.y, n, s.pin, prm, tau_int, w.vx, w.vy,
-                                              w.fpin, w.ntx, w.nty)
-        dt = K.time_step(prm, stiff, vmax)
 
-        def capture():
-            c = s.copy()
-            _repeat_capture(calls, c, n, dt, r, opin, prm, w)
+class StepProfile:
+    """Time each kernel of the step inside a Python-driven copy of :func:`relax_line`'s loop.
 
-        out["move_and_capture"] = _best(capture, repeats) / calls
-        out["find_contact"] = _best(lambda: _repeat_contact(calls, s, n, prm, w), repeats) / calls
-        out["remesh (when called)"] = _best(
-            lambda: _repeat_remesh(calls, s, n, prm, bx, by, bpin, bign, r, opin), repeats) / calls
+    Python calls the kernels one by one (the same calls, in the same order, as the compiled loop),
+    timing each; the cost of a call with no nodes (argument unboxing) is subtracted.  Python runs
+    between the calls and cools the caches, so the kernel times come out somewhat higher than in
+    the compiled loop: read the shares, not the sum.
+    """
+
+    def __init__(self, rig: StepRig):
+        self.rig = rig
+        self.s = rig.state.copy()
+        self.opin = rig.relaxer.occupancy(self.s)
+        self.times: dict[str, float] = {}
+        self.calls: dict[str, int] = {}
+        self._arrays()
+
+    def _arrays(self):
+        (self.bx, self.by, self.bpin, self.bign, self.tau_int, work_f,
+         work_i) = self.rig._arrays(self.s)
+        self.w = _Work(work_f, work_i)
+        self.rx, self.ry, self.rad = self.w.clear
+        self.rad[: self.s.n] = K.UNKNOWN
+
+    def _kernels(self, n):
+        s, w, r, prm, o = self.s, self.w, self.rig.relaxer, self.rig.prm, self.opin
+        obs = (r.ox, r.oy, o, r.cstart, r.citems, r.ncx, r.ncy)
+        return {
+            "node_pass": lambda: K.node_pass(s.x, s.y, n, s.pin, prm, self.tau_int, w.vx, w.vy,
+                                             w.fpin, w.ntx, w.nty),
+            "remesh": lambda bad: K._remesh_line(s.x, s.y, s.pin, s.ign, n, prm, bad, self.bx,
+                                                 self.by, self.bpin, self.bign, w.head, w.nxt,
+                                                 self.rx, self.ry, self.rad, *obs),
+            "release": lambda: K._release(n, s.pin, s.ign, w.fpin, r.ofc, o),
+            "find_contact": lambda: K.find_contact(s.x, s.y, n, s.pin, w.ntx, w.nty, prm, w.head,
+                                                   w.nxt),
+            "reconnect": lambda i, j: K.reconnect(s.x, s.y, s.pin, s.ign, n, i, j, prm[K.P_LX],
+                                                  prm[K.P_LY], s.meta, s.loop_x, s.loop_y,
+                                                  s.loop_pin, s.loop_off, self.rx, self.ry,
+                                                  self.rad, *obs),
+            "move_and_capture": lambda dt: K.move_and_capture(
+                s.x, s.y, n, s.pin, s.ign, w.vx, w.vy, w.fpin, dt, *obs, prm, self.rx, self.ry,
+                self.rad, w.cap_seg, w.cap_s, w.cap_obs, w.cap_x, w.cap_y),
+            "insert_pins": lambda ncap: K.insert_pins(s.x, s.y, s.pin, s.ign, n, ncap, w.cap_seg,
+                                                      w.cap_s, w.cap_obs, w.cap_x, w.cap_y, o,
+                                                      self.rx, self.ry, self.rad),
+        }
+
+    def _call(self, name, *args):
+        n = self.s.n if self._n is None else self._n
+        t0 = time.perf_counter()
+        out = self._kernels(n)[name](*args)
+        self.times[name] = self.times.get(name, 0.0) + time.perf_counter() - t0
+        self.calls[name] = self.calls.get(name, 0) + 1
         return out
+
+    def overheads(self) -> dict[str, float]:
+        """Seconds per call of each kernel on an empty line (n = 0 where the kernel allows)."""
+        k = self._kernels(0)
+        empty = {"node_pass": (), "release": (), "find_contact": ()}
+        out = {}
+        for name, args in empty.items():
+            out[name] = _best(lambda: [k[name](*args) for _ in range(200)], 3) / 200
+        # the rest take about as many arrays as node_pass or more
+        for name in ("remesh", "reconnect", "move_and_capture"):
+            out[name] = 2.0 * out["node_pass"]
+        out["insert_pins"] = out["node_pass"]
+        return out
+
+    def run(self, steps: int) -> tuple[float, int]:
+        """Run ``steps`` moves; return (wall seconds, node-steps)."""
+        s, meta = self.s, self.s.meta
+        self._n = None
+        n, moved, node_steps = s.n, 0, 0
+        t0 = time.perf_counter()
+        while moved < steps:
+            if 2 * n + 2 * K.MAX_CAPTURES + 16 > s.capacity:
+                meta[K.M_N] = n
+                s.grow()
+                self._arrays()
+            self._n = n
+            area, bad, max_te, stiff, vmax, turned = self._call("node_pass")
+            if bad >= 0:
+                n = self._n = self._call("remesh", bad)
+                area, bad, max_te, stiff, vmax, turned = self._call("node_pass")
+            if self._call("release") > 0:
+                self.rad[:n] = K.UNKNOWN
+                continue
+            if turned > 0:
+                i, j = self._call("find_contact")
+                if i >= 0:
+                    n_new = self._call("reconnect", i, j)
+                    if n_new < 0:
+                        meta[K.M_N] = n
+                        s.grow()
+                        self._arrays()
+                        continue
+                    if n_new != n:
+                        n = n_new
+                        continue
+            ncap, bad = self._call("move_and_capture", K.time_step(self.rig.prm))
+            if ncap > 0:
+                n = self._n = self._call("insert_pins", ncap)
+                bad = self.w.cap_seg[0] if bad < 0 else min(bad, self.w.cap_seg[0])
+            if bad >= 0:
+                self._n = n
+                n = self._call("remesh", bad)
+            moved += 1
+            node_steps += n
+        meta[K.M_N] = n
+        return time.perf_counter() - t0, node_steps
 
 
 class _Work:
@@ -129,66 +218,11 @@ class _Work:
         mc = K.MAX_CAPTURES
         self.vx, self.vy, self.fpin, self.ntx, self.nty = (work_f[0], work_f[1], work_f[2],
                                                             work_f[6], work_f[7])
+        self.clear = (work_f[3], work_f[4], work_f[5])
         self.cap_s, self.cap_x = work_f[8, :mc], work_f[8, mc:2 * mc]
         self.cap_y = work_f[8, 2 * mc:3 * mc]
         self.cap_seg, self.cap_obs = work_i[0, :mc], work_i[0, mc:2 * mc]
         self.head, self.nxt = work_i[1], work_i[2]
-
-
-@numba.njit(**K.JIT)
-def _repeat_node_impl(calls, x, y, n, pin, prm, tau_int, vx, vy, fpin, ntx, nty):
-    acc = 0.0
-    for _ in range(calls):
-        acc += K.node_pass(x, y, n, pin, prm, tau_int, vx, vy, fpin, ntx, nty)[0]
-    return acc
-
-
-def _repeat_node(calls, s, n, prm, tau_int, w):
-    _repeat_node_impl(calls, s.x, s.y, n, s.pin, prm, tau_int, w.vx, w.vy, w.fpin, w.ntx, w.nty)
-
-
-@numba.njit(**K.JIT)
-def _repeat_capture_impl(calls, x, y, n, ign, vx, vy, dt, ox, oy, opin, cstart, citems,
-                         ncx, ncy, prm, cap_seg, cap_s, cap_obs, cap_x, cap_y):
-    acc = 0
-    for _ in range(calls):   # the line moves on by v dt at each call, as in the step
-        acc += K.move_and_capture(x, y, n, ign, vx, vy, dt, ox, oy, opin, cstart, citems,
-                                  ncx, ncy, prm, cap_seg, cap_s, cap_obs, cap_x, cap_y)
-    return acc
-
-
-def _repeat_capture(calls, s, n, dt, r, opin, prm, w):
-    _repeat_capture_impl(calls, s.x, s.y, n, s.ign, w.vx, w.vy, dt, r.ox, r.oy, opin,
-                         r.cstart, r.citems, r.ncx, r.ncy, prm, w.cap_seg, w.cap_s, w.cap_obs,
-                         w.cap_x, w.cap_y)
-
-
-@numba.njit(**K.JIT)
-def _repeat_contact_impl(calls, x, y, n, pin, ntx, nty, prm, head, nxt):
-    acc = 0
-    for _ in range(calls):
-        i, j = K.find_contact(x, y, n, pin, ntx, nty, prm, head, nxt)
-        acc += i
-    return acc
-
-
-def _repeat_contact(calls, s, n, prm, w):
-    _repeat_contact_impl(calls, s.x, s.y, n, s.pin, w.ntx, w.nty, prm, w.head, w.nxt)
-
-
-@numba.njit(**K.JIT)
-def _repeat_remesh_impl(calls, x, y, pin, ign, n, prm, bx, by, bpin, bign, ox, oy, opin,
-                        cstart, citems, ncx, ncy):
-    acc = 0
-    for _ in range(calls):
-        acc += K.remesh(x, y, pin, ign, n, prm, bx, by, bpin, bign, ox, oy, opin, cstart, citems,
-                        ncx, ncy)
-    return acc
-
-
-def _repeat_remesh(calls, s, n, prm, bx, by, bpin, bign, r, opin):
-    _repeat_remesh_impl(calls, s.x, s.y, s.pin, s.ign, n, prm, bx, by, bpin, bign, r.ox, r.oy,
-                        opin, r.cstart, r.citems, r.ncx, r.ncy)
 
 
 def throughput(repeats: int, sizes) -> None:
@@ -207,22 +241,21 @@ def throughput(repeats: int, sizes) -> None:
         print(f"{n:>8}{rig.n_obstacles:>11}{rate:>15.3e}{1e9 / rate:>14.1f}"
               f"{d[K.M_REMESH] * per:>13.3f}{d[K.M_CONTACT_CHECKS] * per:>14.3f}"
               f"{d[K.M_CAPTURES] * per:>15.4f}")
-        rigs[nodes] = (rig, rate, n, d)
-    print("\n2. kernels of the step, each timed alone on the gliding line (ns per node per call;"
-          " share of the measured step, remesh weighted by how often it runs)")
-    for nodes, (rig, rate, n, d) in rigs.items():
-        per_call = rig.kernel_shares(repeats, calls=200 if nodes < 5000 else 40)
-        step_s = 1.0 / rate * n
-        steps = max(1, d[K.M_STEPS])
-        weight = {"remesh (when called)": d[K.M_REMESH] / steps,
-                  "find_contact": d[K.M_CONTACT_CHECKS] / steps}
-        print(f"  {n} nodes: step {1e9 / rate:.1f} ns/node")
-        total = 0.0
-        for name, t in per_call.items():
-            share = t * weight.get(name, 1.0) / step_s
-            total += share
-            print(f"    {name:<22}{1e9 * t / n:>8.1f} ns/node {100 * share:>7.1f} %")
-        print(f"    {'rest (release, move, bookkeeping)':<36}{100 * (1 - total):>7.1f} %")
+        rigs[nodes] = (rig, rate)
+    print("\n2. share of each kernel in the step (Python-driven copy of the loop, see StepProfile;"
+          " ns per node-step with the call cost removed)")
+    for nodes, (rig, rate) in rigs.items():
+        prof = StepProfile(rig)
+        over = prof.overheads()
+        wall, node_steps = prof.run(300 if nodes < 5000 else 60)
+        net = {k: max(0.0, t - prof.calls[k] * over[k]) for k, t in prof.times.items()}
+        total = sum(net.values())
+        print(f"  {int(node_steps / (300 if nodes < 5000 else 60))} nodes (compiled step "
+              f"{1e9 / rate:.1f} ns/node-step):")
+        for name, t in sorted(net.items(), key=lambda kv: -kv[1]):
+            calls = prof.calls[name] / (300 if nodes < 5000 else 60)
+            print(f"    {name:<18}{calls:>6.2f} calls/step {1e9 * t / node_steps:>8.1f} ns"
+                  f" {100 * t / total:>6.1f} %")
 
 
 def _crss_case(kind: str, count: int, seed: int = 11):
@@ -282,7 +315,7 @@ def crss_times(repeats: int, counts) -> None:
 def warm() -> None:
     rig = StepRig(200)
     rig.node_steps_per_second(1)
-    rig.kernel_shares(1, 1)
+    StepProfile(rig).run(5)
     field, model, protocol = _crss_case("regular", 16)
     find_crss(field, model, protocol)
 

@@ -169,7 +169,8 @@ def node_pass(x, y, n, pin, prm, tau_int, vx, vy, fpin, ntx, nty):
     max_tau_eff : float
         Largest |τ_eff| over free nodes (G): the equilibrium residual.
     stiffness : float
-        Largest 1/(a b) over free nodes with arms a, b (b⁻²), for the stable time step.
+        Largest 1/(a b) over free nodes with arms a, b (b⁻²): the explicit-Euler stability
+        bound, dt < 1/(2 M Γ stiffness) (the point-implicit step does not need it).
     vmax : float
         Largest node speed.
     n_turned : int
@@ -406,8 +407,8 @@ def move_and_capture(x, y, n, pin, ign, vx, vy, stiff, dt, ox, oy, opin, cstart,
     MAX_MOVE_FRACTION l_min.  No obstacle is tunnelled through:
 
     The area segment i sweeps is the quadrilateral old(i), old(i+1), new(i+1), new(i)
-    (:func:`_capture_in_quad`); segments with both ends at rest sweep nothing.  Obstacles come from a
-    periodic cell list (``cstart``/``citems``, CSR over ``ncx × ncy`` cells of the box).
+    (:func:`_capture_in_quad`); segments with both ends at rest sweep nothing.  Obstacles come
+    from a periodic cell list (``cstart``/``citems``, CSR over ``ncx × ncy`` cells of the box).
 
     Most segments are far from every free obstacle, and most steps move them by a small fraction of
     that distance, so each node keeps a disc free of obstacles: centre ``rx, ry`` (where its
@@ -836,10 +837,10 @@ def reconnect(x, y, pin, ign, n, i, j, Lx, Ly, meta, lx, ly, lpin, loff, rx, ry,
     """Join two parts of opposite sense at nodes i < j, cutting off a closed loop.
 
     The line is rebuilt in place as ``[..i-1, m, j+1..]`` (m the midpoint of i and j) and the part
-    between them, ``[i+1 .. j-1]``, becomes a closed loop; where the contact lies across the periodic
-    seam (node j is node i's neighbour one period on) it is the other way round.  A loop holding a
-    pinned node is stored in the loop buffers (CSR: ``lx, ly, lpin`` with offsets ``loff``): an Orowan
-    loop left around its obstacles, which stay held.  A loop holding none is dropped (under line
+    between them, ``[i+1 .. j-1]``, becomes a closed loop; where the contact lies across the
+    periodic seam (node j is node i's neighbour one period on) it is the other way round.  A loop
+    holding a pinned node is stored in the loop buffers (CSR: ``lx, ly, lpin`` with offsets
+    ``loff``): an Orowan loop left around its obstacles, which stay held.  A loop holding none is dropped (under line
     tension alone it would shrink away).  Returns the new node count; ``n`` unchanged when the
     contact is not a reconnection (folded across the seam backwards), -1 when the loop buffers are
     full (nothing changed).  The clearances ``rx, ry, rad`` (:func:`move_and_capture`) move with
@@ -952,10 +953,12 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
                lx, ly, lpin, loff, tau_int, work_f, work_i):
     """Relax the line at fixed stress until equilibrium, flow, or ``max_steps`` time steps.
 
-    One step: remesh if some segment left its bounds; stop if the line has glided the flow
-    distance; forces and velocities; release overloaded pins; reconnect parts of opposite sense in
-    contact; stop at equilibrium; otherwise advance the free nodes by the stable time step and pin
-    every obstacle swept on the way.
+    One step: forces and velocities in one pass (:func:`node_pass`; remesh first if the line came
+    in out of bounds); stop if the line has glided the flow distance; release overloaded pins;
+    reconnect parts of opposite sense in contact (only searched for when some node has turned
+    past 60°); stop at equilibrium; otherwise advance the free nodes by the point-implicit step
+    (STEP_STIFFNESS), pin every obstacle swept on the way (:func:`move_and_capture`,
+    :func:`insert_pins`) and remesh where a segment left its bounds.
 
     Parameters
     ----------
@@ -979,8 +982,9 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
         Loop buffers (CSR, see :func:`reconnect`).
     tau_int : (cap,) float64
         Internal stress at the nodes (G), zero for a constant line tension.
-    work_f : (9, cap) float64 and work_i : (3, cap) int64
-        Work arrays (cap >= 3 MAX_CAPTURES).
+    work_f : (N_WORK_F, cap) float64 and work_i : (N_WORK_I, cap) int64
+        Work arrays (cap >= 3 MAX_CAPTURES): velocities, pin forces or stiffnesses, node
+        clearances (rows 3-5, reset at every call), chord tangents, capture lists; contact grid.
 
     Returns
     -------

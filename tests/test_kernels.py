@@ -154,7 +154,8 @@ def test_straight_line_velocity_with_friction(tau_over_tf):
     x = (np.arange(n) + 0.5) * Lx / n
     y = np.full(n, 7.0)
     tau = tau_over_tf * tau_f
-    w, (_, _, max_te, _, vmax, _) = run_node_pass(x, y, np.full(n, -1), params(Lx, tau=tau, tau_f=tau_f,
+    w, (_, _, max_te, _, vmax, _) = run_node_pass(x, y, np.full(n, -1), params(Lx, tau=tau,
+                                                                             tau_f=tau_f,
                                                                               mobility=mob))
     expect = mob * max(tau - tau_f, 0.0)
     np.testing.assert_allclose(w.vy[:n], expect, rtol=1e-12, atol=1e-18)
@@ -173,7 +174,8 @@ def run_captures(x, y, pin, ign, v, dt, ox, oy, opin, Lx, Ly, cell):
     # l_min large: the step limit MAX_MOVE_FRACTION l_min does not hold any node back here
     ncap, _ = K.move_and_capture(xm, ym, n, pin, ign, np.ascontiguousarray(v[:, 0]),
                               np.ascontiguousarray(v[:, 1]), np.zeros(n), dt, ox, oy, opin,
-                              cstart, citems, ncx, ncy, params(Lx, Ly, lmin=1e3), rx, ry, rad, w.cap_seg, w.cap_s,
+                              cstart, citems, ncx, ncy, params(Lx, Ly, lmin=1e3), rx, ry, rad,
+                              w.cap_seg, w.cap_s,
                               w.cap_obs, w.cap_x, w.cap_y)
     # every node advanced by v dt
     np.testing.assert_allclose(np.stack([xm, ym], 1), np.stack([x, y], 1) + v * dt, rtol=1e-15)
@@ -310,7 +312,8 @@ def remeshed(x, y, pin, prm, ox=(), oy=(), first_bad=0):
     """remesh on padded copies from segment ``first_bad``; returns the new x, y, pin."""
     n = len(x)
     cap = 8 * n + 64
-    xs, ys, ps, gs = padded(x, cap, 0.0), padded(y, cap, 0.0), padded(pin, cap, -1), np.full(cap, -1)
+    xs, ys = padded(x, cap, 0.0), padded(y, cap, 0.0)
+    ps, gs = padded(pin, cap, -1), np.full(cap, -1)
     bx, by, bp, bg = np.zeros(cap), np.zeros(cap), np.full(cap, -1), np.full(cap, -1)
     Lx, Ly = prm[K.P_LX], prm[K.P_LY]
     cstart, citems, ncx, ncy = cells(ox, oy, Lx, Ly, Lx / 4)
@@ -506,7 +509,8 @@ def test_reconnect_leaves_line_and_loop():
     w, _ = run_node_pass(x, y, pin, prm)
     i, j = K.find_contact(x, y, n, pin, w.ntx, w.nty, prm, w.head, w.nxt)
     cap = 4 * n
-    xs, ys, ps, gs = padded(x, cap, 0.0), padded(y, cap, 0.0), padded(pin, cap, -1), np.full(cap, -1)
+    xs, ys = padded(x, cap, 0.0), padded(y, cap, 0.0)
+    ps, gs = padded(pin, cap, -1), np.full(cap, -1)
     meta = np.zeros(K.N_META, np.int64)
     lx, ly, lp, loff = np.zeros(cap), np.zeros(cap), np.full(cap, -1), np.zeros(cap, np.int64)
     rx, ry, rad = np.zeros(cap), np.zeros(cap), np.zeros(cap)
@@ -535,7 +539,8 @@ def test_move_and_capture_point_implicit_step():
     cstart, citems, ncx, ncy = cells([], [], Lx, 100.0, 25.0)
     w = Work(n)
     none = np.zeros(0)
-    K.move_and_capture(x, y, n, np.full(n, -1), np.full(n, -1), vx, vy, k, dt, none, none, np.zeros(0, np.int64),
+    K.move_and_capture(x, y, n, np.full(n, -1), np.full(n, -1), vx, vy, k, dt, none, none,
+                       np.zeros(0, np.int64),
                        cstart, citems, ncx, ncy, prm, np.zeros(n), np.zeros(n),
                        np.full(n, K.UNKNOWN), w.cap_seg, w.cap_s, w.cap_obs, w.cap_x, w.cap_y)
     expect = vy * dt / (1 + k * dt)
