@@ -253,7 +253,8 @@ def test_run_sweep_square_array_values_arrive(tmp_path):
     assert float(rows[0]["orowan_MPa"]) == pytest.approx(2 * float(rows[1]["orowan_MPa"]), rel=1e-9)
 
 
-def test_run_sweep_resume_after_kill(tmp_path):
+@pytest.mark.parametrize("how", ["sigkill_group", "sigterm"])
+def test_run_sweep_resume_after_kill(tmp_path, how):
     sweep = GRID_SWEEP.replace("seeds = 2", "seeds = 3")  # 12 runs, one at a time
     path = write_sweep(tmp_path, sweep)
     out = tmp_path / "out"
@@ -261,8 +262,13 @@ def test_run_sweep_resume_after_kill(tmp_path):
                              str(out), "--workers", "1", "--quiet"], start_new_session=True,
                             stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
     finished = _wait_for_finished_run(out, proc)
-    os.killpg(proc.pid, signal.SIGKILL)  # the hardest interruption: no clean-up at all
-    proc.wait(timeout=30)
+    if how == "sigkill_group":
+        os.killpg(proc.pid, signal.SIGKILL)  # the hardest interruption: no clean-up at all
+        proc.wait(timeout=30)
+    else:  # `kill` or a batch system's time limit: stop in-flight runs and exit like Ctrl-C
+        proc.send_signal(signal.SIGTERM)
+        assert proc.wait(timeout=30) == 130
+        assert proc.stderr.read().decode().strip() == "dlsim: interrupted"
     done = {p.parent.name for p in (out / "runs").glob("*/result.json")}
     assert finished <= done and 0 < len(done) < 12, "the kill must land part-way"
     before = {d: {f.name: f.read_bytes() for f in (out / "runs" / d).iterdir()} for d in done}
