@@ -429,6 +429,9 @@ def run_sweep(sweep: str | os.PathLike | dict | Sweep, out_dir=None, workers: in
     SimulationError
         Some runs failed (the others are written, and so are the summaries); rerun to retry them.
     """
+    if workers is not None and (isinstance(workers, bool) or not isinstance(workers, int)
+                                or workers < 1):
+        raise DlsimError(f"workers must be an integer >= 1, got {workers!r}")
     sw = sweep if isinstance(sweep, Sweep) else load_sweep(sweep)
     out = _resolve_out(sw, out_dir)
     _prepare_folder(sw, out)
