@@ -186,7 +186,8 @@ def find_crss(obstacles: ObstacleField, model: LineModel, protocol: Protocol,
     y0 : float
         Start height of the straight line (b).
     snapshot_every : int
-        Call ``on_snapshot(state, tau, steps)`` every so many time steps (0: at the end of each
+        Call ``on_snapshot(state, tau, steps)`` every so many time steps, ``steps`` counted from
+        the start of the search (0: at the end of each
         relaxation only).
     on_relaxation : callable
         Receives each history row as it is made (progress reporting).
@@ -197,12 +198,19 @@ def find_crss(obstacles: ObstacleField, model: LineModel, protocol: Protocol,
     start_area = state.area()
     history: list[Relaxation] = []
 
+    done = 0  # time steps so far: snapshots count them from the start of the search
+
+    def snap(line: LineState, tau: float, steps: int) -> None:
+        on_snapshot(line, tau, done + steps)
+
     def trial(line: LineState, tau: float, phase: str) -> str:
+        nonlocal done
         ref = line.area()
         name, steps = relaxer.relax(line, tau, ref, protocol, chunk,
-                                    on_snapshot if snapshot_every > 0 else None)
+                                    snap if on_snapshot is not None and snapshot_every > 0 else None)
         if on_snapshot is not None and snapshot_every <= 0:
-            on_snapshot(line, tau, steps)
+            snap(line, tau, steps)
+        done += steps
         row = Relaxation(phase, tau, name, (line.area() - start_area) / obstacles.Lx,
                          line.area() - ref, int(np.count_nonzero(line.pin[: line.n] >= 0)),
                          steps, line.n)
