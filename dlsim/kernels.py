@@ -900,6 +900,41 @@ def reconnect(x, y, pin, ign, n, i, j, Lx, Ly, meta, lx, ly, lpin, loff, rx, ry,
 
 
 @njit(**JIT)
+def _reconnect_all(x, y, pin, ign, n, prm, meta, lx, ly, lpin, loff, rx, ry, rad, ntx, nty,
+                   head, nxt, ox, oy, opin, cstart, citems, ncx, ncy):
+    """Reconnect every contact of the line, one after the other; return the node count (-1: loop
+    buffers full).
+
+    After each reconnection the chord tangents are recomputed (:func:`_chord_tangents`, as
+    :func:`node_pass` would) and the line searched again, so a line touching itself in many places
+    is resolved in one round, without a force pass per contact.
+    """
+    Lx = prm[P_LX]
+    while True:
+        meta[M_CONTACT_CHECKS] += 1
+        i, j = find_contact(x, y, n, pin, ntx, nty, prm, head, nxt)
+        if i < 0:
+            return n
+        n_new = reconnect(x, y, pin, ign, n, i, j, Lx, prm[P_LY], meta, lx, ly, lpin, loff,
+                          rx, ry, rad, ox, oy, opin, cstart, citems, ncx, ncy)
+        if n_new < 0 or n_new == n:
+            return n_new if n_new < 0 else n
+        n = n_new
+        meta[M_RECONNECT] += 1
+        _chord_tangents(x, y, n, Lx, ntx, nty)
+
+
+@njit(**JIT)
+def _chord_tangents(x, y, n, Lx, ntx, nty):
+    """Unit chord tangents (r_{i+1} - r_{i-1})/|...| of every node, as in :func:`node_pass`."""
+    for i in range(n):
+        xm, ym, xp, yp = _neighbours(x, y, n, i, Lx)
+        cx, cy = xp - xm, yp - ym
+        inv_c = 1.0 / np.sqrt(cx * cx + cy * cy)
+        ntx[i], nty[i] = cx * inv_c, cy * inv_c
+
+
+@njit(**JIT)
 def _release(n, pin, ign, fpin, ofc, opin):
     """Free every pinned node whose force exceeds its obstacle's strength; count releases."""
     released = 0
@@ -1004,6 +1039,8 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
     n = meta[M_N]
     rad[:n] = UNKNOWN       # the line may have changed since the last call
     moved = 0
+    searched = False
+    reconnections = meta[M_RECONNECT]
     for _ in range(4 * max_steps):
         if moved >= max_steps:
             break
@@ -1026,19 +1063,18 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
             meta[M_RELEASES] += released
             rad[:n] = UNKNOWN   # a freed obstacle may lie in any node's disc
             continue
-        if turned > 0:  # no free node turned past 60° from x: no two parts can be antiparallel
-            meta[M_CONTACT_CHECKS] += 1
-            i, j = find_contact(x, y, n, pin, ntx, nty, prm, head, nxt)
-            if i >= 0:
-                n_new = reconnect(x, y, pin, ign, n, i, j, Lx, prm[P_LY], meta, lx, ly, lpin,
-                                  loff, rx, ry, rad, ox, oy, opin, cstart, citems, ncx, ncy)
-                if n_new < 0:
-                    meta[M_N] = n
-                    return CAPACITY
-                if n_new != n:
-                    n = n_new
-                    meta[M_RECONNECT] += 1
-                    continue
+        # no free node turned past 60° from x: no two parts can be antiparallel; just after a
+        # round of reconnections the line has been searched already
+        if turned > 0 and not searched:
+            n_new = _reconnect_all(x, y, pin, ign, n, prm, meta, lx, ly, lpin, loff, rx, ry, rad,
+                                   ntx, nty, head, nxt, ox, oy, opin, cstart, citems, ncx, ncy)
+            if n_new < 0:
+                meta[M_N] = n
+                return CAPACITY
+            if n_new != n or meta[M_RECONNECT] != reconnections:
+                n, reconnections, searched = n_new, meta[M_RECONNECT], True
+                continue
+        searched = False
         if max_te < prm[P_TOL]:
             meta[M_N] = n
             return EQUILIBRIUM
