@@ -132,12 +132,9 @@ class StepProfile:
                                                  self.by, self.bpin, self.bign, w.head, w.nxt,
                                                  self.rx, self.ry, self.rad, *obs),
             "release": lambda: K._release(n, s.pin, s.ign, w.fpin, r.ofc, o),
-            "find_contact": lambda: K.find_contact(s.x, s.y, n, s.pin, w.ntx, w.nty, prm, w.head,
-                                                   w.nxt),
-            "reconnect": lambda i, j: K.reconnect(s.x, s.y, s.pin, s.ign, n, i, j, prm[K.P_LX],
-                                                  prm[K.P_LY], s.meta, s.loop_x, s.loop_y,
-                                                  s.loop_pin, s.loop_off, self.rx, self.ry,
-                                                  self.rad, *obs),
+            "contacts and reconnections": lambda: K._reconnect_all(
+                s.x, s.y, s.pin, s.ign, n, prm, s.meta, s.loop_x, s.loop_y, s.loop_pin,
+                s.loop_off, self.rx, self.ry, self.rad, w.ntx, w.nty, w.head, w.nxt, *obs),
             "move_and_capture": lambda dt: K.move_and_capture(
                 s.x, s.y, n, s.pin, s.ign, w.vx, w.vy, w.fpin, dt, *obs, prm, self.rx, self.ry,
                 self.rad, w.cap_seg, w.cap_s, w.cap_obs, w.cap_x, w.cap_y),
@@ -157,12 +154,12 @@ class StepProfile:
     def overheads(self) -> dict[str, float]:
         """Seconds per call of each kernel on an empty line (n = 0 where the kernel allows)."""
         k = self._kernels(0)
-        empty = {"node_pass": (), "release": (), "find_contact": ()}
+        empty = {"node_pass": (), "release": ()}
         out = {}
         for name, args in empty.items():
             out[name] = _best(lambda: [k[name](*args) for _ in range(200)], 3) / 200
-        # the rest take about as many arrays as node_pass or more
-        for name in ("remesh", "reconnect", "move_and_capture"):
+        # the rest take about as many arrays as node_pass, or twice as many
+        for name in ("remesh", "contacts and reconnections", "move_and_capture"):
             out[name] = 2.0 * out["node_pass"]
         out["insert_pins"] = out["node_pass"]
         return out
@@ -172,6 +169,7 @@ class StepProfile:
         s, meta = self.s, self.s.meta
         self._n = None
         n, moved, node_steps = s.n, 0, 0
+        searched, reconnections = False, meta[K.M_RECONNECT]
         t0 = time.perf_counter()
         while moved < steps:
             if 2 * n + 2 * K.MAX_CAPTURES + 16 > s.capacity:
@@ -186,18 +184,17 @@ class StepProfile:
             if self._call("release") > 0:
                 self.rad[:n] = K.UNKNOWN
                 continue
-            if turned > 0:
-                i, j = self._call("find_contact")
-                if i >= 0:
-                    n_new = self._call("reconnect", i, j)
-                    if n_new < 0:
-                        meta[K.M_N] = n
-                        s.grow()
-                        self._arrays()
-                        continue
-                    if n_new != n:
-                        n = n_new
-                        continue
+            if turned > 0 and not searched:
+                n_new, full = self._call("contacts and reconnections")
+                if full:
+                    n = meta[K.M_N] = n_new
+                    s.grow()
+                    self._arrays()
+                    continue
+                if n_new != n or meta[K.M_RECONNECT] != reconnections:
+                    n, reconnections, searched = n_new, meta[K.M_RECONNECT], True
+                    continue
+            searched = False
             ncap, bad = self._call("move_and_capture", K.time_step(self.rig.prm))
             if ncap > 0:
                 n = self._n = self._call("insert_pins", ncap)
@@ -254,7 +251,7 @@ def throughput(repeats: int, sizes) -> None:
               f"{1e9 / rate:.1f} ns/node-step):")
         for name, t in sorted(net.items(), key=lambda kv: -kv[1]):
             calls = prof.calls[name] / (300 if nodes < 5000 else 60)
-            print(f"    {name:<18}{calls:>6.2f} calls/step {1e9 * t / node_steps:>8.1f} ns"
+            print(f"    {name:<28}{calls:>6.2f} calls/step {1e9 * t / node_steps:>8.1f} ns"
                   f" {100 * t / total:>6.1f} %")
 
 

@@ -902,8 +902,8 @@ def reconnect(x, y, pin, ign, n, i, j, Lx, Ly, meta, lx, ly, lpin, loff, rx, ry,
 @njit(**JIT)
 def _reconnect_all(x, y, pin, ign, n, prm, meta, lx, ly, lpin, loff, rx, ry, rad, ntx, nty,
                    head, nxt, ox, oy, opin, cstart, citems, ncx, ncy):
-    """Reconnect every contact of the line, one after the other; return the node count (-1: loop
-    buffers full).
+    """Reconnect every contact of the line, one after the other; return (node count, whether the
+    loop buffers ran full: then grow them and call again).
 
     After each reconnection the chord tangents are recomputed (:func:`_chord_tangents`, as
     :func:`node_pass` would) and the line searched again, so a line touching itself in many places
@@ -914,11 +914,13 @@ def _reconnect_all(x, y, pin, ign, n, prm, meta, lx, ly, lpin, loff, rx, ry, rad
         meta[M_CONTACT_CHECKS] += 1
         i, j = find_contact(x, y, n, pin, ntx, nty, prm, head, nxt)
         if i < 0:
-            return n
+            return n, False
         n_new = reconnect(x, y, pin, ign, n, i, j, Lx, prm[P_LY], meta, lx, ly, lpin, loff,
                           rx, ry, rad, ox, oy, opin, cstart, citems, ncx, ncy)
-        if n_new < 0 or n_new == n:
-            return n_new if n_new < 0 else n
+        if n_new < 0:
+            return n, True
+        if n_new == n:
+            return n, False
         n = n_new
         meta[M_RECONNECT] += 1
         _chord_tangents(x, y, n, Lx, ntx, nty)
@@ -1066,10 +1068,11 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
         # no free node turned past 60° from x: no two parts can be antiparallel; just after a
         # round of reconnections the line has been searched already
         if turned > 0 and not searched:
-            n_new = _reconnect_all(x, y, pin, ign, n, prm, meta, lx, ly, lpin, loff, rx, ry, rad,
-                                   ntx, nty, head, nxt, ox, oy, opin, cstart, citems, ncx, ncy)
-            if n_new < 0:
-                meta[M_N] = n
+            n_new, full = _reconnect_all(x, y, pin, ign, n, prm, meta, lx, ly, lpin, loff, rx, ry,
+                                         rad, ntx, nty, head, nxt, ox, oy, opin, cstart, citems,
+                                         ncx, ncy)
+            if full:      # earlier reconnections of the round stand: keep their node count
+                meta[M_N] = n_new
                 return CAPACITY
             if n_new != n or meta[M_RECONNECT] != reconnections:
                 n, reconnections, searched = n_new, meta[M_RECONNECT], True
