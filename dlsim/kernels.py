@@ -840,10 +840,10 @@ def reconnect(x, y, pin, ign, n, i, j, Lx, Ly, meta, lx, ly, lpin, loff, rx, ry,
     between them, ``[i+1 .. j-1]``, becomes a closed loop; where the contact lies across the
     periodic seam (node j is node i's neighbour one period on) it is the other way round.  A loop
     holding a pinned node is stored in the loop buffers (CSR: ``lx, ly, lpin`` with offsets
-    ``loff``): an Orowan loop left around its obstacles, which stay held.  A loop holding none is dropped (under line
-    tension alone it would shrink away).  Returns the new node count; ``n`` unchanged when the
-    contact is not a reconnection (folded across the seam backwards), -1 when the loop buffers are
-    full (nothing changed).  The clearances ``rx, ry, rad`` (:func:`move_and_capture`) move with
+    ``loff``): an Orowan loop left around its obstacles, which stay held.  A loop holding none is
+    dropped (under line tension alone it would shrink away).  Returns the new node count; ``n``
+    unchanged when the contact is not a reconnection (folded across the seam backwards), -1 when
+    the loop buffers are full (nothing changed).  The clearances ``rx, ry, rad`` (:func:`move_and_capture`) move with
     their nodes; the joining node's is unknown.
 
     Reconnection must not tunnel either: it is refused (``n`` returned, nothing changed) while a

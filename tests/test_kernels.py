@@ -55,8 +55,7 @@ class Work:
     """Scratch arrays of one capacity for calling kernels one by one."""
 
     def __init__(self, cap):
-        self.vx, self.vy, self.fpin, self.ux, self.uy, self.slen, self.ntx, self.nty = (
-            np.zeros(cap) for _ in range(8))
+        self.vx, self.vy, self.fpin, self.ntx, self.nty = (np.zeros(cap) for _ in range(5))
         mc = K.MAX_CAPTURES
         self.cap_seg, self.cap_obs = np.zeros(mc, np.int64), np.zeros(mc, np.int64)
         self.cap_s, self.cap_x, self.cap_y = np.zeros(mc), np.zeros(mc), np.zeros(mc)
@@ -579,7 +578,8 @@ def test_reconnect_all_keeps_count_when_loop_buffers_fill():
     prm = params(Lx, Ly=100.0, lmax=7.5, dann=2.5)
     w, _ = run_node_pass(x, y, pin, prm)
     cap = 4 * n
-    xs, ys, ps, gs = padded(x, cap, 0.0), padded(y, cap, 0.0), padded(pin, cap, -1), np.full(cap, -1)
+    xs, ys = padded(x, cap, 0.0), padded(y, cap, 0.0)
+    ps, gs = padded(pin, cap, -1), np.full(cap, -1)
     one_loop = np.count_nonzero(y1 > 0) + 4
     lx, ly, lp = np.zeros(one_loop), np.zeros(one_loop), np.full(one_loop, -1)
     loff, meta = np.zeros(cap, np.int64), np.zeros(K.N_META, np.int64)
