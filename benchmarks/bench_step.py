@@ -134,7 +134,8 @@ class StepProfile:
             "release": lambda: K._release(n, s.pin, s.ign, w.fpin, r.ofc, o),
             "contacts and reconnections": lambda: K._reconnect_all(
                 s.x, s.y, s.pin, s.ign, n, prm, s.meta, s.loop_x, s.loop_y, s.loop_pin,
-                s.loop_off, self.rx, self.ry, self.rad, w.ntx, w.nty, w.head, w.nxt, *obs),
+                s.loop_off, self.rx, self.ry, self.rad, w.ntx, w.nty, w.head, w.nxt, w.cap_seg,
+                w.cap_obs, *obs),
             "move_and_capture": lambda dt: K.move_and_capture(
                 s.x, s.y, n, s.pin, s.ign, w.vx, w.vy, w.fpin, dt, *obs, prm, self.rx, self.ry,
                 self.rad, w.cap_seg, w.cap_s, w.cap_obs, w.cap_x, w.cap_y),

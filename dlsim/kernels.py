@@ -722,13 +722,26 @@ def _pow2_at_most(value):
 def find_contact(x, y, n, pin, ntx, nty, prm, head, nxt):
     """A pair of free nodes (i, j), i < j, on parts of the line of opposite sense in contact.
 
+    The first pair :func:`find_contacts` finds; (-1, -1) when there is none.
+    """
+    ci, cj = np.empty(1, np.int64), np.empty(1, np.int64)
+    if find_contacts(x, y, n, pin, ntx, nty, prm, head, nxt, ci, cj) == 0:
+        return -1, -1
+    return ci[0], cj[0]
+
+
+@njit(**JIT)
+def find_contacts(x, y, n, pin, ntx, nty, prm, head, nxt, ci, cj):
+    """Pairs of free nodes (i, j), i < j, on parts of the line of opposite sense in contact.
+
     Node i touches node j's part of the line when it lies within the annihilation distance of one
     of j's two segments, the two are at least RECONNECT_MIN_SEPARATION nodes apart along the line
     and their tangents are closer to antiparallel than RECONNECT_COS.  Two tangents more than 120°
     apart cannot both lie within 60° of +x, so only nodes with t_x < 1/2 need to look (most of a
     gliding line does not).  Candidates come from a hashed cell list over the free nodes, with
     power-of-two cell counts so that wrapping is a bit mask (``head``: cells, ``nxt``: nodes; work
-    arrays).  Returns (-1, -1) when there is no contact.
+    arrays).  Each looking node contributes the first partner it finds; the pairs go to ``ci, cj``
+    until they are full.  Returns the number of pairs.
     """
     Lx, dann = prm[P_LX], prm[P_DANN]
     hc = prm[P_LMAX] + dann
@@ -744,15 +757,17 @@ def find_contact(x, y, n, pin, ntx, nty, prm, head, nxt):
             nxt[i] = head[c]
             head[c] = i
     d2max = dann * dann
+    count = 0
     for i in range(n):
         if pin[i] >= 0 or ntx[i] >= 0.5:
             continue
         ix0 = int(np.floor(x[i] * inv_cw))
         iy0 = int(np.floor(y[i] * inv_hc))
+        partner = -1
         for dx in range(-1, 2):
             for dy in range(-1, 2):
                 j = head[((ix0 + dx) & mx) + ncx * ((iy0 + dy) & my)]
-                while j >= 0:
+                while j >= 0 and partner < 0:
                     sep = abs(j - i)
                     if (min(sep, n - sep) >= RECONNECT_MIN_SEPARATION
                             and ntx[i] * ntx[j] + nty[i] * nty[j] < RECONNECT_COS):
@@ -763,9 +778,14 @@ def find_contact(x, y, n, pin, ntx, nty, prm, head, nxt):
                             d2 = min(_point_segment_dist2(x[i], y[i], jm_x + shift, jm_y, xj, yj),
                                      _point_segment_dist2(x[i], y[i], xj, yj, jp_x + shift, jp_y))
                             if d2 < d2max:
-                                return min(i, j), max(i, j)
+                                partner = j
                     j = nxt[j]
-    return -1, -1
+        if partner >= 0:
+            ci[count], cj[count] = min(i, partner), max(i, partner)
+            count += 1
+            if count == ci.shape[0]:
+                return count
+    return count
 
 
 @njit(**JIT)
@@ -901,29 +921,55 @@ def reconnect(x, y, pin, ign, n, i, j, Lx, Ly, meta, lx, ly, lpin, loff, rx, ry,
 
 @njit(**JIT)
 def _reconnect_all(x, y, pin, ign, n, prm, meta, lx, ly, lpin, loff, rx, ry, rad, ntx, nty,
-                   head, nxt, ox, oy, opin, cstart, citems, ncx, ncy):
-    """Reconnect every contact of the line, one after the other; return (node count, whether the
-    loop buffers ran full: then grow them and call again).
+                   head, nxt, ci, cj, ox, oy, opin, cstart, citems, ncx, ncy):
+    """Reconnect every contact of the line; return (node count, whether the loop buffers ran
+    full: then grow them and call again).
 
-    After each reconnection the chord tangents are recomputed (:func:`_chord_tangents`, as
-    :func:`node_pass` would) and the line searched again, so a line touching itself in many places
-    is resolved in one round, without a force pass per contact.
+    Each round lists the contacts (:func:`find_contacts`, pairs in ``ci, cj``) and reconnects them
+    from the end of the line backwards, each pair lying wholly before the last one done (so that the
+    indices it names are still valid); a pair across the seam renumbers the line and ends the
+    round.  The chord tangents are then recomputed (:func:`_chord_tangents`, as :func:`node_pass`
+    would) and the line searched again, until no contact is left: a line touching itself in many
+    places is resolved without a force pass, or a search, per contact.
     """
     Lx = prm[P_LX]
     while True:
         meta[M_CONTACT_CHECKS] += 1
-        i, j = find_contact(x, y, n, pin, ntx, nty, prm, head, nxt)
-        if i < 0:
+        k = find_contacts(x, y, n, pin, ntx, nty, prm, head, nxt, ci, cj)
+        _sort_pairs(k, ci, cj)
+        done = False
+        limit = n                      # pairs must lie wholly before the last one reconnected
+        for q in range(k - 1, -1, -1):
+            i, j = ci[q], cj[q]
+            if j >= limit:
+                continue
+            across = x[j] - x[i] > 0.5 * Lx   # then the line is renumbered from i + 1
+            n_new = reconnect(x, y, pin, ign, n, i, j, Lx, prm[P_LY], meta, lx, ly, lpin, loff,
+                              rx, ry, rad, ox, oy, opin, cstart, citems, ncx, ncy)
+            if n_new < 0:
+                return n, True
+            if n_new == n:
+                continue
+            n = n_new
+            meta[M_RECONNECT] += 1
+            done = True
+            limit = i
+            if across:
+                break
+        if not done:
             return n, False
-        n_new = reconnect(x, y, pin, ign, n, i, j, Lx, prm[P_LY], meta, lx, ly, lpin, loff,
-                          rx, ry, rad, ox, oy, opin, cstart, citems, ncx, ncy)
-        if n_new < 0:
-            return n, True
-        if n_new == n:
-            return n, False
-        n = n_new
-        meta[M_RECONNECT] += 1
         _chord_tangents(x, y, n, Lx, ntx, nty)
+
+
+@njit(**JIT)
+def _sort_pairs(k, ci, cj):
+    """Order contact pairs by their first node (insertion sort: there are few)."""
+    for a in range(1, k):
+        b = a
+        while b > 0 and ci[b - 1] > ci[b]:
+            ci[b - 1], ci[b] = ci[b], ci[b - 1]
+            cj[b - 1], cj[b] = cj[b], cj[b - 1]
+            b -= 1
 
 
 @njit(**JIT)
@@ -1069,8 +1115,8 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
         # round of reconnections the line has been searched already
         if turned > 0 and not searched:
             n_new, full = _reconnect_all(x, y, pin, ign, n, prm, meta, lx, ly, lpin, loff, rx, ry,
-                                         rad, ntx, nty, head, nxt, ox, oy, opin, cstart, citems,
-                                         ncx, ncy)
+                                         rad, ntx, nty, head, nxt, cap_seg, cap_obs, ox, oy, opin,
+                                         cstart, citems, ncx, ncy)
             if full:      # earlier reconnections of the round stand: keep their node count
                 meta[M_N] = n_new
                 return CAPACITY

@@ -499,6 +499,10 @@ def test_find_contact_equals_brute_force_on_folded_lines(seed):
     ref = naive.find_contacts(x, y, pin, np.stack([w.ntx[:n], w.nty[:n]], 1), Lx,
                               prm[K.P_DANN], K.RECONNECT_MIN_SEPARATION, K.RECONNECT_COS)
     assert ((i, j) in ref) if ref else (i, j) == (-1, -1)
+    ci, cj = np.zeros(64, np.int64), np.zeros(64, np.int64)
+    k = K.find_contacts(x, y, n, pin, w.ntx, w.nty, prm, w.head, w.nxt, ci, cj)
+    assert set(zip(ci[:k].tolist(), cj[:k].tolist())) <= ref
+    assert (k > 0) == bool(ref)
 
 
 def test_reconnect_leaves_line_and_loop():
@@ -587,7 +591,8 @@ def test_reconnect_all_keeps_count_when_loop_buffers_fill():
     none = np.zeros(0)
     m, full = K._reconnect_all(xs, ys, ps, gs, n, prm, meta, lx, ly, lp, loff, np.zeros(cap),
                                np.zeros(cap), np.zeros(cap), padded(w.ntx[:n], cap, 0.0),
-                               padded(w.nty[:n], cap, 0.0), w.head, w.nxt, none, none,
+                               padded(w.nty[:n], cap, 0.0), w.head, w.nxt,
+                               np.zeros(8, np.int64), np.zeros(8, np.int64), none, none,
                                np.zeros(0, np.int64), cstart, citems, ncx, ncy)
     assert full and meta[K.M_NLOOPS] == 1
     assert m + meta[K.M_NLOOPNODES] == n - 1     # one reconnection, counted in the node count
