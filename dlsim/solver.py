@@ -150,9 +150,9 @@ class Relaxer:
         taken = 0
         while True:
             cap = state.capacity
-            work_f = np.zeros((9, cap))
+            work_f = np.zeros((K.N_WORK_F, cap))
             tau_int = np.zeros(cap)
-            work_i = np.zeros((3, cap), dtype=np.int64)
+            work_i = np.zeros((K.N_WORK_I, cap), dtype=np.int64)
             bufs = (np.empty(cap), np.empty(cap), np.empty(cap, np.int64), np.empty(cap, np.int64))
             while True:
                 before = int(state.meta[K.M_STEPS])
