@@ -83,7 +83,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit, prange
 
-from dlsim.kernels import JIT, JIT_PARALLEL
+from dlsim.jit import JIT, JIT_PARALLEL
 
 INV_4PI = 1.0 / (4.0 * np.pi)
 INV_8PI = 1.0 / (8.0 * np.pi)

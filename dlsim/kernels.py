@@ -14,9 +14,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-#: Numba options, defined once for every kernel of the package.
-JIT = dict(cache=True, nogil=True, error_model="numpy")
-JIT_PARALLEL = dict(JIT, parallel=True)
+from dlsim.jit import JIT
 
 # --- slots of the float parameter vector ``prm`` ------------------------------------------------
 P_GAMMA = 0      # line tension Γ (G b²)

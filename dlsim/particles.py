@@ -34,7 +34,7 @@ from numba import njit
 from scipy.special import ndtr, ndtri
 
 from .errors import CaseError
-from .kernels import JIT
+from .jit import JIT
 
 #: Source named in errors about values passed as function arguments (not read from a file).
 ARGUMENTS = "<arguments>"
