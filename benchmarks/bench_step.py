@@ -126,8 +126,8 @@ class StepProfile:
         s, w, r, prm, o = self.s, self.w, self.rig.relaxer, self.rig.prm, self.opin
         obs = (r.ox, r.oy, o, r.cstart, r.citems, r.ncx, r.ncy)
         return {
-            "node_pass": lambda: K.node_pass(s.x, s.y, n, s.pin, prm, self.tau_int, w.vx, w.vy,
-                                             w.fpin, w.ntx, w.nty),
+            "node_pass": lambda: K.node_pass(s.x, s.y, n, s.pin, prm, self.tau_int, w.fex, w.fey,
+                                             w.vx, w.vy, w.fpin, w.ntx, w.nty),
             "remesh": lambda bad: K._remesh_line(s.x, s.y, s.pin, s.ign, n, prm, bad, self.bx,
                                                  self.by, self.bpin, self.bign, w.head, w.nxt,
                                                  self.rx, self.ry, self.rad, *obs),
@@ -221,6 +221,7 @@ class _Work:
         self.cap_y = work_f[8, 2 * mc:3 * mc]
         self.cap_seg, self.cap_obs = work_i[0, :mc], work_i[0, mc:2 * mc]
         self.head, self.nxt = work_i[1], work_i[2]
+        self.fex, self.fey = work_f[9], work_f[10]
 
 
 def throughput(repeats: int, sizes) -> None:

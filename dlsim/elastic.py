@@ -293,6 +293,13 @@ def _arc_correction(xm, ym, x0, y0, xp, yp, bx, by, nu, a2):
     The two chords' contribution at their common node is replaced by that of the circular arc
     through the three nodes, to first order in its curvature (module notes, "Local part").
     """
+    arc, chords = _arc_and_chords(xm, ym, x0, y0, xp, yp, bx, by, nu, a2)
+    return arc - chords
+
+
+@njit(**JIT)
+def _arc_and_chords(xm, ym, x0, y0, xp, yp, bx, by, nu, a2):
+    """Stress at node (x0, y0) of its two arms: as the arc through the three nodes, as chords."""
     amx = x0 - xm
     amy = y0 - ym
     apx = xp - x0
@@ -325,7 +332,30 @@ def _arc_correction(xm, ym, x0, y0, xp, yp, bx, by, nu, a2):
     arc = (c0 * w0 * (phi_m - phi_p)
            - kappa * ((0.5 * c0 * c0 - w0 * w0) * (2.0 * jj + lam) * INV_8PI
                       + (0.5 * w0 * w0 - c0 * c0) * jj * INV_4PI / (1.0 - nu)))
-    return arc - chords
+    return arc, chords
+
+
+@njit(**JIT)
+def local_stress(x, y, n, Lx, theta0, nu, a_core, out):
+    """The part of :func:`self_stress` that comes from each node's own two arms (G).
+
+    Each node's two arms, taken as the circular arc through it and its neighbours (module notes,
+    "Local part"): the stiff, short-range part of the self-stress, which carries the local line
+    tension E + E'' ln(2h/a).  O(n), one pass.  The time stepper evaluates it at every step and
+    the rest of the self-stress (``self_stress - local_stress``, smooth on the scale of the node
+    spacing) only every few steps.
+
+    Parameters are those of :func:`self_stress` (no images, no cutoff: the arms are local).
+    """
+    bx = np.cos(theta0)
+    by = np.sin(theta0)
+    a2 = a_core * a_core
+    for i in range(n):
+        xm = x[n - 1] - Lx if i == 0 else x[i - 1]
+        ym = y[n - 1] if i == 0 else y[i - 1]
+        xp = x[0] + Lx if i == n - 1 else x[i + 1]
+        yp = y[0] if i == n - 1 else y[i + 1]
+        out[i] = _arc_and_chords(xm, ym, x[i], y[i], xp, yp, bx, by, nu, a2)[0]
 
 
 @njit(**JIT)
@@ -625,6 +655,11 @@ loop_stress.__doc__ = """Resolved shear at the line nodes from closed loops in t
     arriving from below (a negative resolved shear at that line: the Orowan back stress).  Same
     segment formula as :func:`self_stress` (Cai et al. 2006, in-plane form).
     """
+
+
+loop_stress_serial = njit(**JIT)(_loop_stress_impl)
+loop_stress_serial.__doc__ = "Serial twin of :func:`loop_stress` (same code, one thread).\n\n" \
+    + loop_stress.__doc__
 
 
 # ------------------------------------------------------------------------------------------------

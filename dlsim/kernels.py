@@ -14,6 +14,12 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
+# The stepper calls the serial twins: a compiled function that calls a ``parallel=True`` one
+# does not survive numba's on-disk cache reliably (segmentation faults seen when the cache was
+# filled by other processes), and sweeps and realizations already use every core, one run each.
+from dlsim.elastic import dwk_forces, local_stress
+from dlsim.elastic import loop_stress_serial as loop_stress
+from dlsim.elastic import self_stress_serial as self_stress
 from dlsim.jit import JIT
 
 # --- slots of the float parameter vector ``prm`` ------------------------------------------------
@@ -29,7 +35,25 @@ P_LX = 8         # box width, period of the line (b)
 P_LY = 9         # box height, period of the obstacle field (b)
 P_AREF = 10      # area under the line in the reference (last pinned) state (b²)
 P_DANN = 11      # distance below which parts of opposite sense reconnect (b)
-N_PRM = 12
+P_MODEL = 12     # line model: MODEL_CONSTANT, MODEL_DWK or MODEL_SELF (a float holding an int)
+P_THETA = 13     # angle of the Burgers vector from +x, the initial line direction (rad)
+P_NU = 14        # Poisson ratio
+P_ACORE = 15     # core radius: inner cut-off of de Wit–Koehler, a of the non-singular field (b)
+P_ROUT = 16      # outer cut-off radius of de Wit–Koehler (b)
+P_NIMG = 17      # periodic images summed segment by segment on each side (self-stress)
+P_CUTOFF = 18    # self-stress cutoff along x (b), 0 for none
+P_REFRESH = 19   # time steps between evaluations of the non-local self-stress
+P_GSTIFF = 20    # line stiffness of the time step and of the point-implicit update (G b²)
+N_PRM = 21
+
+# --- line models (prm[P_MODEL]) -----------------------------------------------------------------
+#: Constant line tension Γ = prm[P_GAMMA]: F_i = Γ (t_i − t_{i−1}).
+MODEL_CONSTANT = 0
+#: de Wit–Koehler orientation-dependent line energy, energy-consistent nodal forces.
+MODEL_DWK = 1
+#: The line's full non-singular elastic field (self-stress, images, Orowan loops); no line
+#: tension on top of it.
+MODEL_SELF = 2
 
 # --- slots of the int64 state vector ``meta`` ----------------------------------------------------
 M_N = 0          # number of nodes of the line
@@ -45,7 +69,7 @@ N_META = 9
 
 #: Rows of the float and int work arrays relax_line takes (``work_f``: (N_WORK_F, cap) float64,
 #: ``work_i``: (N_WORK_I, cap) int64).
-N_WORK_F = 9
+N_WORK_F = 14
 N_WORK_I = 3
 
 # --- status codes of relax_line ----------------------------------------------------------------
@@ -84,6 +108,11 @@ MIN_NODES = 4
 #: (s >= 10 l_min) that is φ < 0.1, so the wedge at a pin reconnects only when it has closed to
 #: within cos(φ/2) > 0.9987 of the Orowan configuration (4 nodes gave a 0.8 % early bypass).
 RECONNECT_MIN_SEPARATION = 20
+#: ... unless the shorter part of the line between them holds at least this many pinned nodes: it
+#: is then wrapped around a particle (a ring of pins) or a group of obstacles, not the wedge of one
+#: pin, and the two arms meeting behind it reconnect wherever they touch.  (The arms behind a small
+#: disc, pulled together by their elastic attraction, meet fewer than 20 nodes apart.)
+RECONNECT_MIN_PINS = 2
 #: Two parts of the line reconnect only when their tangents are closer to antiparallel than this.
 RECONNECT_COS = -0.5
 
@@ -132,7 +161,7 @@ def nodal_forces(x, y, n, prm, tau_node, fx, fy):
 
 
 @njit(**JIT)
-def node_pass(x, y, n, pin, prm, tau_int, vx, vy, fpin, ntx, nty):
+def node_pass(x, y, n, pin, prm, tau_int, fex, fey, vx, vy, fpin, ntx, nty):
     """Forces, friction and velocities of every node in one pass over the line.
 
     At a free node the local driving stress ``τ_loc = F·n/l`` (``F`` line tension plus
@@ -140,7 +169,9 @@ def node_pass(x, y, n, pin, prm, tau_int, vx, vy, fpin, ntx, nty):
     reduced by the friction threshold τ_f (no motion while |τ_loc| <= τ_f); the node moves along
     ``n`` at ``M τ_eff``.  A pinned node does not move; ``fpin`` receives the magnitude of the force
     the line exerts on it, with the Peach–Koehler part reduced by friction like everywhere else,
-    and at a free node its line-tension stiffness ``2 M Γ/(a b)`` (per time unit; STEP_STIFFNESS).
+    and at a free node its line stiffness ``2 M Γ_s/(a b)`` (per time unit, Γ_s = prm[P_GSTIFF];
+    STEP_STIFFNESS).  ``fex, fey`` are nodal forces of a line-tension model other than the
+    constant one (de Wit–Koehler), added to ``Γ (t_i − t_{i−1})``; zeros otherwise.
     ``ntx, nty`` receive the unit chord tangent at each node.  Each segment is computed once and
     carried to the next node, so every node's data is read once per pass.
 
@@ -154,6 +185,8 @@ def node_pass(x, y, n, pin, prm, tau_int, vx, vy, fpin, ntx, nty):
         Parameters (Γ, τ, τ_f, M, l_min, l_max, Lx used here).
     tau_int : (>= n,) float64
         Internal resolved shear stress at each node (G), added to the applied stress.
+    fex, fey : (>= n,) float64
+        Further line-tension forces at each node (G b²), added to the constant-Γ ones.
     vx, vy, fpin, ntx, nty : (>= n,) float64
         Outputs: velocity (b per time unit), pin force (G b²), unit chord tangent.
 
@@ -168,7 +201,7 @@ def node_pass(x, y, n, pin, prm, tau_int, vx, vy, fpin, ntx, nty):
         Largest |τ_eff| over free nodes (G): the equilibrium residual.
     stiffness : float
         Largest 1/(a b) over free nodes with arms a, b (b⁻²): the explicit-Euler stability
-        bound, dt < 1/(2 M Γ stiffness) (the point-implicit step does not need it).
+        bound, dt < 1/(2 M Γ_s stiffness) (the point-implicit step does not need it).
     vmax : float
         Largest node speed.
     n_turned : int
@@ -177,6 +210,7 @@ def node_pass(x, y, n, pin, prm, tau_int, vx, vy, fpin, ntx, nty):
     """
     gamma, tau, tau_f, mob = prm[P_GAMMA], prm[P_TAU], prm[P_TAUF], prm[P_MOB]
     Lx, lmin, lmax = prm[P_LX], prm[P_LMIN], prm[P_LMAX]
+    k_stiff = 2.0 * mob * prm[P_GSTIFF]
     # the arm behind node 0 is segment n-1, across the seam
     ax, ay = x[0] + Lx - x[n - 1], y[0] - y[n - 1]
     a = np.sqrt(ax * ax + ay * ay)
@@ -201,7 +235,7 @@ def node_pass(x, y, n, pin, prm, tau_int, vx, vy, fpin, ntx, nty):
         if first_bad < 0 and (b > lmax or (b < lmin and (pi < 0 or pj < 0))):
             first_bad = i
         cx, cy = ax + bx, ay + by           # chord r_{i+1} - r_{i-1}
-        tx, ty = gamma * (ubx - uax), gamma * (uby - uay)
+        tx, ty = gamma * (ubx - uax) + fex[i], gamma * (uby - uay) + fey[i]
         c = np.sqrt(cx * cx + cy * cy)
         inv_c = 1.0 / c
         tnx, tny = cx * inv_c, cy * inv_c
@@ -233,7 +267,7 @@ def node_pass(x, y, n, pin, prm, tau_int, vx, vy, fpin, ntx, nty):
                 vx[i] = -speed * tny
                 vy[i] = speed * tnx
             min_ab = min(min_ab, a * b)
-            fpin[i] = 2.0 * mob * gamma / (a * b)
+            fpin[i] = k_stiff / (a * b)
         ax, ay, a, uax, uay = bx, by, b, ubx, uby
     stiff = 0.0 if min_ab == np.inf else 1.0 / min_ab
     return area, first_bad, max_te, stiff, vmax, turned
@@ -729,12 +763,32 @@ def find_contact(x, y, n, pin, ntx, nty, prm, head, nxt):
 
 
 @njit(**JIT)
+def _far_apart(pin, n, i, j):
+    """Nodes i, j may reconnect: RECONNECT_MIN_SEPARATION nodes apart along the line, or the
+    shorter part between them wrapped round obstacles (RECONNECT_MIN_PINS pinned nodes)."""
+    lo, hi = min(i, j), max(i, j)
+    sep = hi - lo
+    if min(sep, n - sep) >= RECONNECT_MIN_SEPARATION:
+        return True
+    held = 0
+    if sep <= n - sep:
+        for k in range(lo + 1, hi):
+            if pin[k] >= 0:
+                held += 1
+    else:
+        for k in range(hi + 1, n + lo):
+            if pin[k % n] >= 0:
+                held += 1
+    return held >= RECONNECT_MIN_PINS
+
+
+@njit(**JIT)
 def find_contacts(x, y, n, pin, ntx, nty, prm, head, nxt, ci, cj):
     """Pairs of free nodes (i, j), i < j, on parts of the line of opposite sense in contact.
 
-    Node i touches node j's part of the line when it lies within the annihilation distance of one
-    of j's two segments, the two are at least RECONNECT_MIN_SEPARATION nodes apart along the line
-    and their tangents are closer to antiparallel than RECONNECT_COS.  Two tangents more than 120°
+    Node i touches node j's part of the line when one of them lies within the annihilation
+    distance of one of the other's two segments, the two are at least RECONNECT_MIN_SEPARATION nodes apart along the line
+    (or wrapped round obstacles between, RECONNECT_MIN_PINS) and their tangents are closer to antiparallel than RECONNECT_COS.  Two tangents more than 120°
     apart cannot both lie within 60° of +x, so only nodes with t_x < 1/2 need to look (most of a
     gliding line does not).  Candidates come from a hashed cell list over the free nodes, with
     power-of-two cell counts so that wrapping is a bit mask (``head``: cells, ``nxt``: nodes; work
@@ -766,15 +820,18 @@ def find_contacts(x, y, n, pin, ntx, nty, prm, head, nxt, ci, cj):
             for dy in range(-1, 2):
                 j = head[((ix0 + dx) & mx) + ncx * ((iy0 + dy) & my)]
                 while j >= 0 and partner < 0:
-                    sep = abs(j - i)
-                    if (min(sep, n - sep) >= RECONNECT_MIN_SEPARATION
-                            and ntx[i] * ntx[j] + nty[i] * nty[j] < RECONNECT_COS):
+                    if (ntx[i] * ntx[j] + nty[i] * nty[j] < RECONNECT_COS
+                            and _far_apart(pin, n, i, j)):
                         shift = Lx * np.floor((x[i] - x[j]) / Lx + 0.5)
                         xj, yj = x[j] + shift, y[j]
                         if abs(xj - x[i]) < hc and abs(yj - y[i]) < hc:
                             jm_x, jm_y, jp_x, jp_y = _neighbours(x, y, n, j, Lx)
                             d2 = min(_point_segment_dist2(x[i], y[i], jm_x + shift, jm_y, xj, yj),
                                      _point_segment_dist2(x[i], y[i], xj, yj, jp_x + shift, jp_y))
+                            # and node j against i's segments (j may not be a looking node)
+                            im_x, im_y, ip_x, ip_y = _neighbours(x, y, n, i, Lx)
+                            d2 = min(d2, _point_segment_dist2(xj, yj, im_x, im_y, x[i], y[i]),
+                                     _point_segment_dist2(xj, yj, x[i], y[i], ip_x, ip_y))
                             if d2 < d2max:
                                 partner = j
                     j = nxt[j]
@@ -1022,10 +1079,58 @@ def _gather_clearance(lo, n, src, rx, ry, rad, buf_a, buf_b):
 
 
 @njit(**JIT)
+def model_forces(x, y, n, pin, prm, meta, lx, ly, loff, tau_int, fex, fey, far, near, buf,
+                 fresh):
+    """Internal stress ``tau_int`` and extra line-tension forces ``fex, fey`` of the line model.
+
+    - MODEL_CONSTANT: nothing to do (the constant Γ is in :func:`node_pass`).
+    - MODEL_DWK: ``fex, fey`` = de Wit–Koehler nodal forces (:func:`dlsim.elastic.dwk_forces`),
+      and prm[P_GAMMA] is 0.
+    - MODEL_SELF: at a free node ``tau_int`` = the line's non-singular self-stress (window of
+      images plus straight remainder, :func:`dlsim.elastic.self_stress`) plus the stress of the
+      stored Orowan loops (:func:`dlsim.elastic.loop_stress`), ``fex = fey = 0``; prm[P_GAMMA] is 0.
+      The non-local part (``far``: everything except the node's own arms) is evaluated only when
+      ``fresh`` (the caller asks every prm[P_REFRESH] steps and whenever the nodes were renumbered);
+      the local part (``near``, :func:`dlsim.elastic.local_stress`, the stiff one) at every call.
+      At a pinned node, where the arc treatment of the own arms does not hold (the arms meet at a
+      corner), the force on the obstacle is the de Wit–Koehler pull of its two arms (in
+      ``fex, fey``, cut-offs prm[P_ACORE], prm[P_ROUT]) plus the Peach–Koehler force of the applied
+      and the non-local stress (``tau_int`` = ``far``).
+
+    ``far``, ``near``, ``buf`` : (cap,) float64 scratch; ``far`` persists between calls.
+    """
+    model = int(prm[P_MODEL])
+    if model == MODEL_CONSTANT:
+        return
+    Lx, theta, nu, a = prm[P_LX], prm[P_THETA], prm[P_NU], prm[P_ACORE]
+    dwk_forces(x, y, n, Lx, theta, nu, a, prm[P_ROUT], pin, fex, fey)
+    if model == MODEL_DWK:
+        return
+    n_img = int(prm[P_NIMG])
+    if fresh:
+        self_stress(x, y, n, Lx, theta, nu, a, n_img, prm[P_CUTOFF], far)
+        n_loops = meta[M_NLOOPS]
+        if n_loops > 0:
+            loop_stress(x, y, n, lx, ly, loff, n_loops, Lx, theta, nu, a, n_img, buf)
+            for i in range(n):
+                far[i] += buf[i]
+    local_stress(x, y, n, Lx, theta, nu, a, near)
+    for i in range(n):
+        if fresh:
+            far[i] -= near[i]
+        if pin[i] >= 0:
+            tau_int[i] = far[i]
+        else:
+            tau_int[i] = far[i] + near[i]
+            fex[i] = 0.0
+            fey[i] = 0.0
+
+
+@njit(**JIT)
 def time_step(prm):
     """Time step of the point-implicit update (STEP_STIFFNESS; time unit 1/(M G))."""
     h = 0.5 * (prm[P_LMIN] + prm[P_LMAX])
-    return STEP_STIFFNESS * h * h / (2.0 * prm[P_MOB] * prm[P_GAMMA])
+    return STEP_STIFFNESS * h * h / (2.0 * prm[P_MOB] * prm[P_GSTIFF])
 
 
 @njit(**JIT)
@@ -1034,8 +1139,9 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
                lx, ly, lpin, loff, tau_int, work_f, work_i):
     """Relax the line at fixed stress until equilibrium, flow, or ``max_steps`` time steps.
 
-    One step: forces and velocities in one pass (:func:`node_pass`; remesh first if the line came
-    in out of bounds); stop if the line has glided the flow distance; release overloaded pins;
+    One step: the line model's forces (:func:`model_forces`), then forces and velocities in one
+    pass (:func:`node_pass`; remesh first if the line came in out of bounds); stop if the line
+    has glided the flow distance; release overloaded pins;
     reconnect parts of opposite sense in contact (only searched for when some node has turned
     past 60°); stop at equilibrium; otherwise advance the free nodes by the point-implicit step
     (STEP_STIFFNESS), pin every obstacle swept on the way (:func:`move_and_capture`,
@@ -1062,10 +1168,12 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
     lx, ly, lpin, loff
         Loop buffers (CSR, see :func:`reconnect`).
     tau_int : (cap,) float64
-        Internal stress at the nodes (G), zero for a constant line tension.
+        Internal stress at the nodes (G): zero for the line-tension models, written by
+        :func:`model_forces` for MODEL_SELF.
     work_f : (N_WORK_F, cap) float64 and work_i : (N_WORK_I, cap) int64
         Work arrays (cap >= 3 MAX_CAPTURES): velocities, pin forces or stiffnesses, node
-        clearances (rows 3-5, reset at every call), chord tangents, capture lists; contact grid.
+        clearances (rows 3-5, reset at every call), chord tangents, capture lists, the line
+        model's forces and stresses (rows 9-13, :func:`model_forces`); contact grid.
 
     Returns
     -------
@@ -1081,26 +1189,38 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
     cap_seg = work_i[0, :MAX_CAPTURES]
     cap_obs = work_i[0, MAX_CAPTURES:2 * MAX_CAPTURES]
     head, nxt = work_i[1], work_i[2]
+    fex, fey, far, near, buf = work_f[9], work_f[10], work_f[11], work_f[12], work_f[13]
     Lx = prm[P_LX]
     n = meta[M_N]
     rad[:n] = UNKNOWN       # the line may have changed since the last call
     moved = 0
     searched = False
     reconnections = meta[M_RECONNECT]
+    refresh = max(int(prm[P_REFRESH]), 1)
+    stale = True            # the non-local self-stress must be evaluated (MODEL_SELF)
+    since = 0               # moves since it was
     for _ in range(4 * max_steps):
         if moved >= max_steps:
             break
         if 2 * n + 2 * MAX_CAPTURES + 16 > cap:   # room to insert captures, then remesh
             meta[M_N] = n
             return CAPACITY
-        area, bad, max_te, stiff, vmax, turned = node_pass(x, y, n, pin, prm, tau_int,
+        fresh = stale or since >= refresh
+        model_forces(x, y, n, pin, prm, meta, lx, ly, loff, tau_int, fex, fey, far, near, buf,
+                     fresh)
+        if fresh:
+            stale, since = False, 0
+        area, bad, max_te, stiff, vmax, turned = node_pass(x, y, n, pin, prm, tau_int, fex, fey,
                                                            vx, vy, fpin, ntx, nty)
         if bad >= 0:   # the line was changed since the last move, or could not be remeshed
             meta[M_REMESH] += 1
             n = _remesh_line(x, y, pin, ign, n, prm, bad, bx, by, bpin, bign, head, nxt, rx, ry,
                              rad, ox, oy, opin, cstart, citems, ncx, ncy)
+            model_forces(x, y, n, pin, prm, meta, lx, ly, loff, tau_int, fex, fey, far, near,
+                         buf, True)
+            since = 0
             area, bad, max_te, stiff, vmax, turned = node_pass(x, y, n, pin, prm, tau_int,
-                                                               vx, vy, fpin, ntx, nty)
+                                                               fex, fey, vx, vy, fpin, ntx, nty)
         if (area - prm[P_AREF]) / Lx > prm[P_FLOW]:
             meta[M_N] = n
             return FLOWING
@@ -1120,6 +1240,7 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
                 return CAPACITY
             if n_new != n or meta[M_RECONNECT] != reconnections:
                 n, reconnections, searched = n_new, meta[M_RECONNECT], True
+                stale = True
                 continue
         searched = False
         if max_te < prm[P_TOL]:
@@ -1133,12 +1254,15 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
             meta[M_CAPTURES] += ncap
             n = insert_pins(x, y, pin, ign, n, ncap, cap_seg, cap_s, cap_obs, cap_x, cap_y, opin,
                             rx, ry, rad)
+            stale = True
             bad = cap_seg[0] if bad < 0 else min(bad, cap_seg[0])   # pins split segments
         if bad >= 0:   # remesh now, so that the next step's node_pass is its only one
             meta[M_REMESH] += 1
             n = _remesh_line(x, y, pin, ign, n, prm, bad, bx, by, bpin, bign, head, nxt, rx, ry,
                              rad, ox, oy, opin, cstart, citems, ncx, ncy)
+            stale = True
         moved += 1
+        since += 1
         meta[M_STEPS] += 1
     meta[M_N] = n
     return MAX_STEPS

@@ -27,6 +27,76 @@ ANNIHILATION_FRACTION = 0.5
 DEFAULT_CHUNK = 50_000
 
 
+#: Line models and their codes in the kernels (prm[P_MODEL]).
+MODELS = {"constant": K.MODEL_CONSTANT, "dewit_koehler": K.MODEL_DWK,
+          "self_stress": K.MODEL_SELF}
+
+
+@dataclass(frozen=True)
+class Elasticity:
+    """The line's elastic model beyond a constant line tension (reduced units).
+
+    Attributes
+    ----------
+    model : str
+        "constant" (Γ of :class:`LineModel`), "dewit_koehler" (orientation-dependent line energy
+        E(θ) = K (1 - ν cos²θ)/(1 - ν), K = ln(R_out/r_core)/(4π); de Wit & Koehler 1959) or
+        "self_stress" (the non-singular elastic field of the whole line, its periodic images and
+        its Orowan loops; Cai et al. 2006).
+    burgers_angle : float
+        Angle between the Burgers vector and the initial line direction +x (rad): 0 screw, π/2
+        edge.  Each segment's character follows from its direction.
+    poisson : float
+        Poisson ratio ν.
+    core_radius : float
+        Inner cut-off r_core of de Wit–Koehler and core radius a of the non-singular field (b).
+    outer_radius : float
+        Outer cut-off R_out of de Wit–Koehler (b); with "self_stress" it only enters the force a
+        pinned node exerts on its obstacle (:func:`dlsim.kernels.model_forces`).
+    images : int
+        Periods of the line on each side summed segment by segment ("self_stress").
+    cutoff : float
+        Self-stress cutoff along x (b), 0 for none (far-field correction: the straight average).
+    refresh : int
+        Time steps between evaluations of the non-local self-stress (the local part is evaluated
+        at every step).
+    """
+
+    model: str = "constant"
+    burgers_angle: float = 0.5 * np.pi
+    poisson: float = 1.0 / 3.0
+    core_radius: float = 1.0
+    outer_radius: float = 1000.0
+    images: int = 2
+    cutoff: float = 0.0
+    refresh: int = 1
+
+    def __post_init__(self):
+        if self.model not in MODELS:
+            raise ValueError(f"unknown line model {self.model!r}; one of {', '.join(MODELS)}")
+
+    @property
+    def character_factor(self) -> float:
+        """max over characters of (1 - 2ν + 3ν cos²θ): the stiffest character's E + E''/K(1-ν)."""
+        return max(1.0 + self.poisson, 1.0 - 2.0 * self.poisson)
+
+    def stiffness(self, tension: float, node_spacing: float) -> float:
+        """Line stiffness Γ_s (G b²) that sets the time step and the point-implicit update.
+
+        constant: Γ.  dewit_koehler: the largest E + E'' over characters, K (1+ν)/(1-ν) for
+        ν > 0 (de Wit & Koehler 1959).  self_stress: the same factor with ln(R_out/r_core)
+        replaced by 1 + ln(1 + 2h/a), an upper estimate of the local stiffness
+        ``(1 - 2ν + 3ν c²) ln(2h/a)/(4π(1-ν))`` of the arc treatment (dlsim.elastic, "Local part")
+        that stays positive for h <= a; the non-local part, smoother, is softer per node.
+        """
+        f = self.character_factor / (4.0 * np.pi * (1.0 - self.poisson))
+        if self.model == "constant":
+            return tension
+        if self.model == "dewit_koehler":
+            return f * np.log(self.outer_radius / self.core_radius)
+        return f * (1.0 + np.log1p(2.0 * node_spacing / self.core_radius))
+
+
 @dataclass(frozen=True)
 class LineModel:
     """Physics of the line (reduced units).
@@ -34,19 +104,23 @@ class LineModel:
     Attributes
     ----------
     tension : float
-        Line tension Γ (G b²).
+        Line tension Γ (G b²) of the constant model; with the other models it only converts
+        critical angles of obstacles to forces.
     node_spacing : float
         Target segment length (b).
     friction : float
         Lattice friction threshold τ_f (G).
     mobility : float
         Mobility M (sets only the time unit of a quasi-static calculation).
+    elasticity : Elasticity
+        The line model (default: constant line tension).
     """
 
     tension: float
     node_spacing: float
     friction: float = 0.0
     mobility: float = 1.0
+    elasticity: Elasticity = Elasticity()
 
 
 @dataclass(frozen=True)
@@ -131,6 +205,14 @@ class Relaxer:
         prm[K.P_TOL], prm[K.P_FLOW] = protocol.tolerance, protocol.flow_distance
         prm[K.P_LX], prm[K.P_LY] = self.field.Lx, self.field.Ly
         prm[K.P_AREF], prm[K.P_DANN] = area_ref, ANNIHILATION_FRACTION * h
+        e = m.elasticity
+        prm[K.P_MODEL] = MODELS[e.model]
+        if e.model != "constant":
+            prm[K.P_GAMMA] = 0.0       # the model's forces replace the constant line tension
+        prm[K.P_THETA], prm[K.P_NU] = e.burgers_angle, e.poisson
+        prm[K.P_ACORE], prm[K.P_ROUT] = e.core_radius, e.outer_radius
+        prm[K.P_NIMG], prm[K.P_CUTOFF], prm[K.P_REFRESH] = e.images, e.cutoff, e.refresh
+        prm[K.P_GSTIFF] = e.stiffness(m.tension, h)
         return prm
 
     def occupancy(self, state: LineState) -> np.ndarray:

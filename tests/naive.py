@@ -149,12 +149,13 @@ def point_segment_distance(p, a, b):
     return float(np.hypot(*(a + s * e - p)))
 
 
-def find_contacts(x, y, pin, tchord, Lx, dann, min_separation, cos_max):
+def find_contacts(x, y, pin, tchord, Lx, dann, min_separation, cos_max, min_pins=2):
     """Brute force over all pairs: every (i, j), i < j, of free nodes on parts of opposite sense.
 
     A pair is in contact when one node lies within ``dann`` of one of the other's two segments
     (nearest periodic image in x), they are at least ``min_separation`` nodes apart along the line
-    and their chord tangents have a dot product below ``cos_max``.
+    or the shorter way between them holds at least ``min_pins`` pinned nodes, and their chord
+    tangents have a dot product below ``cos_max``.
     """
     n = len(x)
     prev, nxt = neighbours(x, y, Lx)
@@ -163,8 +164,13 @@ def find_contacts(x, y, pin, tchord, Lx, dann, min_separation, cos_max):
         for j in range(n):
             if i == j or pin[i] >= 0 or pin[j] >= 0:
                 continue
-            sep = abs(i - j)
-            if min(sep, n - sep) < min_separation or tchord[i] @ tchord[j] >= cos_max:
+            lo, hi = min(i, j), max(i, j)
+            inner = list(range(lo + 1, hi))
+            outer = [k % n for k in range(hi + 1, lo + n)]
+            between = inner if len(inner) <= len(outer) else outer
+            wrapped = sum(1 for k in between if pin[k] >= 0) >= min_pins
+            if (len(between) + 1 < min_separation and not wrapped) or (
+                    tchord[i] @ tchord[j] >= cos_max):
                 continue
             shift = Lx * np.floor((x[i] - x[j]) / Lx + 0.5)
             p, sh = np.array([x[i], y[i]]), np.array([shift, 0.0])

@@ -34,7 +34,7 @@ def params(Lx, Ly=1.0, tau=0.0, tau_f=0.0, lmin=0.0, lmax=np.inf, dann=0.0, mobi
     prm = np.zeros(K.N_PRM)
     prm[K.P_GAMMA], prm[K.P_TAU], prm[K.P_TAUF], prm[K.P_MOB] = GAMMA, tau, tau_f, mobility
     prm[K.P_LMIN], prm[K.P_LMAX], prm[K.P_LX], prm[K.P_LY] = lmin, lmax, Lx, Ly
-    prm[K.P_DANN] = dann
+    prm[K.P_DANN], prm[K.P_GSTIFF] = dann, GAMMA
     return prm
 
 
@@ -69,7 +69,8 @@ def run_node_pass(x, y, pin, prm, tau_int=None):
     w = Work(n + 8)
     xs, ys, ps = padded(x, n + 8, 0.0), padded(y, n + 8, 0.0), padded(pin, n + 8, -1)
     ti = np.zeros(n + 8) if tau_int is None else padded(tau_int, n + 8, 0.0)
-    out = K.node_pass(xs, ys, n, ps, prm, ti, w.vx, w.vy, w.fpin, w.ntx, w.nty)
+    zero = np.zeros(n + 8)
+    out = K.node_pass(xs, ys, n, ps, prm, ti, zero, zero, w.vx, w.vy, w.fpin, w.ntx, w.nty)
     return w, out
 
 
@@ -478,7 +479,8 @@ def test_find_contact_equals_brute_force(gap, expect):
     w, _ = run_node_pass(x, y, pin, prm)
     i, j = K.find_contact(x, y, n, pin, w.ntx, w.nty, prm, w.head, w.nxt)
     ref = naive.find_contacts(x, y, pin, np.stack([w.ntx[:n], w.nty[:n]], 1), Lx, 2.5,
-                              K.RECONNECT_MIN_SEPARATION, K.RECONNECT_COS)
+                              K.RECONNECT_MIN_SEPARATION, K.RECONNECT_COS,
+                              K.RECONNECT_MIN_PINS)
     assert bool(ref) == expect
     assert ((i, j) in ref) if ref else (i, j) == (-1, -1)
 
@@ -497,7 +499,8 @@ def test_find_contact_equals_brute_force_on_folded_lines(seed):
     w, _ = run_node_pass(x, y, pin, prm)
     i, j = K.find_contact(x, y, n, pin, w.ntx, w.nty, prm, w.head, w.nxt)
     ref = naive.find_contacts(x, y, pin, np.stack([w.ntx[:n], w.nty[:n]], 1), Lx,
-                              prm[K.P_DANN], K.RECONNECT_MIN_SEPARATION, K.RECONNECT_COS)
+                              prm[K.P_DANN], K.RECONNECT_MIN_SEPARATION, K.RECONNECT_COS,
+                              K.RECONNECT_MIN_PINS)
     assert ((i, j) in ref) if ref else (i, j) == (-1, -1)
     ci, cj = np.zeros(64, np.int64), np.zeros(64, np.int64)
     k = K.find_contacts(x, y, n, pin, w.ntx, w.nty, prm, w.head, w.nxt, ci, cj)
