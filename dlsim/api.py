@@ -18,7 +18,7 @@ from .case import Case, load_case
 from .fields import (ObstacleField, ParticleTable, enlarged_table, population_field,
                      populations_table, random_field, square_field)
 from .line import LineState
-from .solver import CrssResult, LineModel, Protocol, Relaxation, Relaxer, find_crss
+from .solver import CrssResult, Elasticity, LineModel, Protocol, Relaxation, Relaxer, find_crss
 
 #: The ramp gives up (no CRSS) above τ_f + this many Orowan stresses 2Γ/(bL).
 MAX_STRESS_IN_OROWAN = 5.0
@@ -91,12 +91,38 @@ def build_field(case: Case, realization: int = 0) -> ObstacleField:
     return random_field(u.length(line.length_nm), u.length(line.height_nm), spacing ** -2, fc, rng)
 
 
+def elasticity(case: Case) -> Elasticity:
+    """The case's line model in reduced units (:class:`dlsim.solver.Elasticity`)."""
+    e, u = case.elasticity, case.units
+    return Elasticity(model=e.model, burgers_angle=float(np.radians(e.character_deg)),
+                      poisson=case.material.poisson_ratio,
+                      core_radius=u.length(e.core_radius_nm),
+                      outer_radius=u.length(e.outer_radius_nm), images=e.images,
+                      cutoff=u.length(e.cutoff_nm), refresh=e.refresh)
+
+
+def model_record(case: Case) -> dict:
+    """Which line model ran, with its parameters (result.json ``model``)."""
+    e = case.elasticity
+    rec = {"line_model": e.model, "character_deg": e.character_deg,
+           "poisson_ratio": case.material.poisson_ratio}
+    if e.model == "constant":
+        rec["line_tension_nN"] = float(case.units.force_nN(line_tension(case)))
+    else:
+        rec.update(core_radius_nm=e.core_radius_nm, outer_radius_nm=e.outer_radius_nm)
+    if e.model == "self_stress":
+        rec.update(images=e.images, cutoff_nm=e.cutoff_nm, refresh=e.refresh,
+                   loops_interact=True)
+    return rec
+
+
 def model_and_protocol(case: Case, spacing: float) -> tuple[LineModel, Protocol, float]:
     """Line model, loading protocol and the reference stress 2Γ/(bL) (reduced units)."""
     u, gamma = case.units, line_tension(case)
     tau_ref = analytic.orowan(gamma, spacing)
     friction = u.stress(case.friction.stress_MPa)
-    model = LineModel(gamma, u.length(case.line.node_spacing_nm), friction)
+    model = LineModel(gamma, u.length(case.line.node_spacing_nm), friction,
+                      elasticity=elasticity(case))
     ld = case.loading
     protocol = Protocol(ld.stress_step * tau_ref, ld.tolerance * tau_ref,
                         ld.flow_distance * spacing, ld.bisections, ld.max_steps,
@@ -329,7 +355,7 @@ def _summary(case: Case, obstacles: ObstacleField, search: CrssResult, tau_ref: 
         "relaxations": len(search.history),
         "time_steps": int(sum(r.steps for r in search.history)),
         "events": search.counters,
-        "model": {"line_tension": "constant", "self_stress": False},
+        "model": model_record(case),
         "wall_time_s": wall,
         "dlsim_version": __version__,
         "case": case.to_dict(),

@@ -142,6 +142,8 @@ class Section:
 
 
 _POSITIVE = above(0)
+#: The line models of ``[elasticity] model`` (dlsim.solver.MODELS).
+LINE_MODELS = ("constant", "dewit_koehler", "self_stress")
 SCHEMA: dict[str, Section] = {
     "": Section("top level", {
         "title": Key(str, "free text describing the case", ""),
@@ -202,6 +204,25 @@ SCHEMA: dict[str, Section] = {
                       at_least(1)),
         "loop_spacing_nm": Key(float, "the radial spacing of Orowan loops around a particle in nm "
                                       "(default: 2 b)", None, _POSITIVE),
+    }),
+    "elasticity": Section("the line's elastic model (beyond the constant line tension of [line])", {
+        "model": Key(str, "constant (Γ of [line]), dewit_koehler (orientation-dependent line "
+                          "energy) or self_stress (the line's whole non-singular elastic field)",
+                     "constant", one_of(*LINE_MODELS)),
+        "character_deg": Key(float, "the angle between the Burgers vector and the initial line in "
+                                    "degrees (0: screw, 90: edge)", 90.0,
+                             between(0, 180, closed=True)),
+        "core_radius_nm": Key(float, "the core radius (inner cut-off) in nm (default: b)", None,
+                              _POSITIVE),
+        "outer_radius_nm": Key(float, "the outer cut-off of the de Wit–Koehler energy in nm "
+                                      "(default: the obstacle spacing)", None, _POSITIVE),
+        "images": Key(int, "the periods of the line summed segment by segment on each side "
+                           "(self_stress)", 2, at_least(0)),
+        "cutoff_nm": Key(float, "the self-stress cutoff along the line in nm (0: none; beyond it "
+                                "the line counts as its straight average)", 0.0, at_least(0)),
+        "refresh": Key(int, "the time steps between evaluations of the non-local self-stress "
+                            "(self_stress; the local part is evaluated every step)", 1,
+                       at_least(1)),
     }),
     "output": Section("result files", {
         "folder": Key(str, "the output folder relative to the case file (default: runs/<stem>)",
@@ -379,6 +400,19 @@ class LoadingSpec:
 
 
 @dataclass(frozen=True)
+class ElasticitySpec:
+    """The line model and its parameters (lengths in nm), see :data:`SCHEMA` ``["elasticity"]``."""
+
+    model: str
+    character_deg: float
+    core_radius_nm: float
+    outer_radius_nm: float
+    images: int
+    cutoff_nm: float
+    refresh: int
+
+
+@dataclass(frozen=True)
 class OutputSpec:
     """Output folder (absolute path) and snapshot interval (0: no snapshots)."""
 
@@ -404,6 +438,7 @@ class Case:
     populations: tuple[PopulationSpec, ...] = ()
     statistics: StatisticsSpec = StatisticsSpec(1)
     strength: StrengthSpec | None = None
+    elasticity: ElasticitySpec | None = None
 
     @property
     def spacing_nm(self) -> float:
@@ -431,6 +466,7 @@ class Case:
             "loading": dataclasses.asdict(self.loading),
             "statistics": dataclasses.asdict(self.statistics),
             "strength": dataclasses.asdict(self.strength),
+            "elasticity": dataclasses.asdict(self.elasticity),
             "output": dataclasses.asdict(self.output),
         }
         if self.obstacles is not None:
@@ -799,12 +835,31 @@ def load_case(source: str | os.PathLike | dict | Case, base_dir: str | os.PathLi
     loading = table("loading")
     if loading["flow_distance"] is None:
         loading["flow_distance"] = line.height_spacings
+    spacing = (obstacles.spacing_nm if obstacles is not None
+               else P.mean_square_spacing(sum(p.areal_density_per_nm2 for p in populations)))
+    elasticity = _resolve_elasticity(name, table("elasticity"), material, spacing)
     return Case(source=name, title=top["title"], seed=top["seed"], material=material,
                 line=line, obstacles=obstacles,
                 friction=FrictionSpec(**table("friction")), loading=LoadingSpec(**loading),
                 output=_resolve_output(table("output"), base, stem), raw=raw,
                 populations=populations, statistics=StatisticsSpec(**table("statistics")),
-                strength=StrengthSpec(**strength))
+                strength=StrengthSpec(**strength), elasticity=elasticity)
+
+
+def _resolve_elasticity(source: str, e: dict, material: Material, spacing_nm: float
+                        ) -> ElasticitySpec:
+    """Defaults in nm (core: b, outer: the obstacle spacing); for the models that use them the
+    outer cut-off must exceed the core, or the de Wit–Koehler energy K = ln(R_out/r_core)/(4π)
+    would not be positive."""
+    if e["core_radius_nm"] is None:
+        e["core_radius_nm"] = material.burgers_nm
+    if e["outer_radius_nm"] is None:
+        e["outer_radius_nm"] = spacing_nm
+    if e["model"] != "constant" and e["outer_radius_nm"] <= e["core_radius_nm"]:
+        raise CaseError(source, "elasticity.outer_radius_nm",
+                        f"{e['outer_radius_nm']:g} nm is not larger than the core radius "
+                        f"{e['core_radius_nm']:g} nm")
+    return ElasticitySpec(**e)
 
 
 _ARRAY_KEY = re.compile(r"^(\w+)\[(\d+)\]\.(\w+)$")

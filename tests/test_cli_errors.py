@@ -70,6 +70,15 @@ BAD_CASES = [
      "got 1.5; must be a number in (0, 1)"),
     ("snapshots_negative", case_text(output="snapshot_every = -1"), "output.snapshot_every",
      "got -1; must be an integer >= 0"),
+    ("unknown_line_model", case_text(elasticity='model = "dewitt"'), "elasticity.model",
+     'got "dewitt"; must be one of "constant", "dewit_koehler", "self_stress"'),
+    ("character_out_of_range", case_text(elasticity="character_deg = -10"),
+     "elasticity.character_deg", "got -10.0; must be a number in [0, 180]"),
+    ("outer_inside_core",
+     case_text(elasticity='model = "dewit_koehler"\ncore_radius_nm = 2.0\nouter_radius_nm = 1.0'),
+     "elasticity.outer_radius_nm", "is not larger than the core radius 2 nm"),
+    ("refresh_zero", case_text(elasticity='model = "self_stress"\nrefresh = 0'),
+     "elasticity.refresh", "got 0; must be an integer >= 1"),
 ]
 
 # File-level problems: (file stem, how to make it, fragment of the problem)
