@@ -469,6 +469,18 @@ def write_run(folder: Path, case: Case, obstacles: ObstacleField, search: CrssRe
     output.write_json(folder / output.RESULT, summary)
 
 
+def _describe_model(m: dict) -> str:
+    """One line naming the line model of result.json ``model``."""
+    if m["line_model"] == "constant":
+        return f"constant line tension {m['line_tension_nN']:.3g} nN"
+    text = (f"{m['line_model'].replace('_', '-')}, character {m['character_deg']:g}° "
+            f"(0 screw, 90 edge), ν = {m['poisson_ratio']:g}, core {m['core_radius_nm']:g} nm")
+    if m["line_model"] == "dewit_koehler":
+        return text + f", outer cut-off {m['outer_radius_nm']:g} nm"
+    return text + f", {m['images']} image period(s) each side" + (
+        f", cutoff {m['cutoff_nm']:g} nm" if m["cutoff_nm"] > 0 else "")
+
+
 def format_summary(result: RunResult) -> str:
     """A few readable lines for the terminal."""
     s = result.summary
@@ -481,6 +493,7 @@ def format_summary(result: RunResult) -> str:
         f"{s['box_in_spacings'][1]:.1f} spacings of {s['spacing_nm']:.1f} nm",
         f"CRSS      {s['crss_MPa']:.2f} MPa  bracket [{lo:.2f}, {hi:.2f}] MPa  "
         f"= {s['crss_over_orowan']:.3f} x Orowan 2Γ/(bL) = {s['orowan_MPa']:.2f} MPa",
+        f"model     {_describe_model(s['model'])}",
         f"status    {'converged' if s['converged'] else 'NOT converged'}: {s['message']}; "
         f"{s['relaxations']} relaxations, {s['time_steps']} time steps, {s['wall_time_s']:.1f} s",
     ]
