@@ -130,7 +130,7 @@ class StepProfile:
                                              w.vx, w.vy, w.fpin, w.ntx, w.nty),
             "remesh": lambda bad: K._remesh_line(s.x, s.y, s.pin, s.ign, n, prm, bad, self.bx,
                                                  self.by, self.bpin, self.bign, w.head, w.nxt,
-                                                 self.rx, self.ry, self.rad, *obs),
+                                                 self.rx, self.ry, self.rad, *obs, w.far),
             "release": lambda: K._release(n, s.pin, s.ign, w.fpin, r.ofc, o),
             "contacts and reconnections": lambda: K._reconnect_all(
                 s.x, s.y, s.pin, s.ign, n, prm, s.meta, s.loop_x, s.loop_y, s.loop_pin,
@@ -221,7 +221,7 @@ class _Work:
         self.cap_y = work_f[8, 2 * mc:3 * mc]
         self.cap_seg, self.cap_obs = work_i[0, :mc], work_i[0, mc:2 * mc]
         self.head, self.nxt = work_i[1], work_i[2]
-        self.fex, self.fey = work_f[9], work_f[10]
+        self.fex, self.fey, self.far = work_f[9], work_f[10], work_f[11]
 
 
 def throughput(repeats: int, sizes) -> None:

@@ -1053,12 +1053,55 @@ def _release(n, pin, ign, fpin, ofc, opin):
 
 @njit(**JIT)
 def _remesh_line(x, y, pin, ign, n, prm, first_bad, bx, by, bpin, bign, src, keep, rx, ry, rad,
-                 ox, oy, opin, cstart, citems, ncx, ncy):
-    """:func:`remesh` from ``first_bad`` on, the node clearances following; return the count."""
+                 ox, oy, opin, cstart, citems, ncx, ncy, far):
+    """:func:`remesh` from ``first_bad`` on, the node clearances and (MODEL_SELF) the non-local
+    self-stress ``far`` following; return the count."""
     n, lo = remesh(x, y, pin, ign, n, prm, first_bad, bx, by, bpin, bign, src, keep, ox, oy,
                    opin, cstart, citems, ncx, ncy)
     _gather_clearance(lo, n, src, rx, ry, rad, bx, by)
+    if int(prm[P_MODEL]) == MODEL_SELF:
+        _gather_far(lo, n, src, far, bx)
     return n
+
+
+@njit(**JIT)
+def _gather_far(lo, n, src, far, buf):
+    """Carry the non-local self-stress of nodes lo.. through a remesh (``src``: old index or -1);
+    a new node takes the mean of its neighbours' values (the field is smooth on the node
+    spacing, and it is evaluated afresh within prm[P_REFRESH] steps)."""
+    for m in range(lo, n):
+        buf[m] = far[src[m]] if src[m] >= 0 else np.nan
+    for m in range(lo, n):
+        far[m] = buf[m]
+    for m in range(lo, n):
+        if np.isnan(far[m]):
+            before = far[m - 1] if m > 0 else far[n - 1]
+            k = m + 1
+            while k < n and np.isnan(far[k]):
+                k += 1
+            after = far[k] if k < n else far[0]
+            if np.isnan(before):
+                before = after
+            if np.isnan(after):
+                after = before
+            far[m] = 0.5 * (before + after)
+
+
+@njit(**JIT)
+def _insert_far(far, n, ncap, cap_seg):
+    """Shift the non-local self-stress like :func:`insert_pins` shifts the nodes (captures sorted
+    by segment); a new pinned node takes the value of its segment's start."""
+    dst = n + ncap - 1
+    c = ncap - 1
+    for i in range(n - 1, -1, -1):
+        if c < 0:
+            break
+        while c >= 0 and cap_seg[c] == i:
+            far[dst] = far[i]
+            dst -= 1
+            c -= 1
+        far[dst] = far[i]
+        dst -= 1
 
 
 @njit(**JIT)
@@ -1090,8 +1133,9 @@ def model_forces(x, y, n, pin, prm, meta, lx, ly, loff, tau_int, fex, fey, far, 
       images plus straight remainder, :func:`dlsim.elastic.self_stress`) plus the stress of the
       stored Orowan loops (:func:`dlsim.elastic.loop_stress`), ``fex = fey = 0``; prm[P_GAMMA] is 0.
       The non-local part (``far``: everything except the node's own arms) is evaluated only when
-      ``fresh`` (the caller asks every prm[P_REFRESH] steps and whenever the nodes were renumbered);
-      the local part (``near``, :func:`dlsim.elastic.local_stress`, the stiff one) at every call.
+      ``fresh`` (the caller asks every prm[P_REFRESH] steps and after reconnections; remeshing and
+      captures carry it to the new nodes, :func:`_gather_far`, :func:`_insert_far`); the local part
+      (``near``, :func:`dlsim.elastic.local_stress`, the stiff one) at every call.
       At a pinned node, where the arc treatment of the own arms does not hold (the arms meet at a
       corner), the force on the obstacle is the de Wit–Koehler pull of its two arms (in
       ``fex, fey``, cut-offs prm[P_ACORE], prm[P_ROUT]) plus the Peach–Koehler force of the applied
@@ -1215,10 +1259,9 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
         if bad >= 0:   # the line was changed since the last move, or could not be remeshed
             meta[M_REMESH] += 1
             n = _remesh_line(x, y, pin, ign, n, prm, bad, bx, by, bpin, bign, head, nxt, rx, ry,
-                             rad, ox, oy, opin, cstart, citems, ncx, ncy)
+                             rad, ox, oy, opin, cstart, citems, ncx, ncy, far)
             model_forces(x, y, n, pin, prm, meta, lx, ly, loff, tau_int, fex, fey, far, near,
-                         buf, True)
-            since = 0
+                         buf, stale)
             area, bad, max_te, stiff, vmax, turned = node_pass(x, y, n, pin, prm, tau_int,
                                                                fex, fey, vx, vy, fpin, ntx, nty)
         if (area - prm[P_AREF]) / Lx > prm[P_FLOW]:
@@ -1252,15 +1295,16 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
                                      cap_x, cap_y)
         if ncap > 0:
             meta[M_CAPTURES] += ncap
+            n_old = n
             n = insert_pins(x, y, pin, ign, n, ncap, cap_seg, cap_s, cap_obs, cap_x, cap_y, opin,
                             rx, ry, rad)
-            stale = True
+            if int(prm[P_MODEL]) == MODEL_SELF:   # cap_seg is sorted now
+                _insert_far(far, n_old, ncap, cap_seg)
             bad = cap_seg[0] if bad < 0 else min(bad, cap_seg[0])   # pins split segments
         if bad >= 0:   # remesh now, so that the next step's node_pass is its only one
             meta[M_REMESH] += 1
             n = _remesh_line(x, y, pin, ign, n, prm, bad, bx, by, bpin, bign, head, nxt, rx, ry,
-                             rad, ox, oy, opin, cstart, citems, ncx, ncy)
-            stale = True
+                             rad, ox, oy, opin, cstart, citems, ncx, ncy, far)
         moved += 1
         since += 1
         meta[M_STEPS] += 1

@@ -203,7 +203,7 @@ def test_random_discs_screw_lines_need_more_stress_than_edge_lines():
     # the screw arms of an edge line, so screw lines need the higher CRSS in the same random
     # field of impenetrable obstacles.  Paired comparison on two fields of 16 discs
     # (ρ = 0.08 L_s, box 4 L_s: a small box, so no absolute value is checked).  Measured ratios
-    # 1.17 (seed 1) and 1.16 (seed 2); the row of discs gives 1.3-1.35 at the same D̄.
+    # 1.17 (seed 1) and 1.17 (seed 2); the row of discs gives 1.3-1.35 at the same D̄.
     import concurrent.futures as cf
     import multiprocessing as mp
     jobs = [(seed, c) for seed in (1, 2) for c in (0.0, 90.0)]
