@@ -141,7 +141,7 @@ class StepProfile:
                 self.rad, w.cap_seg, w.cap_s, w.cap_obs, w.cap_x, w.cap_y),
             "insert_pins": lambda ncap: K.insert_pins(s.x, s.y, s.pin, s.ign, n, ncap, w.cap_seg,
                                                       w.cap_s, w.cap_obs, w.cap_x, w.cap_y, o,
-                                                      self.rx, self.ry, self.rad),
+                                                      self.rx, self.ry, self.rad, w.far),
         }
 
     def _call(self, name, *args):

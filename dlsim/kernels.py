@@ -533,12 +533,14 @@ def _sort_captures(ncap, cap_seg, cap_s, cap_obs, cap_x, cap_y):
 
 @njit(**JIT)
 def insert_pins(x, y, pin, ign, n, ncap, cap_seg, cap_s, cap_obs, cap_x, cap_y, opin,
-                rx, ry, rad):
+                rx, ry, rad, far):
     """Insert a pinned node at every captured obstacle, in place; return the new node count.
 
     Each capture becomes a node after the start of its segment, in order along the segment; the
     arrays must hold ``n + ncap`` nodes.  The line is shifted from its end backwards, so no buffer
-    is needed; the clearances ``rx, ry, rad`` (:func:`move_and_capture`) move with their nodes.
+    is needed; the clearances ``rx, ry, rad`` (:func:`move_and_capture`) and the non-local
+    self-stress ``far`` (:func:`model_forces`) move with their nodes, a new pin taking the value
+    of its segment's start.
     """
     _sort_captures(ncap, cap_seg, cap_s, cap_obs, cap_x, cap_y)
     dst = n + ncap - 1
@@ -548,12 +550,12 @@ def insert_pins(x, y, pin, ign, n, ncap, cap_seg, cap_s, cap_obs, cap_x, cap_y, 
             break
         while c >= 0 and cap_seg[c] == i:
             x[dst], y[dst], pin[dst], ign[dst] = cap_x[c], cap_y[c], cap_obs[c], -1
-            rad[dst] = UNKNOWN
+            rad[dst], far[dst] = UNKNOWN, far[i]
             opin[cap_obs[c]] += 1
             dst -= 1
             c -= 1
         x[dst], y[dst], pin[dst], ign[dst] = x[i], y[i], pin[i], ign[i]
-        rx[dst], ry[dst], rad[dst] = rx[i], ry[i], rad[i]
+        rx[dst], ry[dst], rad[dst], far[dst] = rx[i], ry[i], rad[i], far[i]
         dst -= 1
     return n + ncap
 
@@ -1088,23 +1090,6 @@ def _gather_far(lo, n, src, far, buf):
 
 
 @njit(**JIT)
-def _insert_far(far, n, ncap, cap_seg):
-    """Shift the non-local self-stress like :func:`insert_pins` shifts the nodes (captures sorted
-    by segment); a new pinned node takes the value of its segment's start."""
-    dst = n + ncap - 1
-    c = ncap - 1
-    for i in range(n - 1, -1, -1):
-        if c < 0:
-            break
-        while c >= 0 and cap_seg[c] == i:
-            far[dst] = far[i]
-            dst -= 1
-            c -= 1
-        far[dst] = far[i]
-        dst -= 1
-
-
-@njit(**JIT)
 def _gather_clearance(lo, n, src, rx, ry, rad, buf_a, buf_b):
     """Reorder the clearances of nodes lo.. after remeshing (``src``: old index or -1, see
     :func:`remesh`)."""
@@ -1134,7 +1119,7 @@ def model_forces(x, y, n, pin, prm, meta, lx, ly, loff, tau_int, fex, fey, far, 
       stored Orowan loops (:func:`dlsim.elastic.loop_stress`), ``fex = fey = 0``; prm[P_GAMMA] is 0.
       The non-local part (``far``: everything except the node's own arms) is evaluated only when
       ``fresh`` (the caller asks every prm[P_REFRESH] steps and after reconnections; remeshing and
-      captures carry it to the new nodes, :func:`_gather_far`, :func:`_insert_far`); the local part
+      captures carry it to the new nodes, :func:`_gather_far`, :func:`insert_pins`); the local part
       (``near``, :func:`dlsim.elastic.local_stress`, the stiff one) at every call.
       At a pinned node, where the arc treatment of the own arms does not hold (the arms meet at a
       corner), the force on the obstacle is the de Wit–Koehler pull of its two arms (in
@@ -1295,11 +1280,8 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
                                      cap_x, cap_y)
         if ncap > 0:
             meta[M_CAPTURES] += ncap
-            n_old = n
             n = insert_pins(x, y, pin, ign, n, ncap, cap_seg, cap_s, cap_obs, cap_x, cap_y, opin,
-                            rx, ry, rad)
-            if int(prm[P_MODEL]) == MODEL_SELF:   # cap_seg is sorted now
-                _insert_far(far, n_old, ncap, cap_seg)
+                            rx, ry, rad, far)
             bad = cap_seg[0] if bad < 0 else min(bad, cap_seg[0])   # pins split segments
         if bad >= 0:   # remesh now, so that the next step's node_pass is its only one
             meta[M_REMESH] += 1

@@ -238,8 +238,9 @@ def test_insert_pins_equals_twin(seed):
     xs, ys = padded(x + v[:, 0] * 4.0, cap, 0.0), padded(y + v[:, 1] * 4.0, cap, 0.0)
     ps, gs = padded(pin, cap, -1), padded(ign, cap, -1)
     rx, ry, rad = np.arange(cap, dtype=float), np.zeros(cap), np.arange(cap, dtype=float)
+    far = np.arange(cap, dtype=float) + 0.5
     n_new = K.insert_pins(xs, ys, ps, gs, n, ncap, w.cap_seg, w.cap_s, w.cap_obs, w.cap_x,
-                          w.cap_y, opin, rx, ry, rad)
+                          w.cap_y, opin, rx, ry, rad, far)
     assert n_new == n + ncap
     np.testing.assert_allclose(xs, ref[0], rtol=1e-15)
     np.testing.assert_allclose(ys, ref[1], rtol=1e-15)
@@ -250,6 +251,10 @@ def test_insert_pins_equals_twin(seed):
     moved = rx[ps < 0]
     np.testing.assert_array_equal(moved, np.arange(n, dtype=float))
     assert np.all(rad[ps >= 0] == K.UNKNOWN)
+    # so does the non-local self-stress; a new pinned node takes its segment start's value
+    np.testing.assert_array_equal(far[ps < 0], np.arange(n, dtype=float) + 0.5)
+    new_pins = np.flatnonzero(ps >= 0)
+    np.testing.assert_array_equal(far[new_pins], far[new_pins - 1])
 
 
 @pytest.mark.parametrize("seed", [28, 29])
