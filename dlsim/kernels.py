@@ -768,13 +768,11 @@ def find_contact(x, y, n, pin, ntx, nty, prm, head, nxt):
 
 
 @njit(**JIT)
-def _far_apart(pin, n, i, j):
-    """Nodes i, j may reconnect: RECONNECT_MIN_SEPARATION nodes apart along the line, or the
-    shorter part between them wrapped round obstacles (RECONNECT_MIN_PINS pinned nodes)."""
+def _wrapped(pin, n, i, j):
+    """The shorter part of the line between nodes i and j holds RECONNECT_MIN_PINS pinned nodes
+    (it is wrapped round a disc), so they may reconnect although they are close along it."""
     lo, hi = min(i, j), max(i, j)
     sep = hi - lo
-    if min(sep, n - sep) >= RECONNECT_MIN_SEPARATION:
-        return True
     held = 0
     if sep <= n - sep:
         for k in range(lo + 1, hi):
@@ -791,8 +789,8 @@ def _far_apart(pin, n, i, j):
 def find_contacts(x, y, n, pin, ntx, nty, prm, head, nxt, ci, cj):
     """Pairs of free nodes (i, j), i < j, on parts of the line of opposite sense in contact.
 
-    Node i touches node j's part of the line when one of them lies within the annihilation
-    distance of one of the other's two segments, the two are at least RECONNECT_MIN_SEPARATION
+    Node i touches node j's part of the line when it lies within the annihilation distance of one
+    of j's two segments, the two are at least RECONNECT_MIN_SEPARATION
     nodes apart along the line (or wrapped round obstacles between, RECONNECT_MIN_PINS) and their
     tangents are closer to antiparallel than RECONNECT_COS.  Two tangents more than 120°
     apart cannot both lie within 60° of +x, so only nodes with t_x < 1/2 need to look (most of a
@@ -826,18 +824,19 @@ def find_contacts(x, y, n, pin, ntx, nty, prm, head, nxt, ci, cj):
             for dy in range(-1, 2):
                 j = head[((ix0 + dx) & mx) + ncx * ((iy0 + dy) & my)]
                 while j >= 0 and partner < 0:
-                    if (ntx[i] * ntx[j] + nty[i] * nty[j] < RECONNECT_COS
-                            and _far_apart(pin, n, i, j)):
+                    sep = abs(j - i)
+                    if min(sep, n - sep) >= RECONNECT_MIN_SEPARATION:
+                        ok = ntx[i] * ntx[j] + nty[i] * nty[j] < RECONNECT_COS
+                    else:   # near along the line: only round a disc (cheap test first)
+                        ok = (ntx[i] * ntx[j] + nty[i] * nty[j] < RECONNECT_COS
+                              and _wrapped(pin, n, i, j))
+                    if ok:
                         shift = Lx * np.floor((x[i] - x[j]) / Lx + 0.5)
                         xj, yj = x[j] + shift, y[j]
                         if abs(xj - x[i]) < hc and abs(yj - y[i]) < hc:
                             jm_x, jm_y, jp_x, jp_y = _neighbours(x, y, n, j, Lx)
                             d2 = min(_point_segment_dist2(x[i], y[i], jm_x + shift, jm_y, xj, yj),
                                      _point_segment_dist2(x[i], y[i], xj, yj, jp_x + shift, jp_y))
-                            if d2 >= d2max:   # node j against i's segments (j may not look)
-                                im_x, im_y, ip_x, ip_y = _neighbours(x, y, n, i, Lx)
-                                d2 = min(_point_segment_dist2(xj, yj, im_x, im_y, x[i], y[i]),
-                                         _point_segment_dist2(xj, yj, x[i], y[i], ip_x, ip_y))
                             if d2 < d2max:
                                 partner = j
                     j = nxt[j]

@@ -153,16 +153,17 @@ def find_contacts(x, y, pin, tchord, Lx, dann, min_separation, cos_max, min_pins
     """Brute force over all pairs: every (i, j), i < j, of free nodes on parts of opposite sense.
 
     A pair is in contact when one node lies within ``dann`` of one of the other's two segments
-    (nearest periodic image in x), they are at least ``min_separation`` nodes apart along the line
-    or the shorter way between them holds at least ``min_pins`` pinned nodes, and their chord
-    tangents have a dot product below ``cos_max``.
+    (nearest periodic image in x) and that node's chord tangent has t_x < 1/2 (of two tangents
+    closer to antiparallel than 120°, at least one has), they are at least ``min_separation``
+    nodes apart along the line or the shorter way between them holds at least ``min_pins`` pinned
+    nodes, and their chord tangents have a dot product below ``cos_max``.
     """
     n = len(x)
     prev, nxt = neighbours(x, y, Lx)
     out = set()
     for i in range(n):
         for j in range(n):
-            if i == j or pin[i] >= 0 or pin[j] >= 0:
+            if i == j or pin[i] >= 0 or pin[j] >= 0 or tchord[i][0] >= 0.5:
                 continue
             lo, hi = min(i, j), max(i, j)
             inner = list(range(lo + 1, hi))
