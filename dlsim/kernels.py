@@ -824,17 +824,21 @@ def find_contacts(x, y, n, pin, ntx, nty, prm, head, nxt, ci, cj):
             for dy in range(-1, 2):
                 j = head[((ix0 + dx) & mx) + ncx * ((iy0 + dy) & my)]
                 while j >= 0 and partner < 0:
-                    if ntx[i] * ntx[j] + nty[i] * nty[j] < RECONNECT_COS:
+                    sep = abs(j - i)
+                    sep = min(sep, n - sep)
+                    # nodes within RECONNECT_MIN_PINS places can never qualify: an integer test
+                    # rejects the line's own neighbours, most of the candidates, before any load
+                    if (sep > RECONNECT_MIN_PINS
+                            and ntx[i] * ntx[j] + nty[i] * nty[j] < RECONNECT_COS):
                         shift = Lx * np.floor((x[i] - x[j]) / Lx + 0.5)
                         xj, yj = x[j] + shift, y[j]
                         if abs(xj - x[i]) < hc and abs(yj - y[i]) < hc:
                             jm_x, jm_y, jp_x, jp_y = _neighbours(x, y, n, j, Lx)
                             d2 = min(_point_segment_dist2(x[i], y[i], jm_x + shift, jm_y, xj, yj),
                                      _point_segment_dist2(x[i], y[i], xj, yj, jp_x + shift, jp_y))
-                            sep = abs(j - i)
                             # near along the line (the wedge at a pin): only round a disc;
                             # the count of pins between comes last, it is the dearest test
-                            if d2 < d2max and (min(sep, n - sep) >= RECONNECT_MIN_SEPARATION
+                            if d2 < d2max and (sep >= RECONNECT_MIN_SEPARATION
                                                or _wrapped(pin, n, i, j)):
                                 partner = j
                     j = nxt[j]
