@@ -333,23 +333,3 @@ def _counters(state: LineState) -> dict:
     m = state.meta
     return {"captures": int(m[K.M_CAPTURES]), "releases": int(m[K.M_RELEASES]),
             "reconnections": int(m[K.M_RECONNECT]), "loops": int(m[K.M_NLOOPS])}
-
-
-def warm_up() -> None:
-    """Compile (and cache on disk) every kernel a CRSS search uses, for every line model.
-
-    Call it in the parent process before starting worker processes: numba's on-disk cache is not
-    safe when several processes compile the same kernel at once (a worker can load another's
-    half-written entry and crash), so the workers should only ever load it.  A second call, or a
-    call with the cache filled, costs a fraction of a second.
-    """
-    from .fields import ParticleTable, particle_field
-    L, h = 40.0, 4.0
-    table = ParticleTable(np.array([0.5 * L]), np.array([0.5 * L]), np.array([4.0]),
-                          np.array([np.inf]), np.zeros(1, np.int64))
-    field = particle_field(table, L, L, L, h, ("discs",))
-    for model in MODELS:
-        relaxer = Relaxer(field, LineModel(0.5, h, elasticity=Elasticity(model, images=0,
-                                                                         outer_radius=L)))
-        state = LineState.straight(L, 0.0, h)
-        relaxer.relax(state, 0.01, state.area(), Protocol(0.0, 1e-6, L, 0, 3, 1.0))

@@ -556,13 +556,6 @@ def _execute(todo: list[RunSpec], workers, scheduler) -> Iterator[tuple[RunSpec,
 
 
 def _execute_pool(todo: list[RunSpec], workers: int):
-    # The workers must find every kernel compiled and cached (solver.warm_up); the first run's
-    # field is built here too, which compiles the particle kernels its populations use.
-    from .api import build_field
-    from .case import load_case
-    from .solver import warm_up
-    warm_up()
-    build_field(load_case(todo[0].case))
     # "spawn": fresh interpreters, safe whatever threads the parent holds (tqdm, numba).
     ctx = multiprocessing.get_context("spawn")
     pool = cf.ProcessPoolExecutor(max_workers=min(workers, len(todo)), mp_context=ctx,

@@ -206,8 +206,6 @@ def test_random_discs_screw_lines_need_more_stress_than_edge_lines():
     # 1.17 (seed 1) and 1.17 (seed 2); the row of discs gives 1.3-1.35 at the same D̄.
     import concurrent.futures as cf
     import multiprocessing as mp
-    from dlsim.solver import warm_up
-    warm_up()   # the workers only load the compiled kernels (see warm_up)
     jobs = [(seed, c) for seed in (1, 2) for c in (0.0, 90.0)]
     with cf.ProcessPoolExecutor(2, mp_context=mp.get_context("spawn")) as pool:
         screw1, edge1, screw2, edge2 = pool.map(random_discs_crss, jobs)
