@@ -26,6 +26,7 @@ from typing import Any, Callable
 
 from . import particles as P
 from .errors import CaseError
+from .kernels import MODEL_NAMES
 from .materials import TABLE, Material, Units
 
 NM_PER_UM = 1000.0
@@ -142,8 +143,8 @@ class Section:
 
 
 _POSITIVE = above(0)
-#: The line models of ``[elasticity] model`` (dlsim.solver.MODELS).
-LINE_MODELS = ("constant", "dewit_koehler", "self_stress")
+#: The line models of ``[elasticity] model``, named once in the kernels.
+LINE_MODELS = MODEL_NAMES
 SCHEMA: dict[str, Section] = {
     "": Section("top level", {
         "title": Key(str, "free text describing the case", ""),

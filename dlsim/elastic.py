@@ -83,6 +83,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit, prange
 
+from dlsim.geometry import neighbours
 from dlsim.jit import JIT, JIT_PARALLEL
 
 INV_4PI = 1.0 / (4.0 * np.pi)
@@ -351,10 +352,7 @@ def local_stress(x, y, n, Lx, theta0, nu, a_core, out):
     by = np.sin(theta0)
     a2 = a_core * a_core
     for i in range(n):
-        xm = x[n - 1] - Lx if i == 0 else x[i - 1]
-        ym = y[n - 1] if i == 0 else y[i - 1]
-        xp = x[0] + Lx if i == n - 1 else x[i + 1]
-        yp = y[0] if i == n - 1 else y[i + 1]
+        xm, ym, xp, yp = neighbours(x, y, n, i, Lx)
         out[i] = _arc_and_chords(xm, ym, x[i], y[i], xp, yp, bx, by, nu, a2)[0]
 
 

@@ -20,6 +20,7 @@ from numba import njit
 from dlsim.elastic import dwk_forces, local_stress
 from dlsim.elastic import loop_stress_serial as loop_stress
 from dlsim.elastic import self_stress_serial as self_stress
+from dlsim.geometry import neighbours as _neighbours
 from dlsim.jit import JIT
 
 # --- slots of the float parameter vector ``prm`` ------------------------------------------------
@@ -47,6 +48,8 @@ P_GSTIFF = 20    # line stiffness of the time step and of the point-implicit upd
 N_PRM = 21
 
 # --- line models (prm[P_MODEL]) -----------------------------------------------------------------
+#: Names of the line models (``[elasticity] model``), indexed by their codes below.
+MODEL_NAMES = ("constant", "dewit_koehler", "self_stress")
 #: Constant line tension Γ = prm[P_GAMMA]: F_i = Γ (t_i − t_{i−1}).
 MODEL_CONSTANT = 0
 #: de Wit–Koehler orientation-dependent line energy, energy-consistent nodal forces.
@@ -118,20 +121,6 @@ RECONNECT_MIN_SEPARATION = 20
 RECONNECT_MIN_PINS = 8
 #: Two parts of the line reconnect only when their tangents are closer to antiparallel than this.
 RECONNECT_COS = -0.5
-
-
-@njit(**JIT)
-def _neighbours(x, y, n, i, Lx):
-    """Previous and next node of node i on the periodic line (the image across the seam)."""
-    if i == 0:
-        xm, ym = x[n - 1] - Lx, y[n - 1]
-    else:
-        xm, ym = x[i - 1], y[i - 1]
-    if i == n - 1:
-        xp, yp = x[0] + Lx, y[0]
-    else:
-        xp, yp = x[i + 1], y[i + 1]
-    return xm, ym, xp, yp
 
 
 @njit(**JIT)

@@ -28,8 +28,7 @@ DEFAULT_CHUNK = 50_000
 
 
 #: Line models and their codes in the kernels (prm[P_MODEL]).
-MODELS = {"constant": K.MODEL_CONSTANT, "dewit_koehler": K.MODEL_DWK,
-          "self_stress": K.MODEL_SELF}
+MODELS = {name: code for code, name in enumerate(K.MODEL_NAMES)}
 
 
 @dataclass(frozen=True)
