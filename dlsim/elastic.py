@@ -80,6 +80,8 @@ about as cutoff⁻² and matters for wavelengths longer than the cutoff (the tes
 """
 from __future__ import annotations
 
+import types
+
 import numpy as np
 from numba import njit, prange
 
@@ -655,7 +657,22 @@ loop_stress.__doc__ = """Resolved shear at the line nodes from closed loops in t
     """
 
 
-loop_stress_serial = njit(**JIT)(_loop_stress_impl)
+def _renamed(func, name: str):
+    """A copy of ``func`` under another name.
+
+    numba's on-disk cache names an entry after the function's qualified name and first line, and
+    its index does not tell ``parallel=True`` from serial builds: two dispatchers of one Python
+    function share one entry, so a serial kernel could load the parallel build (and a kernel
+    compiled against it then fails in a fresh process, where the parallel runtime it references
+    was never started).  Each variant therefore gets a function of its own name.
+    """
+    code = func.__code__.replace(co_name=name, co_qualname=name)
+    twin = types.FunctionType(code, func.__globals__, name, func.__defaults__, func.__closure__)
+    twin.__qualname__ = name
+    return twin
+
+
+loop_stress_serial = njit(**JIT)(_renamed(_loop_stress_impl, "_loop_stress_serial_impl"))
 loop_stress_serial.__doc__ = "Serial twin of :func:`loop_stress` (same code, one thread).\n\n" \
     + loop_stress.__doc__
 
