@@ -24,6 +24,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable
 
+from . import bounds
 from . import particles as P
 from .errors import CaseError
 from .kernels import MODEL_NAMES
@@ -88,7 +89,49 @@ def one_of(*choices: str) -> Check:
     return Check(lambda v: v in choices, "one of " + ", ".join(f'"{c}"' for c in choices), choices)
 
 
+def up_to(hi: float) -> Check:
+    """Values in (0, hi]: a positive quantity with a cap that keeps the arithmetic finite."""
+    return Check(lambda v: 0 < v <= hi, f"{{noun}} in (0, {hi:g}]")
+
+
+def length_nm() -> Check:
+    """A length in nm between MIN_LENGTH_NM and MAX_LENGTH_NM (no physical length lies outside,
+    and beyond them squares and cubes of lengths leave float64)."""
+    return between(MIN_LENGTH_NM, MAX_LENGTH_NM, closed=True)
+
+
+def int_range(lo: int, hi: int) -> Check:
+    """Integers in [lo, hi]: every integer key is bounded (TOML integers can exceed int64)."""
+    return Check(lambda v: lo <= v <= hi, f"{{noun}} in [{lo}, {hi}]")
+
+
 NON_EMPTY = Check(lambda v: v.strip() != "", "a non-empty path")
+#: Caps of single keys: beyond them no case makes sense and the arithmetic would overflow.
+MAX_LENGTH_NM = 1e8          # 10 cm
+MIN_LENGTH_NM = 1e-3         # far below any interatomic distance
+MAX_SPACINGS = 1e7           # box sides and distances in obstacle spacings
+MAX_BURGERS_NM = 10.0        # a lattice translation is well below 10 nm
+MAX_MODULUS_GPA = 1e4
+MAX_FORCE_NN = 1e6
+MAX_DENSITY_PER_UM2 = 1e8    # 0.1 nm apart
+MAX_DENSITY_PER_UM3 = 1e12
+MAX_SEED = 2**63 - 1
+#: Bisections beyond this resolve nothing a float64 CRSS bracket can hold (2^-40 ≈ 1e-12).
+MAX_BISECTIONS = 40
+MAX_STEPS = 100_000_000
+MAX_REALIZATIONS = 10_000
+MAX_PASSES = 100
+#: Periodic images of the self-stress: beyond a few tens the straight-line remainder is exact to
+#: round-off (the remainder falls as K^-3).
+MAX_IMAGES = 256
+MAX_REFRESH = 1_000_000
+MAX_SNAPSHOT_EVERY = 2**31 - 1
+#: A log-normal σ above this puts the 1 - 1e-6 quantile of the radius at e^(4.75 σ) > 1e6
+#: medians: the sampling slab and its sphere count lose all meaning.
+MAX_LOGNORMAL_SIGMA = 3.0
+#: Equilibrium thresholds outside this range are either no equilibrium at all (above) or below
+#: what the float64 force balance of a long line can reach (below).
+TOLERANCE_RANGE = (1e-8, 1e-2)
 
 
 @dataclass(frozen=True)
@@ -148,36 +191,37 @@ LINE_MODELS = MODEL_NAMES
 SCHEMA: dict[str, Section] = {
     "": Section("top level", {
         "title": Key(str, "free text describing the case", ""),
-        "seed": Key(int, "the seed of every random choice", REQUIRED, at_least(0)),
+        "seed": Key(int, "the seed of every random choice", REQUIRED, int_range(0, MAX_SEED)),
     }),
     "material": Section("elastic constants: a `symbol` of the built-in table, numbers, or both", {
         "symbol": Key(str, "a material of the built-in table", None, one_of(*TABLE)),
-        "shear_modulus_GPa": Key(float, "the shear modulus G in GPa", None, _POSITIVE),
+        "shear_modulus_GPa": Key(float, "the shear modulus G in GPa", None, between(1e-3, MAX_MODULUS_GPA, closed=True)),
         "poisson_ratio": Key(float, "the Poisson ratio ν", None, between(-1, 0.5, closed=False)),
-        "burgers_nm": Key(float, "the Burgers vector length b in nm", None, _POSITIVE),
+        "burgers_nm": Key(float, "the Burgers vector length b in nm", None, between(0.01, MAX_BURGERS_NM, closed=True)),
     }),
     "line": Section("the dislocation line and its periodic box", {
-        "tension_alpha": Key(float, "α in the line tension Γ = α G b²", 0.5, _POSITIVE),
-        "length": Key(float, "the box width Lx in obstacle spacings", None, _POSITIVE),
-        "length_nm": Key(float, "the box width Lx in nm", None, _POSITIVE),
+        "tension_alpha": Key(float, "α in the line tension Γ = α G b²", 0.5, up_to(100.0)),
+        "length": Key(float, "the box width Lx in obstacle spacings", None, up_to(MAX_SPACINGS)),
+        "length_nm": Key(float, "the box width Lx in nm", None, length_nm()),
         "height": Key(float, "the box height Ly in obstacle spacings (default: the width)", None,
-                      _POSITIVE),
-        "height_nm": Key(float, "the box height Ly in nm", None, _POSITIVE),
+                      up_to(MAX_SPACINGS)),
+        "height_nm": Key(float, "the box height Ly in nm", None, length_nm()),
         "node_spacing": Key(float, "the target segment length in obstacle spacings", 0.05,
-                            _POSITIVE),
-        "node_spacing_nm": Key(float, "the target segment length in nm", None, _POSITIVE),
+                            up_to(MAX_SPACINGS)),
+        "node_spacing_nm": Key(float, "the target segment length in nm", None,
+                               length_nm()),
     }, exactly_one=(("length", "length_nm"),),
         at_most_one=(("height", "height_nm"), ("node_spacing", "node_spacing_nm"))),
     "obstacles": Section("point obstacles in the glide plane", {
         "kind": Key(str, "the obstacle arrangement", REQUIRED, one_of("square", "random")),
         "spacing_nm": Key(float, "the square period L or the mean spacing L_s = N_A^-1/2 in nm",
-                          None, _POSITIVE),
+                          None, length_nm()),
         "density_per_um2": Key(float, "the obstacles per µm² of glide plane (random only)", None,
-                               _POSITIVE),
+                               between(1e-6, MAX_DENSITY_PER_UM2, closed=True)),
         "critical_angle_deg": Key(float, "the critical arm angle φ_c in degrees (0: impenetrable)",
                                   None, between(0, 180, closed=True)),
         "critical_force_nN": Key(float, "the critical force F_c = 2Γ cos(φ_c/2) in nN", None,
-                                 _POSITIVE),
+                                 up_to(MAX_FORCE_NN)),
     }, exactly_one=(("spacing_nm", "density_per_um2"),
                     ("critical_angle_deg", "critical_force_nN"))),
     "friction": Section("lattice friction", {
@@ -185,26 +229,30 @@ SCHEMA: dict[str, Section] = {
     }),
     "loading": Section("the stress ramp and bisection that find the CRSS", {
         "stress_step": Key(float, "the stress increment as a fraction of 2Γ/(bL)", 0.02,
-                           between(0, 1, closed=False)),
+                           Check(lambda v: bounds.MIN_STRESS_STEP <= v < 1,
+                                 f"{{noun}} in [{bounds.MIN_STRESS_STEP:g}, 1) (at most "
+                                 f"{bounds.MAX_RAMP_RELAXATIONS} ramp relaxations)")),
         "tolerance": Key(float, "the equilibrium threshold: max |τ_eff| < tolerance·2Γ/(bL)", 1e-4,
-                         _POSITIVE),
+                         between(*TOLERANCE_RANGE, closed=True)),
         "flow_distance": Key(float, "the mean glide past the last pinned state that counts as "
                                     "flow, in spacings (default: the box height, so a flowing line "
-                                    "has crossed the whole field)", None, _POSITIVE),
+                                    "has crossed the whole field)", None, up_to(1e4)),
         "bisections": Key(int, "the bisection steps after the bracket is found (6 halve a 0.02 step to 3e-4 of 2Γ/(bL))", 6,
-                          at_least(0)),
-        "max_steps": Key(int, "the time steps allowed in one relaxation", 2_000_000, at_least(1)),
+                          int_range(0, MAX_BISECTIONS)),
+        "max_steps": Key(int, "the time steps allowed in one relaxation", 2_000_000,
+                         int_range(1, MAX_STEPS)),
     }),
     "statistics": Section("independent random fields of one case", {
-        "realizations": Key(int, "the number of fields drawn with derived seeds", 1, at_least(1)),
+        "realizations": Key(int, "the number of fields drawn with derived seeds", 1,
+                            int_range(1, MAX_REALIZATIONS)),
     }),
     "strength": Section("from CRSS to strength, and repeated dislocations", {
         "taylor_factor": Key(float, "the Taylor factor M in Δσ = M τ_c (3.06: random FCC)", 3.06,
-                             _POSITIVE),
+                             up_to(10.0)),
         "passes": Key(int, "the dislocations sent one after another through the field", 1,
-                      at_least(1)),
+                      int_range(1, MAX_PASSES)),
         "loop_spacing_nm": Key(float, "the radial spacing of Orowan loops around a particle in nm "
-                                      "(default: 2 b)", None, _POSITIVE),
+                                      "(default: 2 b)", None, length_nm()),
     }),
     "elasticity": Section("the line's elastic model (beyond the constant line tension of [line])", {
         "model": Key(str, "constant (Γ of [line]), dewit_koehler (orientation-dependent line "
@@ -214,22 +262,24 @@ SCHEMA: dict[str, Section] = {
                                     "degrees (0: screw, 90: edge)", 90.0,
                              between(0, 180, closed=True)),
         "core_radius_nm": Key(float, "the core radius (inner cut-off) in nm (default: b)", None,
-                              _POSITIVE),
+                              length_nm()),
         "outer_radius_nm": Key(float, "the outer cut-off of the de Wit–Koehler energy in nm "
-                                      "(default: the obstacle spacing)", None, _POSITIVE),
+                                      "(default: the obstacle spacing)", None,
+                               length_nm()),
         "images": Key(int, "the periods of the line summed segment by segment on each side "
-                           "(self_stress)", 2, at_least(0)),
+                           "(self_stress)", 2, int_range(0, MAX_IMAGES)),
         "cutoff_nm": Key(float, "the self-stress cutoff along the line in nm (0: none; beyond it "
-                                "the line counts as its straight average)", 0.0, at_least(0)),
+                                "the line counts as its straight average)", 0.0,
+                         between(0, MAX_LENGTH_NM, closed=True)),
         "refresh": Key(int, "the time steps between evaluations of the non-local self-stress "
                             "(self_stress; the local part is evaluated every step)", 1,
-                       at_least(1)),
+                       int_range(1, MAX_REFRESH)),
     }),
     "output": Section("result files", {
         "folder": Key(str, "the output folder relative to the case file (default: runs/<stem>)",
                       None, NON_EMPTY),
         "snapshot_every": Key(int, "the time steps between line snapshots for movies (0: none)", 0,
-                              at_least(0)),
+                              int_range(0, MAX_SNAPSHOT_EVERY)),
     }),
 }
 
@@ -244,12 +294,14 @@ ARRAY_SCHEMA: dict[str, Section] = {
     "populations": Section("one particle population (an alternative to [obstacles])", {
         "name": Key(str, "a unique name of the population", REQUIRED, NON_EMPTY),
         "volume_fraction": Key(float, "the volume fraction f", None, between(0, 1, closed=False)),
-        "number_density_per_um3": Key(float, "the particles per µm³", None, _POSITIVE),
+        "number_density_per_um3": Key(float, "the particles per µm³", None,
+                                      between(1e-6, MAX_DENSITY_PER_UM3, closed=True)),
         "distribution": Key(str, "the sphere radius distribution", None, one_of(*DISTRIBUTIONS)),
-        "radius_nm": Key(float, "the sphere radius in nm (single)", None, _POSITIVE),
+        "radius_nm": Key(float, "the sphere radius in nm (single)", None, length_nm()),
         "mean_radius_nm": Key(float, "the mean sphere radius in nm (lognormal, lsw)", None,
-                              _POSITIVE),
-        "sigma": Key(float, "the standard deviation of ln r (lognormal)", None, _POSITIVE),
+                              length_nm()),
+        "sigma": Key(float, "the standard deviation of ln r (lognormal)", None,
+                     up_to(MAX_LOGNORMAL_SIGMA)),
         "arrangement": Key(str, "how the particles are placed", "poisson", one_of(*ARRANGEMENTS)),
         "file": Key(str, "the particle file relative to the case file (arrangement = \"file\")",
                     None, NON_EMPTY),
@@ -257,10 +309,11 @@ ARRAY_SCHEMA: dict[str, Section] = {
                          "particles", one_of("particles", "sections")),
         "strength": Key(str, "the obstacle strength law", REQUIRED, one_of(*STRENGTHS)),
         "critical_force_nN": Key(float, "the critical force F_c in nN (constant)", None,
-                                 _POSITIVE),
+                                 up_to(MAX_FORCE_NN)),
         "prefactor_nN": Key(float, "A in F_c = A (ρ / 1 nm)^m, in nN (power_law)", None,
-                            _POSITIVE),
-        "exponent": Key(float, "m in F_c = A (ρ / 1 nm)^m (power_law)", None, at_least(0)),
+                            up_to(MAX_FORCE_NN)),
+        "exponent": Key(float, "m in F_c = A (ρ / 1 nm)^m (power_law)", None,
+                        between(0, 10, closed=True)),
         "critical_angle_deg": Key(float, "the critical angle φ_c in degrees (point)", None,
                                   between(0, 180, closed=True)),
     }, at_most_one=(("volume_fraction", "number_density_per_um3"),)),
@@ -440,6 +493,8 @@ class Case:
     statistics: StatisticsSpec = StatisticsSpec(1)
     strength: StrengthSpec | None = None
     elasticity: ElasticitySpec | None = None
+    #: One-line warnings about values outside real materials (:func:`dlsim.bounds.check_case`).
+    warnings: tuple[str, ...] = field(default=(), compare=False)
 
     @property
     def spacing_nm(self) -> float:
@@ -719,6 +774,7 @@ def _resolve_population(source: str, prefix: str, p: dict, base: Path,
         if p["volume_fraction"] is None and p["number_density_per_um3"] is None:
             raise CaseError(source, _join(prefix, "volume_fraction"),
                             "missing; give `volume_fraction` or `number_density_per_um3`")
+        _check_number_density(source, prefix, p)
         n_a = 0.0
     spec = PopulationSpec(**p, areal_density_per_nm2=n_a, source=source, key=prefix)
     if p["arrangement"] != "file":
@@ -726,6 +782,21 @@ def _resolve_population(source: str, prefix: str, p: dict, base: Path,
                                          spec.number_density_per_nm3, source=source, key=prefix)
         spec = dataclasses.replace(spec, areal_density_per_nm2=stats["areal_density_per_nm2"])
     return spec
+
+
+def _check_number_density(source: str, prefix: str, p: dict) -> None:
+    """A number density whose spheres would fill more than the whole volume is refused here,
+    under the user's key and unit, before the particle module sees it."""
+    n_v = p["number_density_per_um3"]
+    if n_v is None:
+        return
+    spec = PopulationSpec(**{**p, "file": None}, areal_density_per_nm2=0.0, source=source,
+                          key=prefix)
+    f = P.volume_fraction_from_density(spec.size_distribution(), n_v / NM_PER_UM ** 3)
+    if not f < 1.0:
+        raise CaseError(source, _join(prefix, "number_density_per_um3"),
+                        f"got {_show(n_v)} per µm³: the spheres would take a volume fraction of "
+                        f"{f:.3g}; it must stay below 1")
 
 
 def _resolve_populations(source: str, raw: Any, base: Path, line: dict
@@ -839,12 +910,13 @@ def load_case(source: str | os.PathLike | dict | Case, base_dir: str | os.PathLi
     spacing = (obstacles.spacing_nm if obstacles is not None
                else P.mean_square_spacing(sum(p.areal_density_per_nm2 for p in populations)))
     elasticity = _resolve_elasticity(name, table("elasticity"), material, spacing)
-    return Case(source=name, title=top["title"], seed=top["seed"], material=material,
+    case = Case(source=name, title=top["title"], seed=top["seed"], material=material,
                 line=line, obstacles=obstacles,
                 friction=FrictionSpec(**table("friction")), loading=LoadingSpec(**loading),
                 output=_resolve_output(table("output"), base, stem), raw=raw,
                 populations=populations, statistics=StatisticsSpec(**table("statistics")),
                 strength=StrengthSpec(**strength), elasticity=elasticity)
+    return dataclasses.replace(case, warnings=bounds.check_case(case))
 
 
 def _resolve_elasticity(source: str, e: dict, material: Material, spacing_nm: float
