@@ -70,3 +70,21 @@ def random_bypass(gamma: float, spacing: float, mean_radius: float) -> float:
 def strength_increment(crss: float, taylor_factor: float = TAYLOR_FCC) -> float:
     """Uniaxial yield strength increment Δσ = M τ_c (physics.md; M from :data:`TAYLOR_FCC`)."""
     return taylor_factor * crss
+
+
+#: What each estimate of ``estimates_MPa`` assumes, in a phrase (tables and legends).
+ESTIMATES = {
+    "orowan_square": ("Orowan, square array", "2Γ/(bL): impenetrable points on a square array of "
+                                              "the same spacing"),
+    "square_array": ("square array, exact", "(2Γ/(bL)) cos(φc/2): the line along a row of a "
+                                            "square array"),
+    "orowan_finite": ("Orowan, finite discs", "2Γ/(b(L_s − 2⟨ρ⟩)): the free span between "
+                                              "impenetrable discs"),
+    "foreman_makin": ("Foreman–Makin", "0.81 · 2Γ/(b L_s): random impenetrable points (Foreman & "
+                                       "Makin 1966, from memory)"),
+    "friedel": ("Friedel", "(2Γ/(b L_s)) cos^(3/2)(φc/2): random weak points (Friedel 1964), "
+                           "mean F_c of the sheared particles"),
+    "superposition_linear": ("linear superposition", "Σ τ_i of the populations' own estimates"),
+    "superposition_pythagorean": ("Pythagorean superposition", "(Σ τ_i²)^(1/2) of the "
+                                                               "populations' own estimates"),
+}

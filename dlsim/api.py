@@ -1,27 +1,38 @@
-"""Run one case: case → obstacle field → CRSS search → result object and files.
+"""Run one case: case → obstacle fields → CRSS searches → result object and files.
 
 :func:`run_case` is what ``dlsim run`` calls; a notebook calls it the same way.  Reduced units stop
 here: everything in :class:`RunResult` and in the files is in nm and MPa.
+
+A case may ask for several realizations (independent random fields, seeds derived from the case
+seed).  ``crss_MPa`` of the result is then their mean with a Student-t interval; each realization
+keeps its own CRSS and bracket (``realizations`` in ``result.json``), and the files that show one
+configuration (``line.csv``, ``obstacles.csv``, ``loops.csv``, ``snapshots.npz``) are those of
+realization 0, as ``result.json`` says.  ``history.csv`` holds every realization's relaxations.
+
+Names in ``result.json`` and the CSV files follow one rule: quantity, then statistic, then unit
+(``crss_MPa``, ``crss_mean_MPa``, ``crss_ci95_MPa``); a pair [lo, hi] in JSON is two CSV columns
+``..._lo_MPa``, ``..._hi_MPa``.
 """
 from __future__ import annotations
 
 import dataclasses
 import sys
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Callable
 
 import numpy as np
 
-from . import __version__, analytic, output
+from . import __version__, analytic, output, statistics
+from .bounds import MAX_STRESS_IN_OROWAN
 from .case import Case, load_case
+from .errors import RescuedOutput
 from .fields import (ObstacleField, ParticleTable, enlarged_table, population_field,
                      populations_table, random_field, square_field)
 from .line import LineState
 from .solver import CrssResult, Elasticity, LineModel, Protocol, Relaxation, Relaxer, find_crss
 
-#: The ramp gives up (no CRSS) above τ_f + this many Orowan stresses 2Γ/(bL).
-MAX_STRESS_IN_OROWAN = 5.0
 #: Random periodic boxes smaller than this many L_s on a side bias the CRSS upward (Nogaret &
 #: Rodney, Phys. Rev. B 74, 2006); 30 is common practice, not a value from that paper.
 MIN_BOX_IN_SPACINGS = 30.0
@@ -31,30 +42,75 @@ MIN_BOX_IN_SPACINGS = 30.0
 #: SWEEP_TRIES times (a choice of dlsim).
 SWEEP_MARGIN = 0.05
 SWEEP_TRIES = 20
-#: Two-sided confidence level of ``crss_MPa_ci95`` (Student t).
-CONFIDENCE = 0.95
+#: Snapshots kept for a movie at the most: beyond this every other frame is dropped and the
+#: interval doubled, so a long run cannot fill the memory with frames.
+MAX_FRAMES = 2000
+#: Status of a run (``result.json`` ``status``).
+STATUS_OK = "ok"                      # every realization bracketed its CRSS
+STATUS_UNCONVERGED = "unconverged"    # bracketed, but some relaxations used every allowed step
+STATUS_NO_CRSS = "no_crss"            # some realization found no CRSS (see ``message``)
+STATUS_INTERRUPTED = "interrupted"    # stopped by the user; the finished realizations are kept
+
+
+@dataclass
+class Realization:
+    """One independent field of a case and its CRSS searches (one per dislocation pass).
+
+    ``passes[k]`` is (field, search, line after crossing the field) of pass k.
+    """
+
+    index: int
+    seed: int
+    passes: list[tuple[ObstacleField, CrssResult, LineState]]
+
+    @property
+    def field(self) -> ObstacleField:
+        return self.passes[0][0]
+
+    @property
+    def search(self) -> CrssResult:
+        return self.passes[0][1]
+
+    @property
+    def swept(self) -> LineState:
+        return self.passes[0][2]
 
 
 @dataclass
 class RunResult:
-    """A finished run: the case, the field, the raw CRSS search and the summary in file units.
+    """A finished run: the case, its realizations and the summary in file units.
 
-    ``summary`` is exactly what ``result.json`` holds.
+    ``summary`` is exactly what ``result.json`` holds.  ``out_dir`` is where the files went (a
+    rescue folder when the requested one could not be written: ``write_error`` then says why).
     """
 
     case: Case
-    field: ObstacleField
-    search: CrssResult
+    realizations: list[Realization]
     summary: dict
     out_dir: Path | None
+    write_error: str | None = None
+    frames: list = field(default_factory=list, repr=False)
 
     @property
-    def crss_MPa(self) -> float:
+    def field(self) -> ObstacleField:
+        return self.realizations[0].field
+
+    @property
+    def search(self) -> CrssResult:
+        return self.realizations[0].search
+
+    @property
+    def crss_MPa(self) -> float | None:
         return self.summary["crss_MPa"]
 
     @property
+    def status(self) -> str:
+        return self.summary["status"]
+
+    @property
     def bracket_MPa(self) -> tuple[float, float]:
-        lo, hi = self.summary["crss_bracket_MPa"]
+        """The CRSS bracket of realization 0 (each realization has its own, see ``summary``)."""
+        lo, hi = self.summary["realizations"][0]["crss_bracket_MPa"]
         return lo, hi
 
 
@@ -73,11 +129,20 @@ def obstacle_strength(case: Case) -> float:
     return np.inf if fc >= 2.0 * gamma else float(fc)
 
 
+def realization_seed(case: Case, realization: int) -> int:
+    """The seed a realization's field is drawn from: the case seed for realization 0, else the
+    first word of ``SeedSequence(seed, spawn_key=(r,))`` (as for sweeps)."""
+    if realization == 0:
+        return case.seed
+    return int(np.random.SeedSequence(case.seed, spawn_key=(realization,)).generate_state(1)[0])
+
+
 def build_field(case: Case, realization: int = 0) -> ObstacleField:
     """The case's obstacle field in reduced units; random choices seeded by ``case.seed``.
 
     A case with ``[[populations]]`` draws realization ``realization`` (seeds derived by
-    :func:`dlsim.fields.realization_rngs`); an ``[obstacles]`` case has one field.
+    :func:`dlsim.fields.realization_rngs`); a random ``[obstacles]`` field of realization r is
+    drawn from :func:`realization_seed`; a square array is the same in every realization.
     """
     if case.obstacles is None:
         return population_field(case, realization)
@@ -87,7 +152,7 @@ def build_field(case: Case, realization: int = 0) -> ObstacleField:
     if o.kind == "square":
         return square_field(spacing, int(round(line.length_spacings)),
                             int(round(line.height_spacings)), fc)
-    rng = np.random.default_rng(case.seed)
+    rng = np.random.default_rng(realization_seed(case, realization))
     return random_field(u.length(line.length_nm), u.length(line.height_nm), spacing ** -2, fc, rng)
 
 
@@ -130,16 +195,56 @@ def model_and_protocol(case: Case, spacing: float) -> tuple[LineModel, Protocol,
     return model, protocol, tau_ref
 
 
-def _progress_printer(u):
+def case_inputs(case: Case) -> list[str]:
+    """Files the run reads (the case file, particle files): never inside its output folder."""
+    files = [] if case.source.startswith("<") else [case.source]
+    return files + [p.file for p in case.populations if p.file]
+
+
+def kernels_need_compiling() -> bool:
+    """Whether the stepper's compiled kernels are missing from numba's on-disk cache (a first
+    run then spends tens of seconds compiling).  False when it cannot tell."""
+    try:
+        from . import kernels
+        return not Path(kernels.relax_line._cache._cache_file._index_path).is_file()
+    except Exception:  # noqa: BLE001 - numba internals: only a courtesy message depends on it
+        return False
+
+
+class FrameRecorder:
+    """Line snapshots for a movie, at most :data:`MAX_FRAMES` (thinned evenly when full)."""
+
+    def __init__(self, units):
+        self.units, self.frames, self.stride, self.seen = units, [], 1, 0
+
+    def __call__(self, state: LineState, tau: float, steps: int) -> None:
+        self.seen += 1
+        if (self.seen - 1) % self.stride:
+            return
+        u = self.units
+        x, y, pin = state.nodes()
+        self.frames.append((u.length_nm(x), u.length_nm(y), pin >= 0, u.stress_MPa(tau), steps))
+        if len(self.frames) >= MAX_FRAMES:
+            self.frames = self.frames[::2]
+            self.stride *= 2
+
+
+def _progress_printer(u, realization: int, count: int):
+    tag = f"[{realization + 1}/{count}] " if count > 1 else ""
+
     def show(row: Relaxation) -> None:
-        print(f"  {row.phase:6s} τ = {u.stress_MPa(row.stress):9.3f} MPa  {row.state:10s} "
+        print(f"  {tag}{row.phase:6s} τ = {u.stress_MPa(row.stress):9.3f} MPa  {row.state:10s} "
               f"{row.steps:8d} steps  {row.nodes:6d} nodes", file=sys.stderr, flush=True)
     return show
 
 
 def run_case(case, out_dir=None, progress: bool = False, snapshot_every: int | None = None
              ) -> RunResult:
-    """Simulate one case and (when ``out_dir`` or the case's output folder is used) write files.
+    """Simulate one case and (unless ``out_dir`` is False) write its run folder.
+
+    The destination is checked before anything is computed (:func:`dlsim.output.check_destination`)
+    and written whole at the end (:func:`dlsim.output.write_folder`); if that fails the files go to
+    a rescue folder, named in ``RunResult.write_error``.
 
     Parameters
     ----------
@@ -149,49 +254,59 @@ def run_case(case, out_dir=None, progress: bool = False, snapshot_every: int | N
         Folder for the result files; default the case's ``[output] folder``.  Pass ``False`` to
         write nothing.
     progress : bool
-        Print one line per relaxation to stderr.
+        Print one line per relaxation to stderr, labelled by realization.
     snapshot_every : int, optional
         Record the line every so many time steps for animations (default: the case's value).
 
     Returns
     -------
     RunResult
-        For a case with ``[[populations]]``: the field and search of realization 0, first pass,
-        and a summary with the statistics over realizations and passes
-        (:func:`population_summary`).
+        With ``status`` "ok", "unconverged", "no_crss" or "interrupted" (a KeyboardInterrupt after
+        at least one finished realization writes what is finished, then propagates).
     """
     case = load_case(case)
-    t0 = time.perf_counter()
-    u = case.units
-    every = case.output.snapshot_every if snapshot_every is None else snapshot_every
-    frames = []
-
-    def snap(state, tau, steps):
-        x, y, pin = state.nodes()
-        frames.append((u.length_nm(x), u.length_nm(y), pin >= 0, u.stress_MPa(tau), steps))
-
-    show = _progress_printer(u) if progress else None
-    if case.obstacles is None:
-        runs = [_passes(case, populations_table(case, r)[0], show,
-                        every if r == 0 else 0, snap if (r == 0 and every > 0) else None)
-                for r in range(case.statistics.realizations)]
-        obstacles, search, swept = runs[0][0]
-        tau_ref = model_and_protocol(case, obstacles.spacing)[2]
-        summary = _summary(case, obstacles, search, tau_ref, 0.0)
-        summary.update(population_summary(case, runs))
-    else:
-        obstacles = build_field(case)
-        search = _search(case, obstacles, show, every, snap if every > 0 else None)
-        tau_ref = model_and_protocol(case, obstacles.spacing)[2]
-        summary = _summary(case, obstacles, search, tau_ref, 0.0)
-        swept = search.line
-    summary["wall_time_s"] = time.perf_counter() - t0
     folder = None
     if out_dir is not False:
-        folder = Path(out_dir if out_dir is not None else case.output.folder)
-        write_run(folder, case, obstacles, search, summary, frames if every > 0 else None,
-                  swept)
-    return RunResult(case, obstacles, search, summary, folder)
+        folder = output.check_destination(out_dir if out_dir is not None else case.output.folder,
+                                          inputs=case_inputs(case))
+    t0 = time.perf_counter()
+    every = case.output.snapshot_every if snapshot_every is None else snapshot_every
+    frames = FrameRecorder(case.units)
+    count = case.statistics.realizations
+    done: list[Realization] = []
+    interrupted = False
+    try:
+        for r in range(count):
+            show = _progress_printer(case.units, r, count) if progress else None
+            done.append(_realization(case, r, show, every if r == 0 else 0,
+                                     frames if (r == 0 and every > 0) else None))
+    except KeyboardInterrupt:
+        if not done:
+            raise
+        interrupted = True
+    summary = summarize(case, done, time.perf_counter() - t0, interrupted)
+    result = RunResult(case, done, summary, None, frames=frames.frames if every > 0 else [])
+    if folder is not None:
+        try:
+            result.out_dir = output.write_folder(folder, run_files(result))
+        except RescuedOutput as err:
+            result.out_dir, result.write_error = err.rescue, str(err)
+    if interrupted:
+        raise KeyboardInterrupt(f"interrupted after {len(done)} of {count} realizations"
+                                + (f"; they were written to {result.out_dir}"
+                                   if result.out_dir else ""))
+    return result
+
+
+def _realization(case: Case, r: int, show=None, every: int = 0, snap=None) -> Realization:
+    """The CRSS search(es) of realization ``r``: one for an ``[obstacles]`` case, one per pass
+    through the particles of a ``[[populations]]`` case."""
+    if case.obstacles is not None:
+        obstacles = build_field(case, r)
+        search = _search(case, obstacles, show, every, snap)
+        return Realization(r, realization_seed(case, r), [(obstacles, search, search.line)])
+    table = populations_table(case, r)[0]
+    return Realization(r, case.seed, _passes(case, table, show, every, snap))
 
 
 def _search(case: Case, obstacles: ObstacleField, show=None, every: int = 0, snap=None
@@ -269,13 +384,7 @@ def _passes(case: Case, table: ParticleTable, show=None, every: int = 0, snap=No
     return out
 
 
-def _t_interval(values: np.ndarray) -> list[float]:
-    """Two-sided Student-t interval of the mean (scipy.stats.t), ddof = 1."""
-    from scipy import stats
-
-    n = values.size
-    half = stats.t.ppf(0.5 + 0.5 * CONFIDENCE, n - 1) * values.std(ddof=1) / np.sqrt(n)
-    return [float(values.mean() - half), float(values.mean() + half)]
+# --------------------------------------------------------------------------- the summary
 
 
 def box_warnings(box_in_spacings) -> list[str]:
@@ -288,78 +397,139 @@ def box_warnings(box_in_spacings) -> list[str]:
             "upward (Nogaret & Rodney, Phys. Rev. B 74, 2006)"]
 
 
-def population_summary(case: Case, runs: list[list[tuple[ObstacleField, CrssResult]]]) -> dict:
-    """Statistics over realizations (first pass) and passes, loops, strength, estimates.
+def _search_status(search: CrssResult) -> str:
+    if not np.isfinite(search.crss):
+        return STATUS_NO_CRSS
+    return STATUS_OK if search.converged else STATUS_UNCONVERGED
 
-    ``crss_MPa`` is the mean over realizations; ``crss_MPa_ci95`` the Student-t 95% interval of
-    the mean, or for one realization the bracket of its CRSS search (no spread to estimate).
-    ``crss_MPa_passes`` is, per pass, the mean over realizations.  ``delta_sigma_MPa`` =
-    M (τ_c − τ_f), M the Taylor factor (analytic.TAYLOR_FCC by default).
-    """
+
+def _realization_record(case: Case, real: Realization) -> dict:
+    """One realization of ``result.json`` ``realizations``."""
+    mpa = lambda tau: float(case.units.stress_MPa(tau))  # noqa: E731
+    s = real.search
+    return {"realization": real.index, "seed": real.seed, "status": _search_status(s),
+            "message": s.message, "crss_MPa": mpa(s.crss), "crss_bracket_MPa": [mpa(s.lo),
+                                                                                 mpa(s.hi)],
+            "crss_per_pass_MPa": [mpa(p[1].crss) for p in real.passes],
+            "n_obstacle_points": real.field.n, "relaxations": len(s.history),
+            "time_steps": int(sum(h.steps for h in s.history)), "events": _events(s)}
+
+
+def _events(search: CrssResult) -> dict:
+    """Counters of the CRSS search, named for what they count."""
+    c = search.counters
+    return {"captures": c.get("captures", 0), "releases": c.get("releases", 0),
+            "reconnections": c.get("reconnections", 0),
+            "loops_at_crss": c.get("loops", 0)}
+
+
+def summarize(case: Case, runs: list[Realization], wall: float, interrupted: bool = False
+              ) -> dict:
+    """``result.json``: status, the CRSS (mean over realizations with its interval), each
+    realization's CRSS and bracket, the reference values, warnings and the resolved case."""
     u = case.units
     mpa = lambda tau: float(u.stress_MPa(tau))  # noqa: E731
-    first = np.array([mpa(run[0][1].crss) for run in runs])
-    passes = [float(np.mean([mpa(run[k][1].crss) for run in runs]))
-              for k in range(case.strength.passes)]
-    mean = float(first.mean())
-    if first.size > 1:
-        std, ci, note = float(first.std(ddof=1)), _t_interval(first), "Student t, 95%"
-    else:
-        lo, hi = runs[0][0][1].lo, runs[0][0][1].hi
-        std, ci, note = float("nan"), [mpa(lo), mpa(hi)], "one realization: its CRSS bracket"
-    obstacles, search, swept = runs[0][0]
-    held = loop_particles(obstacles, swept)
-    counts = loops_per_particle(obstacles, swept)
-    box = [obstacles.Lx / obstacles.spacing, obstacles.Ly / obstacles.spacing]
-    est = estimate_case(case)
-    return {
-        "crss_MPa": mean, "crss_MPa_realizations": first.tolist(), "crss_MPa_mean": mean,
-        "crss_MPa_std": std, "crss_MPa_ci95": ci, "crss_MPa_ci95_method": note,
-        "crss_MPa_passes": passes,
-        "crss_over_orowan": float(u.stress(mean) / analytic.orowan(line_tension(case),
-                                                                   obstacles.spacing)),
-        "converged": bool(all(s.converged for run in runs for _, s, _ in run)),
-        "delta_sigma_MPa": analytic.strength_increment(mean - case.friction.stress_MPa,
-                                                       case.strength.taylor_factor),
-        "taylor_factor": case.strength.taylor_factor,
-        "n_particles": obstacles.table.n,
-        "loops": {"count": len(held), "particles_looped": int(np.count_nonzero(counts)),
-                  "max_per_particle": int(counts.max(initial=0))},
-        "passes_model": "each looped particle becomes an impenetrable disc enlarged by "
-                        f"loop_spacing_nm = {case.strength.loop_spacing_nm:g} nm per loop",
-        "box_in_spacings": box, "warnings": box_warnings(box),
-        **{k: est[k] for k in ("estimates_MPa", "N_A_per_um2", "L_s_nm", "populations",
-                               "statistics_source")},
+    first = runs[0]
+    L = first.field.spacing
+    tau_ref = analytic.orowan(line_tension(case), L)
+    records = [_realization_record(case, r) for r in runs]
+    statuses = {rec["status"] for rec in records}
+    status = (STATUS_INTERRUPTED if interrupted else STATUS_NO_CRSS if STATUS_NO_CRSS in statuses
+              else STATUS_UNCONVERGED if STATUS_UNCONVERGED in statuses else STATUS_OK)
+    values = [rec["crss_MPa"] for rec in records]
+    iv = statistics.mean_interval(values if status != STATUS_NO_CRSS else [])
+    crss = iv.mean if status != STATUS_NO_CRSS else None
+    Lx, Ly = first.field.Lx, first.field.Ly
+    box = [Lx / L, Ly / L]
+    random = first.field.kind != "square"
+    warnings = list(case.warnings) + (box_warnings(box) if random else [])
+    warnings += statistics.interval_warnings(iv) if status != STATUS_NO_CRSS else []
+    summary = {
+        "status": status, "message": _message(status, records, len(runs), case),
+        "solver": "nodal",
+        "crss_MPa": crss,
+        "crss_over_orowan": None if crss is None else float(u.stress(crss) / tau_ref),
+        "realizations_count": len(runs),
     }
-
-
-def _summary(case: Case, obstacles: ObstacleField, search: CrssResult, tau_ref: float,
-             wall: float) -> dict:
-    u = case.units
-    mpa = lambda tau: float(u.stress_MPa(tau))  # noqa: E731
-    Lx, Ly, L = obstacles.Lx, obstacles.Ly, obstacles.spacing
-    return {
-        "crss_MPa": mpa(search.crss),
-        "crss_bracket_MPa": [mpa(search.lo), mpa(search.hi)],
+    if len(runs) == 1:
+        summary["crss_bracket_MPa"] = records[0]["crss_bracket_MPa"]
+    else:
+        summary.update(crss_mean_MPa=crss, crss_std_MPa=iv.std,
+                       crss_ci95_MPa=[iv.lo, iv.hi], crss_ci95_method=iv.method)
+    summary.update({
+        "realizations": records,
         "orowan_MPa": mpa(tau_ref),
-        "crss_over_orowan": float(search.crss / tau_ref),
         "friction_MPa": case.friction.stress_MPa,
-        "n_obstacles": obstacles.n,
+        "n_obstacle_points": first.field.n,
         "box_nm": [float(u.length_nm(Lx)), float(u.length_nm(Ly))],
-        "box_in_spacings": [Lx / L, Ly / L],
+        "box_in_spacings": box,
         "spacing_nm": float(u.length_nm(L)),
         "line_tension_nN": float(u.force_nN(line_tension(case))),
         "seed": case.seed,
-        "converged": bool(search.converged),
-        "message": search.message,
-        "relaxations": len(search.history),
-        "time_steps": int(sum(r.steps for r in search.history)),
-        "events": search.counters,
+        "converged": status == STATUS_OK,
+        "events": records[0]["events"],
         "model": model_record(case),
-        "wall_time_s": wall,
-        "dlsim_version": __version__,
-        "case": case.to_dict(),
+        "files_show_realization": 0,
+    })
+    est = estimate_case(case)
+    if case.obstacles is None:
+        summary.update(population_summary(case, runs, iv, status, est))
+    summary["estimates_MPa"] = est["estimates_MPa"]
+    summary.update(warnings=warnings, wall_time_s=wall, dlsim_version=__version__,
+                   case=case.to_dict())
+    return summary
+
+
+def _message(status: str, records: list[dict], count: int, case: Case) -> str:
+    if status == STATUS_INTERRUPTED:
+        return (f"interrupted after {len(records)} of {case.statistics.realizations} "
+                "realizations; the statistics cover the finished ones")
+    bad = [rec for rec in records if rec["status"] != STATUS_OK]
+    if not bad:
+        return records[0]["message"] if count == 1 else f"all {count} realizations bracketed"
+    rec = bad[0]
+    prefix = "" if count == 1 else f"realization {rec['realization']}: "
+    if rec["status"] == STATUS_NO_CRSS:
+        return (prefix + f"no CRSS: {rec['message']} (the line stayed pinned up to τ_f + "
+                f"{MAX_STRESS_IN_OROWAN:g} × 2Γ/(bL); check the obstacle strength and the "
+                "loading keys)")
+    return prefix + rec["message"]
+
+
+def population_summary(case: Case, runs: list[Realization], iv: statistics.Interval,
+                       status: str, est: dict) -> dict:
+    """Strength increment, loops and particle statistics of a ``[[populations]]`` case.
+
+    ``delta_sigma_MPa`` = M (τ_c − τ_f), M the Taylor factor; its interval is M times the CRSS
+    interval.  ``crss_per_pass_MPa`` is, per pass, the mean over realizations.
+    """
+    u = case.units
+    M = case.strength.taylor_factor
+    ok = status != STATUS_NO_CRSS
+    passes = [float(np.mean([u.stress_MPa(r.passes[k][1].crss) for r in runs]))
+              for k in range(case.strength.passes)] if ok else []
+    first = runs[0]
+    held = loop_particles(first.field, first.swept)
+    counts = loops_per_particle(first.field, first.swept)
+    tau_f = case.friction.stress_MPa
+    out = {
+        "delta_sigma_MPa": analytic.strength_increment(iv.mean - tau_f, M) if ok else None,
+        "taylor_factor": M,
+        "crss_per_pass_MPa": passes,
+        "n_particles": first.field.table.n,
+        "loops": {"loops_after_crossing": len(held),
+                  "particles_looped": int(np.count_nonzero(counts)),
+                  "loops_max_per_particle": int(counts.max(initial=0))},
+        "passes_model": "each looped particle becomes an impenetrable disc enlarged by "
+                        f"loop_spacing_nm = {case.strength.loop_spacing_nm:g} nm per loop",
     }
+    if len(runs) > 1 and ok:
+        out["delta_sigma_ci95_MPa"] = [M * (iv.lo - tau_f), M * (iv.hi - tau_f)]
+    out.update({k: est[k] for k in ("N_A_per_um2", "L_s_nm", "populations", "statistics_source")})
+    return out
+
+
+# --------------------------------------------------------------------------- estimates
 
 
 def _population_estimate(gamma: float, spacing: float, fc: np.ndarray, rho: np.ndarray
@@ -372,33 +542,55 @@ def _population_estimate(gamma: float, spacing: float, fc: np.ndarray, rho: np.n
     return float(analytic.friedel(gamma, spacing, analytic.critical_angle(gamma, mean_fc)))
 
 
+def _obstacle_estimates(case: Case) -> dict:
+    """Estimates of an ``[obstacles]`` case: the square array's exact CRSS, or for random points
+    Foreman–Makin (impenetrable) and Friedel (shearable)."""
+    u, gamma, o = case.units, line_tension(case), case.obstacles
+    L = u.length(o.spacing_nm)
+    fc = obstacle_strength(case)
+    phi = float(analytic.critical_angle(gamma, fc)) if np.isfinite(fc) else 0.0
+    mpa = lambda tau: float(u.stress_MPa(tau))  # noqa: E731
+    est = {"orowan_square": mpa(analytic.orowan(gamma, L))}
+    if o.kind == "square":
+        est["square_array"] = mpa(analytic.square_array(gamma, L, phi))
+    elif phi == 0.0:
+        est["foreman_makin"] = mpa(analytic.foreman_makin(gamma, L))
+    else:
+        est["friedel"] = mpa(analytic.friedel(gamma, L, phi))
+    return est
+
+
 def estimate_case(case) -> dict:
-    """Closed-form strength estimates of a ``[[populations]]`` case, without simulating.
+    """Closed-form strength estimates of a case, without simulating.
 
-    Planar statistics come from the sections of realization 0 as sampled for the run (the same
-    field ``dlsim run`` builds first; ``statistics_source`` says so); the expected values of
-    :func:`dlsim.particles.expected_section_stats` are listed beside them per population.
+    For ``[obstacles]``: ``orowan_square`` 2Γ/(bL) and either ``square_array`` (the exact CRSS of
+    the square array), ``foreman_makin`` (random impenetrable points, 0.81 · 2Γ/(bL_s), from
+    memory) or ``friedel`` (random shearable points).  Every estimate is of the obstacles' own
+    contribution: compare it with ``crss_MPa − friction_MPa``.
 
-    Returns
-    -------
-    dict
-        ``estimates_MPa``: ``orowan_square`` 2Γ/(b L_s), ``orowan_finite`` 2Γ/(b(L_s − 2⟨ρ⟩)),
-        ``foreman_makin`` 0.81·2Γ/(b L_s) (from memory), ``friedel`` (with the mean F_c, when some
-        particles are sheared), and for several populations ``superposition_linear`` and
-        ``superposition_pythagorean`` of the per-population estimates (each with its own L_s);
-        ``delta_sigma_MPa`` (M × each estimate); ``N_A_per_um2``, ``L_s_nm``, ``populations``.
+    For ``[[populations]]``, planar statistics come from the sections of realization 0 as sampled
+    for the run (``statistics_source`` says so) and the spacing is the case's expected L_s (so the
+    estimates and the summary's Orowan stress agree); the expected values of
+    :func:`dlsim.particles.expected_section_stats` are listed beside them per population:
+    ``orowan_square`` 2Γ/(b L_s), ``orowan_finite`` 2Γ/(b(L_s − 2⟨ρ⟩)), ``foreman_makin``,
+    ``friedel`` (with the mean F_c, when some particles are sheared), and for several populations
+    ``superposition_linear`` and ``superposition_pythagorean`` of the per-population estimates
+    (each with its own L_s); ``delta_sigma_MPa`` (M × each estimate); ``N_A_per_um2``, ``L_s_nm``,
+    ``populations``.
     """
     from . import particles as P
 
     case = load_case(case)
+    if case.obstacles is not None:
+        return {"estimates_MPa": _obstacle_estimates(case)}
     u, gamma = case.units, line_tension(case)
     table, sections = populations_table(case, 0)
     area_nm2 = case.line.length_nm * case.line.height_nm
-    L_s = u.length(case.spacing_nm) if table.n == 0 else (
-        u.length(P.mean_square_spacing(table.n / area_nm2)))
+    L_s = u.length(case.spacing_nm)
     mpa = lambda tau: float(u.stress_MPa(tau))  # noqa: E731
+    rho_mean = float(table.rho.mean()) if table.n else 0.0
     est = {"orowan_square": mpa(analytic.orowan(gamma, L_s)),
-           "orowan_finite": mpa(analytic.orowan_finite(gamma, L_s, float(table.rho.mean()))),
+           "orowan_finite": mpa(analytic.orowan_finite(gamma, L_s, rho_mean)),
            "foreman_makin": mpa(analytic.foreman_makin(gamma, L_s))}
     if np.isfinite(table.fc).any():
         mean_fc = float(np.minimum(table.fc, 2.0 * gamma).mean())
@@ -408,7 +600,7 @@ def estimate_case(case) -> dict:
         sel = table.population == i
         stats = P.section_stats(sec, case.line.length_nm, case.line.height_nm)
         fc, rho = table.fc[sel], table.rho[sel]
-        ls_i = u.length(stats["mean_square_spacing_nm"])
+        ls_i = u.length(P.mean_square_spacing(pop.areal_density_per_nm2))
         tau_i = mpa(_population_estimate(gamma, ls_i, fc, rho)) if fc.size else 0.0
         own.append(tau_i)
         pops[pop.name] = {
@@ -428,45 +620,61 @@ def estimate_case(case) -> dict:
             "delta_sigma_MPa": {k: analytic.strength_increment(v, M) for k, v in est.items()},
             "N_A_per_um2": float(table.n / area_nm2 * 1e6), "L_s_nm": float(u.length_nm(L_s)),
             "populations": pops,
-            "statistics_source": "sections of realization 0 (sampled, as in the run)"}
+            "statistics_source": "sections of realization 0 (sampled, as in the run); spacing: "
+                                 "the case's expected L_s"}
 
 
-def write_run(folder: Path, case: Case, obstacles: ObstacleField, search: CrssResult,
-              summary: dict, frames, swept: LineState | None = None) -> None:
-    """Write result.json, obstacles.csv, line.csv, history.csv (and loops.csv, snapshots.npz).
+# --------------------------------------------------------------------------- files
 
-    obstacles.csv has one row per particle (a disc's ring points are not listed); loops.csv lists
-    the nodes of the Orowan loops of ``swept`` (default: the pinned line) with the particle each
-    loop holds (the first, when a loop holds several).
+
+def run_files(result: RunResult) -> dict[str, bytes]:
+    """The files of a run folder (name → bytes), formats in DEVELOPERS.md.
+
+    obstacles.csv, line.csv, loops.csv and snapshots.npz show realization 0 (obstacles.csv has
+    one row per particle: a disc's ring points are not listed; loops.csv lists the nodes of the
+    Orowan loops left after the line crossed the field, with the particle each loop holds, the
+    first when it holds several); history.csv has every realization's relaxations.
     """
+    case, first = result.case, result.realizations[0]
     u = case.units
-    folder.mkdir(parents=True, exist_ok=True)
     gamma = line_tension(case)
+    obstacles, search = first.field, first.search
     t = obstacles.table
     columns = {"x_nm": u.length_nm(t.x), "y_nm": u.length_nm(t.y), "radius_nm": u.length_nm(t.rho),
                "critical_angle_deg": np.degrees(analytic.critical_angle(gamma, t.fc))}
     if case.obstacles is None:
         columns["population"] = np.asarray(obstacles.population_names, dtype=object)[t.population]
-    output.write_columns(folder / output.OBSTACLES, columns)
+    files = {output.OBSTACLES: output.columns_bytes(columns)}
     x, y, pin = search.line.nodes()
-    output.write_columns(folder / output.LINE, {
+    files[output.LINE] = output.columns_bytes({
         "x_nm": u.length_nm(x), "y_nm": u.length_nm(y), "pinned": (pin >= 0).astype(int)})
     cell = obstacles.Lx * obstacles.Ly * obstacles.Ly
-    output.write_table(folder / output.HISTORY, output.HISTORY_COLUMNS, (
-        (k, r.phase, float(u.stress_MPa(r.stress)), r.state, float(u.length_nm(r.mean_glide)),
-         float(r.swept_area * case.material.burgers_nm ** 2), r.pinned, r.swept_area / cell,
-         r.steps, r.nodes) for k, r in enumerate(search.history)))
-    state = search.line if swept is None else swept
-    loops = state.loops()
+    b2 = case.material.burgers_nm ** 2
+    files[output.HISTORY] = output.table_bytes(output.HISTORY_COLUMNS, (
+        (real.index, k, r.phase, float(u.stress_MPa(r.stress)), r.state,
+         float(u.length_nm(r.mean_glide)), float(r.swept_area * b2), r.pinned,
+         r.swept_area / cell, r.steps, r.nodes)
+        for real in result.realizations for k, r in enumerate(real.search.history)))
+    loops = first.swept.loops()
     if loops:
-        held = loop_particles(obstacles, state, first_crossing=False)
-        output.write_table(folder / output.LOOPS, ("loop", "particle", "x_nm", "y_nm"), (
+        held = loop_particles(obstacles, first.swept, first_crossing=False)
+        files[output.LOOPS] = output.table_bytes(("loop", "particle", "x_nm", "y_nm"), (
             (k, int(held[k][0]) if held[k].size else -1, float(u.length_nm(xx)),
              float(u.length_nm(yy)))
             for k, (lx, ly, _) in enumerate(loops) for xx, yy in zip(lx, ly)))
-    if frames is not None:
-        output.write_snapshots(folder / output.SNAPSHOTS, frames)
-    output.write_json(folder / output.RESULT, summary)
+    if result.frames:
+        files[output.SNAPSHOTS] = output.snapshots_bytes(result.frames)
+    files[output.RESULT] = output.json_bytes(result.summary)
+    return files
+
+
+def write_run(folder, result: RunResult) -> Path:
+    """Write ``result`` as the run folder ``folder`` (checked, then swapped in whole)."""
+    folder = output.check_destination(folder, inputs=case_inputs(result.case))
+    return output.write_folder(folder, run_files(result))
+
+
+# --------------------------------------------------------------------------- the terminal
 
 
 def _describe_model(m: dict) -> str:
@@ -481,29 +689,70 @@ def _describe_model(m: dict) -> str:
         f", cutoff {m['cutoff_nm']:g} nm" if m["cutoff_nm"] > 0 else "")
 
 
+def format_estimates(estimates: dict) -> str:
+    """The estimates of :func:`estimate_case` as a table: name, value, Δσ, what it assumes."""
+    est, dsig = estimates["estimates_MPa"], estimates.get("delta_sigma_MPa", {})
+    rows = [(analytic.ESTIMATES.get(k, (k, ""))[0], f"{v:9.2f}",
+             f"{dsig[k]:9.1f}" if k in dsig else " " * 9, analytic.ESTIMATES.get(k, ("", ""))[1])
+            for k, v in est.items()]
+    width = max(len(r[0]) for r in rows)
+    head = f"{'estimate':{width}s}  τ_c (MPa)  Δσ (MPa)  assumes"
+    lines = [head, "-" * len(head)] + [f"{a:{width}s}  {b}  {c}  {d}" for a, b, c, d in rows]
+    lines.append("τ_c: the obstacles' contribution (without friction); Δσ = M τ_c")
+    if "L_s_nm" in estimates:
+        lines.append(f"L_s = {estimates['L_s_nm']:.2f} nm (expected), N_A = "
+                     f"{estimates['N_A_per_um2']:.4g} per µm² (realization 0)")
+    return "\n".join(lines)
+
+
+def _fmt(value, spec: str = ".2f") -> str:
+    return "—" if value is None else format(value, spec)
+
+
 def format_summary(result: RunResult) -> str:
-    """A few readable lines for the terminal."""
-    s = result.summary
-    lo, hi = s["crss_bracket_MPa"]
-    lines = [
-        f"case      {result.case.source}" + (f"  ({result.case.title})" if result.case.title else ""),
-        f"field     {s['n_obstacles']} obstacles "
-        f"({'particles' if result.case.obstacles is None else result.case.obstacles.kind}), box "
-        f"{s['box_nm'][0]:.0f} x {s['box_nm'][1]:.0f} nm = {s['box_in_spacings'][0]:.1f} x "
-        f"{s['box_in_spacings'][1]:.1f} spacings of {s['spacing_nm']:.1f} nm",
-        f"CRSS      {s['crss_MPa']:.2f} MPa  bracket [{lo:.2f}, {hi:.2f}] MPa  "
-        f"= {s['crss_over_orowan']:.3f} x Orowan 2Γ/(bL) = {s['orowan_MPa']:.2f} MPa",
-        f"model     {_describe_model(s['model'])}",
-        f"status    {'converged' if s['converged'] else 'NOT converged'}: {s['message']}; "
-        f"{s['relaxations']} relaxations, {s['time_steps']} time steps, {s['wall_time_s']:.1f} s",
-    ]
-    if "crss_MPa_realizations" in s:
-        lines.append(f"strength  {len(s['crss_MPa_realizations'])} realization(s), CRSS mean "
-                     f"{s['crss_MPa_mean']:.2f} MPa, 95% [{s['crss_MPa_ci95'][0]:.2f}, "
-                     f"{s['crss_MPa_ci95'][1]:.2f}] ({s['crss_MPa_ci95_method']}); passes "
-                     f"{', '.join(f'{v:.2f}' for v in s['crss_MPa_passes'])} MPa; "
-                     f"Δσ = {s['delta_sigma_MPa']:.1f} MPa; {s['loops']['count']} loops")
-        lines += [f"warning   {w}" for w in s["warnings"]]
+    """A few readable lines for the terminal: the CRSS (mean and interval over realizations,
+    then each realization's value and bracket), the field, the model, the status."""
+    s, case = result.summary, result.case
+    n = s["realizations_count"]
+    kind = "particles" if case.obstacles is None else case.obstacles.kind
+    field_line = (f"field     {kind}: {s['n_obstacle_points']} obstacle points"
+                  + (f" for {s['n_particles']} particles (discs are rings of points)"
+                     if "n_particles" in s else "")
+                  + f"; box {s['box_nm'][0]:.0f} x {s['box_nm'][1]:.0f} nm = "
+                  f"{s['box_in_spacings'][0]:.1f} x {s['box_in_spacings'][1]:.1f} "
+                  f"{'L' if kind == 'square' else 'L_s'} (spacing {s['spacing_nm']:.1f} nm)")
+    lines = [f"case      {case.source}" + (f"  ({case.title})" if case.title else ""), field_line]
+    if n == 1:
+        lo, hi = s["crss_bracket_MPa"]
+        lines.append(f"CRSS      {_fmt(s['crss_MPa'])} MPa, bracket [{lo:.2f}, {hi:.2f}] MPa")
+    else:
+        lo, hi = s.get("crss_ci95_MPa", [None, None])
+        lines.append(f"CRSS      {_fmt(s['crss_MPa'])} MPa, mean of {n} realizations, 95% "
+                     f"interval [{_fmt(lo)}, {_fmt(hi)}] MPa (Student t)")
+        for rec in s["realizations"]:
+            rlo, rhi = rec["crss_bracket_MPa"]
+            lines.append(f"  realization {rec['realization']} (seed {rec['seed']}): "
+                         f"{_fmt(rec['crss_MPa'])} MPa, bracket [{_fmt(rlo)}, {_fmt(rhi)}] "
+                         f"MPa, {rec['status']}")
+    ratio = s["crss_over_orowan"]
+    lines.append(f"reference Orowan 2Γ/(bL) = {s['orowan_MPa']:.2f} MPa; CRSS / Orowan = "
+                 f"{_fmt(ratio, '.3f')}")
+    if "delta_sigma_MPa" in s:
+        ci = s.get("delta_sigma_ci95_MPa")
+        loops = s["loops"]
+        lines.append(f"strength  Δσ = M (τ_c − τ_f) = {_fmt(s['delta_sigma_MPa'], '.1f')} MPa "
+                     f"(M = {s['taylor_factor']:g})"
+                     + (f", 95% [{ci[0]:.1f}, {ci[1]:.1f}] MPa" if ci else "")
+                     + f"; per pass {', '.join(f'{v:.2f}' for v in s['crss_per_pass_MPa'])} MPa")
+        lines.append(f"loops     {loops['loops_after_crossing']} Orowan loops left after the line "
+                     f"crossed the field once, around {loops['particles_looped']} particles "
+                     f"(realization 0)")
+    lines.append(f"model     {_describe_model(s['model'])}")
+    rel = sum(r["relaxations"] for r in s["realizations"])
+    steps = sum(r["time_steps"] for r in s["realizations"])
+    lines.append(f"status    {s['status']}: {s['message']}; {rel} relaxations, {steps} time "
+                 f"steps, {s['wall_time_s']:.1f} s")
+    lines += [f"warning   {w}" for w in s["warnings"]]
     if result.out_dir is not None:
         lines.append(f"written   {result.out_dir}")
     return "\n".join(lines)

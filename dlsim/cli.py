@@ -1,33 +1,50 @@
 """The ``dlsim`` command: a thin layer over the Python API.
 
 Every sub-command calls one public function that a notebook can call just as well.  Errors that
-dlsim raises on purpose (:class:`dlsim.errors.DlsimError`) print as one line and exit with code 2;
-``--traceback`` shows the full stack instead.
+dlsim raises on purpose (:class:`dlsim.errors.DlsimError`) print as one line and exit with the
+error's code (:mod:`dlsim.errors`: 2 bad input, 3 no result, 4 results saved elsewhere);
+``--traceback`` shows the full stack instead.  Anything else is a bug: one line, exit code 1.
 """
 from __future__ import annotations
 
 import argparse
+import json
 import sys
 
-from .errors import DlsimError
+from .errors import EXIT_INTERRUPTED, EXIT_NO_RESULT, DlsimError
 
-EXIT_BAD_INPUT = 2
+EXIT_INTERNAL = 1
+
+
+def _note(text: str) -> None:
+    print(f"dlsim: {text}", file=sys.stderr, flush=True)
 
 
 def _cmd_run(args: argparse.Namespace) -> int:
-    from .api import run_case, format_summary
+    from .api import STATUS_NO_CRSS, format_summary, kernels_need_compiling, run_case
+    from .case import load_case
 
-    result = run_case(args.case, out_dir=args.out, progress=not args.quiet)
+    case = load_case(args.case)
+    for warning in case.warnings:
+        _note(f"warning: {warning}")
+    if kernels_need_compiling():
+        _note("compiling the kernels (first run only, about half a minute)")
+    result = run_case(case, out_dir=args.out, progress=not args.quiet)
     print(format_summary(result))
-    return 0
+    if result.write_error is not None:
+        _note(f"error: {result.write_error}")
+        return 4
+    return EXIT_NO_RESULT if result.status == STATUS_NO_CRSS else 0
 
 
 def _cmd_estimate(args: argparse.Namespace) -> int:
-    import json
+    from .api import estimate_case, format_estimates
 
-    from .api import estimate_case
-
-    print(json.dumps(estimate_case(args.case), indent=2, default=float))
+    estimates = estimate_case(args.case)
+    if args.json:
+        print(json.dumps(estimates, indent=2, default=float))
+    else:
+        print(format_estimates(estimates))
     return 0
 
 
@@ -35,7 +52,7 @@ def _cmd_sweep(args: argparse.Namespace) -> int:
     from .sweep import run_sweep
 
     outcome = run_sweep(args.sweep, out_dir=args.out, workers=args.workers,
-                        scheduler=args.scheduler, progress=not args.quiet)
+                        scheduler=args.scheduler, progress=not args.quiet, notify=_note)
     print(f"{len(outcome.ran)} runs done, {len(outcome.skipped)} already finished; "
           f"summaries in {outcome.out_dir}")
     return 0
@@ -97,9 +114,10 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("--out", default=None, help="output folder (overrides [output] folder)")
     run.add_argument("--quiet", action="store_true", help="no progress messages")
     run.set_defaults(func=_cmd_run)
-    estimate = sub.add_parser("estimate", help="analytic strength estimates of a case with "
-                                               "[[populations]], without simulating")
+    estimate = sub.add_parser("estimate", help="analytic strength estimates of a case, without "
+                                               "simulating")
     estimate.add_argument("case", help="case file (TOML)")
+    estimate.add_argument("--json", action="store_true", help="print JSON (for scripts)")
     estimate.set_defaults(func=_cmd_estimate)
     _add_sweep_commands(sub)
     return parser
@@ -113,14 +131,20 @@ def main(argv: list[str] | None = None) -> int:
     except DlsimError as err:
         if args.traceback:
             raise
-        print(f"dlsim: error: {err}", file=sys.stderr)
-        return EXIT_BAD_INPUT
-    except KeyboardInterrupt:
-        print("dlsim: interrupted", file=sys.stderr)
-        return 130
+        _note(f"error: {err}")
+        return err.exit_code
+    except KeyboardInterrupt as err:
+        _note(f"interrupted{'; ' + str(err) if str(err) else ''}")
+        return EXIT_INTERRUPTED
     except BrokenPipeError:  # output piped into `head` and the like: not an error of the run
         sys.stderr.close()
         return 0
+    except Exception as err:  # noqa: BLE001 - a bug: one line, the details on request
+        if args.traceback:
+            raise
+        _note(f"internal error: {type(err).__name__}: {err} (rerun with --traceback and "
+              "report it)")
+        return EXIT_INTERNAL
 
 
 if __name__ == "__main__":  # pragma: no cover

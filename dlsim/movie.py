@@ -16,7 +16,8 @@ import numpy as np
 from matplotlib.figure import Figure
 
 from .errors import DlsimError
-from .plots import STYLE, close_period, draw_field, draw_line, read_run, wrap_polyline
+from .output import read_run, read_snapshots
+from .plots import STYLE, close_period, draw_field, draw_line, wrap_polyline
 
 MOVIE_FORMATS = ("gif", "mp4")
 # 6 × 5 in at 80 dpi: 480 × 400 px (even sides, as H.264 requires); at most DEFAULT_MAX_FRAMES
@@ -49,16 +50,6 @@ def thin_frames(n_frames: int, max_frames: int) -> np.ndarray:
     count = min(n_frames, max_frames)
     # Spacing of linspace is >= 1 when count <= n_frames, so the rounded indices are distinct.
     return np.rint(np.linspace(0, n_frames - 1, count)).astype(np.int64)
-
-
-def read_snapshots(folder: Path) -> dict[str, np.ndarray]:
-    """The arrays of ``snapshots.npz`` (see the module docstring)."""
-    path = Path(folder) / "snapshots.npz"
-    if not path.is_file():
-        raise DlsimError(f"{str(folder)!r} has no snapshots.npz: run the case with "
-                         "[output] snapshot_every = k (> 0)")
-    with np.load(path) as data:
-        return {k: data[k] for k in data.files}
 
 
 def scale_bar_length(width_nm: float) -> float:

@@ -1,15 +1,36 @@
-"""Files of a run folder: ``result.json`` and the CSV tables (formats in DEVELOPERS.md).
+"""Run folders: what they hold, how they are written (atomically, whole) and how they are read.
 
-Values arrive here already converted to file units (nm, MPa); this module only writes and reads.
+This module is the one owner of the files of a run folder (formats in DEVELOPERS.md).  Values
+arrive already converted to file units (nm, MPa); here they are only rendered, written and read.
+
+Rules, so that a folder never mixes two runs and nothing computed is lost:
+
+- :func:`check_destination` runs *before* any computation: the destination must be a folder (or
+  not exist yet), lie under folders only, not hold the case's own inputs, and be writable (a probe
+  file is created and removed beside it, and an existing folder is renamed away and back).  An
+  existing non-empty folder is accepted only when it holds an earlier run (``result.json``) or
+  sweep (``sweep.json``), which is then replaced whole.
+- :func:`write_folder` writes every file into a hidden temporary folder beside the destination
+  and swaps it in with two renames, so readers see the old run or the new one, never a mixture.
+- When even that fails (disk full, permissions changed during a long run), the files are saved
+  in a rescue folder that can be written (the system's temporary folder, then the working
+  folder) and :class:`dlsim.errors.RescuedOutput` says where in one line.
 """
 from __future__ import annotations
 
 import csv
+import io
 import json
 import math
+import os
+import shutil
+import tempfile
+import time
 from pathlib import Path
 
 import numpy as np
+
+from .errors import DlsimError, OutputError, RescuedOutput
 
 RESULT = "result.json"
 OBSTACLES = "obstacles.csv"
@@ -17,9 +38,18 @@ LINE = "line.csv"
 HISTORY = "history.csv"
 LOOPS = "loops.csv"
 SNAPSHOTS = "snapshots.npz"
+SWEEP = "sweep.json"
 
-HISTORY_COLUMNS = ("index", "phase", "stress_MPa", "state", "mean_glide_nm", "swept_area_nm2",
-                   "pinned", "plastic_strain_increment", "steps", "nodes")
+HISTORY_COLUMNS = ("realization", "index", "phase", "stress_MPa", "state", "mean_glide_nm",
+                   "swept_area_nm2", "pinned", "plastic_strain_increment", "steps", "nodes")
+#: Prefixes of the hidden folders used while writing (never a user's name: they start with a dot).
+TMP_TAG = ".tmp-"
+OLD_TAG = ".old-"
+PROBE_PREFIX = ".dlsim-probe-"
+RESCUE_PREFIX = "dlsim-rescued-"
+
+
+# --------------------------------------------------------------------------- rendering to bytes
 
 
 def _clean(value):
@@ -35,38 +65,281 @@ def _clean(value):
     return value
 
 
-def write_json(path: Path, data: dict) -> None:
-    path.write_text(json.dumps(_clean(data), indent=2) + "\n", encoding="utf-8")
+def json_bytes(data: dict) -> bytes:
+    return (json.dumps(_clean(data), indent=2) + "\n").encode("utf-8")
 
 
-def read_json(path: Path) -> dict:
-    return json.loads(Path(path).read_text(encoding="utf-8"))
-
-
-def write_table(path: Path, columns, rows) -> None:
+def table_bytes(columns, rows) -> bytes:
     """CSV with a header; floats written with 10 significant digits."""
-    with open(path, "w", newline="", encoding="utf-8") as fh:
-        w = csv.writer(fh)
-        w.writerow(columns)
-        for row in rows:
-            w.writerow([f"{v:.10g}" if isinstance(v, (float, np.floating)) else v for v in row])
+    buf = io.StringIO(newline="")
+    w = csv.writer(buf)
+    w.writerow(columns)
+    for row in rows:
+        w.writerow([f"{v:.10g}" if isinstance(v, (float, np.floating)) else v for v in row])
+    return buf.getvalue().encode("utf-8")
 
 
-def write_columns(path: Path, columns: dict) -> None:
+def columns_bytes(columns: dict) -> bytes:
     """CSV from equal-length 1-D arrays keyed by column name."""
     names = list(columns)
-    write_table(path, names, zip(*(np.asarray(columns[k]).tolist() for k in names)))
+    return table_bytes(names, zip(*(np.asarray(columns[k]).tolist() for k in names)))
 
 
-def write_snapshots(path: Path, frames: list[tuple[np.ndarray, np.ndarray, np.ndarray, float, int]]
-                    ) -> None:
+def snapshots_bytes(frames: list[tuple[np.ndarray, np.ndarray, np.ndarray, float, int]]) -> bytes:
     """Line snapshots (x_nm, y_nm, pinned, stress_MPa, step) as one compressed npz (CSR)."""
     sizes = [f[0].shape[0] for f in frames]
     offsets = np.zeros(len(frames) + 1, np.int64)
     np.cumsum(sizes, out=offsets[1:])
     cat = (lambda k, dt: np.concatenate([f[k] for f in frames]).astype(dt)
            if frames else np.zeros(0, dt))
-    np.savez_compressed(path, offsets=offsets, x_nm=cat(0, np.float64), y_nm=cat(1, np.float64),
+    buf = io.BytesIO()
+    np.savez_compressed(buf, offsets=offsets, x_nm=cat(0, np.float64), y_nm=cat(1, np.float64),
                         pinned=cat(2, np.bool_),
                         stress_MPa=np.array([f[3] for f in frames], np.float64),
                         step=np.array([f[4] for f in frames], np.int64))
+    return buf.getvalue()
+
+
+# --------------------------------------------------------------------------- destinations
+
+
+def _inside(path: Path, folder: Path) -> bool:
+    try:
+        path.resolve().relative_to(folder.resolve())
+        return True
+    except ValueError:
+        return False
+
+
+def check_destination(folder, inputs=(), marker: str = RESULT, label: str = "output folder"
+                      ) -> Path:
+    """Check that ``folder`` can receive a run (``marker`` = result.json) or a sweep (sweep.json).
+
+    Parameters
+    ----------
+    folder : path-like
+        The destination.
+    inputs : iterable of path-like
+        Files the computation reads (the case file, particle files): they must not lie inside
+        the destination, which is replaced whole.
+    marker : str
+        The file that shows an existing folder holds an earlier dlsim result.
+    label : str
+        How the message names the destination (e.g. ``"--out"``).
+
+    Returns
+    -------
+    Path
+        The absolute destination; its parent folders exist.
+
+    Raises
+    ------
+    OutputError
+        One line naming the destination and what is wrong.
+    """
+    folder = Path(os.path.abspath(os.path.expanduser(os.fspath(folder))))
+    where = f"{label} {str(folder)!r}"
+    up = folder
+    while not os.path.lexists(up):
+        up = up.parent
+    if up != folder and not up.is_dir():
+        raise OutputError(f"{where}: {str(up)!r} is a file, so nothing can be written under it")
+    if os.path.lexists(folder):
+        if not folder.is_dir():
+            raise OutputError(f"{where} is a file, not a folder; give a folder (new, empty or "
+                              "holding an earlier result)")
+        entries = sorted(p.name for p in folder.iterdir())
+        if entries and marker not in entries:
+            raise OutputError(f"{where} holds files dlsim did not write (e.g. {entries[0]!r}); "
+                              "give a new or empty folder, or one holding an earlier result")
+    for item in inputs:
+        if item is not None and _inside(Path(item), folder):
+            raise OutputError(f"{where} holds {str(item)!r}, an input of this run, and would be "
+                              "replaced whole; give another folder")
+    _probe(folder, where)
+    return folder
+
+
+def _probe(folder: Path, where: str) -> None:
+    """Create and remove a file beside ``folder``, and rename an existing ``folder`` away and back
+    (what :func:`write_folder` will do), so a read-only or immutable place fails now."""
+    try:
+        folder.parent.mkdir(parents=True, exist_ok=True)
+        fd, probe = tempfile.mkstemp(prefix=PROBE_PREFIX, dir=folder.parent)
+        os.close(fd)
+        os.remove(probe)
+        if folder.is_dir():
+            aside = folder.with_name(f"{OLD_TAG}{folder.name}-{os.getpid()}-probe")
+            os.rename(folder, aside)
+            os.rename(aside, folder)
+    except OSError as err:
+        reason = err.strerror or type(err).__name__
+        raise OutputError(f"{where} cannot be written ({reason}); give a folder you can "
+                          "write to") from None
+
+
+# --------------------------------------------------------------------------- writing
+
+
+def write_folder(folder, files: dict[str, bytes]) -> Path:
+    """Write ``files`` (name → bytes) as the folder ``folder``, replacing any earlier one whole.
+
+    Returns the folder written: ``folder`` itself, or a rescue folder when ``folder`` could not
+    be written, in which case :class:`RescuedOutput` is raised naming it.
+    """
+    folder = Path(os.path.abspath(os.fspath(folder)))
+    try:
+        return _swap_in(folder, files)
+    except OSError as err:
+        reason = err.strerror or type(err).__name__
+        rescue = _rescue(folder.name, files)
+        if rescue is None:
+            raise OutputError(f"could not write the results to {str(folder)!r} ({reason}) nor to "
+                              "any rescue folder") from None
+        raise RescuedOutput(f"could not write the results to {str(folder)!r} ({reason}); they "
+                            f"were saved in {str(rescue)!r}", rescue) from None
+
+
+def _fill(target: Path, files: dict[str, bytes]) -> None:
+    for name, data in files.items():
+        with open(target / name, "wb") as fh:
+            fh.write(data)
+            fh.flush()
+            os.fsync(fh.fileno())
+
+
+def _swap_in(folder: Path, files: dict[str, bytes]) -> Path:
+    folder.parent.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(prefix=f"{TMP_TAG}{folder.name}-", dir=folder.parent))
+    try:
+        _fill(tmp, files)
+        old = None
+        if os.path.lexists(folder):
+            old = folder.with_name(f"{OLD_TAG}{folder.name}-{os.getpid()}-{time.time_ns()}")
+            os.rename(folder, old)
+        try:
+            os.rename(tmp, folder)
+        except OSError:
+            if old is not None:            # put the earlier run back before giving up
+                os.rename(old, folder)
+            raise
+    except OSError:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    if old is not None:
+        shutil.rmtree(old, ignore_errors=True)
+    return folder
+
+
+def _rescue(name: str, files: dict[str, bytes]) -> Path | None:
+    """Save ``files`` in a new folder of the temporary folder, else of the working folder."""
+    stamp = time.strftime("%Y%m%d-%H%M%S")
+    for place in (tempfile.gettempdir(), os.getcwd(), os.path.expanduser("~")):
+        try:
+            target = Path(tempfile.mkdtemp(prefix=f"{RESCUE_PREFIX}{name}-{stamp}-", dir=place))
+            _fill(target, files)
+            return target
+        except OSError:
+            continue
+    return None
+
+
+def write_file_atomic(path, data: bytes) -> None:
+    """Write one file through a temporary beside it and a rename (readers never see half)."""
+    path = Path(path)
+    tmp = path.with_name(f"{TMP_TAG}{path.name}-{os.getpid()}")
+    with open(tmp, "wb") as fh:
+        fh.write(data)
+    os.replace(tmp, path)
+
+
+def clear_leftovers(folder) -> None:
+    """Remove the hidden folders an interrupted write left in ``folder``."""
+    for tag in (TMP_TAG, OLD_TAG):
+        for left in Path(folder).glob(tag + "*"):
+            if left.is_dir():
+                shutil.rmtree(left, ignore_errors=True)
+            else:
+                left.unlink(missing_ok=True)
+
+
+# --------------------------------------------------------------------------- reading
+
+
+def read_json(path, what: str = "file") -> dict:
+    """A JSON file; a missing, unreadable or truncated one is a one-line :class:`DlsimError`."""
+    path = Path(path)
+    try:
+        data = json.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise DlsimError(f"{str(path)!r}: no such {what}") from None
+    except (OSError, UnicodeDecodeError) as err:
+        raise DlsimError(f"{str(path)!r}: cannot read the {what} ({err})") from None
+    except json.JSONDecodeError as err:
+        raise DlsimError(f"{str(path)!r}: not valid JSON ({err.msg} at line {err.lineno}), a "
+                         f"truncated or damaged {what}") from None
+    if not isinstance(data, dict):
+        raise DlsimError(f"{str(path)!r}: not a dlsim {what}")
+    return data
+
+
+def is_run_folder(folder) -> bool:
+    return (Path(folder) / RESULT).is_file()
+
+
+def read_result(folder) -> dict:
+    """``result.json`` of a run folder."""
+    folder = Path(folder)
+    if not is_run_folder(folder):
+        raise DlsimError(f"{str(folder)!r} is not a run folder (no {RESULT})")
+    return read_json(folder / RESULT, "result file")
+
+
+def read_table(path) -> dict[str, np.ndarray]:
+    """A CSV file with a header as column name → array (float where every cell is a number).
+
+    Empty cells read as NaN in numeric columns.
+    """
+    path = Path(path)
+    try:
+        with open(path, newline="", encoding="utf-8") as fh:
+            rows = list(csv.reader(fh))
+    except (OSError, UnicodeDecodeError) as err:
+        raise DlsimError(f"{str(path)!r}: cannot read the table ({err})") from None
+    if not rows:
+        raise DlsimError(f"{str(path)!r}: empty table (no header)")
+    names, body = rows[0], rows[1:]
+    if any(len(r) != len(names) for r in body):
+        raise DlsimError(f"{str(path)!r}: rows of unequal length, a truncated or damaged table")
+    return {name: _column([r[k] for r in body]) for k, name in enumerate(names)}
+
+
+def _column(cells: list[str]) -> np.ndarray:
+    try:
+        return np.array([float(c) if c != "" else math.nan for c in cells], dtype=float)
+    except ValueError:
+        return np.array(cells, dtype=object)
+
+
+def read_run(folder) -> dict:
+    """The files of a run folder: ``result`` (dict), ``obstacles``, ``line``, ``history`` and
+    ``loops`` (column dicts; None when absent)."""
+    folder = Path(folder)
+    run = {"result": read_result(folder)}
+    for name in (OBSTACLES, LINE, HISTORY, LOOPS):
+        path = folder / name
+        run[name.removesuffix(".csv")] = read_table(path) if path.is_file() else None
+    return run
+
+
+def read_snapshots(folder) -> dict[str, np.ndarray]:
+    """The arrays of ``snapshots.npz`` of a run folder (CSR, see :func:`snapshots_bytes`)."""
+    path = Path(folder) / SNAPSHOTS
+    if not path.is_file():
+        raise DlsimError(f"{str(folder)!r} has no {SNAPSHOTS}: run the case with "
+                         "[output] snapshot_every = k (> 0)")
+    try:
+        with np.load(path) as data:
+            return {k: data[k] for k in data.files}
+    except (OSError, ValueError) as err:
+        raise DlsimError(f"{str(path)!r}: cannot read the snapshots ({err})") from None

@@ -12,17 +12,16 @@ work with any backend.
 """
 from __future__ import annotations
 
-import csv
 import itertools
-import json
-import math
 from pathlib import Path
 
 import numpy as np
 from matplotlib.collections import EllipseCollection
 from matplotlib.figure import Figure
 
+from . import output
 from .errors import DlsimError
+from .output import read_run, read_table  # noqa: F401 - the readers figures use, re-exported
 
 FIG_SIZE_IN = (8.0, 6.0)
 DPI = 100                      # 8 × 6 in at 100 dpi: 800 × 600 px PNG
@@ -70,24 +69,6 @@ def _styled(func):
         with matplotlib.rc_context(STYLE):
             return func(*args, **kwargs)
     return wrapper
-
-
-def read_table(path: Path) -> dict[str, np.ndarray]:
-    """A CSV file with a header as column name → array (float where every cell is a number).
-
-    Empty cells read as NaN in numeric columns.
-    """
-    with open(path, newline="") as fh:
-        rows = list(csv.DictReader(fh))
-        names = rows[0].keys() if rows else next(csv.reader([path.read_text().splitlines()[0]]))
-    return {name: _column([r[name] for r in rows]) for name in names}
-
-
-def _column(cells: list[str]) -> np.ndarray:
-    try:
-        return np.array([float(c) if c != "" else math.nan for c in cells], dtype=float)
-    except ValueError:
-        return np.array(cells, dtype=object)
 
 
 def key_label(key: str) -> str:
@@ -245,19 +226,6 @@ def _log_ticks(ax, xs: np.ndarray) -> None:
 # --------------------------------------------------------------------------- run figures
 
 
-def read_run(folder: Path) -> dict:
-    """The files of a run folder: ``result`` (dict), ``obstacles``, ``line``, ``history`` and
-    ``loops`` (column dicts; ``loops`` None when absent)."""
-    folder = Path(folder)
-    if not (folder / "result.json").is_file():
-        raise DlsimError(f"{str(folder)!r} is not a run folder (no result.json)")
-    run = {"result": json.loads((folder / "result.json").read_text())}
-    for name in ("obstacles", "line", "history", "loops"):
-        path = folder / f"{name}.csv"
-        run[name] = read_table(path) if path.is_file() else None
-    return run
-
-
 def wrap_polyline(x: np.ndarray, y: np.ndarray, box: tuple[float, float]):
     """Fold an unwrapped line into the periodic box, breaking it (NaN) where it crosses a side.
 
@@ -362,22 +330,43 @@ def _field_figure(run: dict, box) -> Figure:
             ax.plot(*wrap_polyline(lx, ly, box), color="C1", linewidth=1.0, zorder=2.5)
     ax.set_xlabel("x (nm)")
     ax.set_ylabel("glide direction y (nm)")
-    ax.set_title(f"final pinned line, CRSS = {run['result']['crss_MPa']:.4g} MPa")
+    ax.set_title(_field_title(run["result"]))
     return fig
+
+
+def _field_title(res: dict) -> str:
+    """The field figure shows realization 0: its own CRSS, and the mean when there are more."""
+    first = res["realizations"][0]
+    text = f"pinned line at the CRSS, {_mpa(first['crss_MPa'])}"
+    if res["realizations_count"] > 1:
+        text = (f"realization 0 of {res['realizations_count']}: {_mpa(first['crss_MPa'])} "
+                f"(mean {_mpa(res['crss_MPa'])})")
+    return text
+
+
+def _mpa(value) -> str:
+    return "no CRSS" if value is None else f"{value:.4g} MPa"
 
 
 def _area_figure(run: dict, box) -> Figure:
     """Stress against the area swept from the straight start (mean glide × Lx)."""
     hist, res = run["history"], run["result"]
+    if "realization" in hist:       # the curve of realization 0, with its own CRSS and bracket
+        sel = hist["realization"] == 0
+        hist = {k: v[sel] for k, v in hist.items()}
+    first = res["realizations"][0]
     area = hist["mean_glide_nm"] * box[0]
     stress = hist["stress_MPa"]
     pinned = hist["state"] == "pinned"
     top = AREA_AXIS_MARGIN * area[pinned].max() if pinned.any() and area[pinned].max() > 0 else None
     fig = _figure()
     ax = fig.add_subplot()
-    lo, hi = res["crss_bracket_MPa"]
-    ax.axhspan(lo, hi, color="C2", alpha=0.25, linewidth=0)
-    ax.axhline(res["crss_MPa"], color="C2", linestyle="--", label=f"CRSS {res['crss_MPa']:.4g} MPa")
+    lo, hi = first["crss_bracket_MPa"]
+    if first["crss_MPa"] is not None:
+        ax.axhspan(lo, hi, color="C2", alpha=0.25, linewidth=0)
+        who = "realization 0 " if res["realizations_count"] > 1 else ""
+        ax.axhline(first["crss_MPa"], color="C2", linestyle="--",
+                   label=f"{who}CRSS {first['crss_MPa']:.4g} MPa")
     order = np.argsort(area[pinned])
     ax.plot(area[pinned][order], stress[pinned][order], color="0.6", linewidth=1.0)
     for state, marker in STATE_MARKERS.items():
@@ -396,8 +385,9 @@ def _area_figure(run: dict, box) -> Figure:
 def plot_dir(folder, quantity: str = "crss") -> list[Path]:
     """Plot a sweep folder (``sweep.json``) or a run folder (``result.json``)."""
     folder = Path(folder)
-    if (folder / "sweep.json").is_file():
+    if (folder / output.SWEEP).is_file():
         return plot_sweep(folder, quantity=quantity)
-    if (folder / "result.json").is_file():
+    if output.is_run_folder(folder):
         return plot_run(folder)
-    raise DlsimError(f"{str(folder)!r} holds neither a sweep (sweep.json) nor a run (result.json)")
+    raise DlsimError(f"{str(folder)!r} holds neither a sweep ({output.SWEEP}) nor a run "
+                     f"({output.RESULT})")

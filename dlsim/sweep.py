@@ -31,14 +31,13 @@ import concurrent.futures as cf
 import contextlib
 import copy
 import csv
+import io
 import itertools
 import json
 import math
 import multiprocessing
 import os
-import shutil
 import signal
-import tempfile
 import threading
 import tomllib
 from dataclasses import dataclass, field
@@ -47,6 +46,7 @@ from typing import Any, Callable, Iterator
 
 import numpy as np
 
+from . import output, statistics
 from .errors import CaseError, DlsimError, SimulationError
 
 SWEEP_KEYS = ("title", "base", "vary", "combine", "seeds", "output")
@@ -57,12 +57,16 @@ RANGE_KINDS = ("linear", "log")
 # residues do not leak into case files, folder summaries and plot labels.
 RANGE_DIGITS = 12
 RUNS_FOLDER = "runs"
-SWEEP_JSON = "sweep.json"
+SWEEP_JSON = output.SWEEP
+#: Runs of one sweep at the most (points × seeds); also bounds every range and grid before it is
+#: expanded.  sweep.json stores each run's resolved case (a few kB), so 1e5 runs are ~0.3 GB.
+MAX_RUNS = 100_000
+#: Seeds per point at the most (as realizations of a case).
+MAX_SEEDS = 10_000
+#: Local worker processes per core at the most: more only multiplies memory, never speed.
+MAX_WORKERS_PER_CORE = 4
 SUMMARY_RUNS = "summary_runs.csv"
 SUMMARY_POINTS = "summary_points.csv"
-TMP_PREFIX = ".tmp-"
-# Two-sided 95 % confidence interval of the mean (Student t).
-CI_LEVEL = 0.95
 # How long to wait for an existing Dask scheduler before giving up.
 DASK_CONNECT_TIMEOUT = "30s"
 DASK_HINT = "Dask is not installed: pip install 'dlsim[cluster]'"
@@ -183,11 +187,12 @@ def load_sweep(sweep: str | os.PathLike | dict) -> Sweep:
     if combine not in COMBINE_MODES:
         raise CaseError(source, "combine", f"got {combine!r}; allowed: 'grid', 'zip'")
     seeds = raw.get("seeds", 1)
-    if isinstance(seeds, bool) or not isinstance(seeds, int) or seeds < 1:
-        raise CaseError(source, "seeds", f"got {seeds!r}; must be an integer >= 1")
+    if isinstance(seeds, bool) or not isinstance(seeds, int) or not 1 <= seeds <= MAX_SEEDS:
+        raise CaseError(source, "seeds", f"got {seeds!r}; must be an integer in [1, {MAX_SEEDS}]")
     title = raw.get("title", "")
     if not isinstance(title, str):
         raise CaseError(source, "title", f"got {title!r}; must be a string")
+    _check_run_count(vary, combine, seeds, source)
     points = _combine(vary, combine, source)
     runs = _expand(base, base_dir, points, seeds, source)
     return Sweep(source=source, vary=vary, scales=scales, combine=combine, seeds=seeds,
@@ -195,15 +200,31 @@ def load_sweep(sweep: str | os.PathLike | dict) -> Sweep:
                  title=title)
 
 
+def _check_run_count(vary: dict, combine: str, seeds: int, source: str) -> None:
+    """Refuse a sweep of more than MAX_RUNS runs before anything is expanded."""
+    sizes = [len(v) for v in vary.values()]
+    points = max(sizes) if combine == "zip" else math.prod(sizes)
+    if points * seeds > MAX_RUNS:
+        detail = " × ".join(str(n) for n in sizes) if combine == "grid" else str(points)
+        raise CaseError(source, "vary", f"{detail} points × {seeds} seed(s) = "
+                                        f"{points * seeds:.3g} runs; at most {MAX_RUNS} allowed")
+
+
 def _read_toml(sweep) -> tuple[dict, str, Path]:
     if isinstance(sweep, dict):
         return copy.deepcopy(sweep), "<dict>", Path.cwd()
     path = Path(sweep)
+    if path.is_dir():
+        raise CaseError(str(path), "", "is a folder, not a sweep file")
     try:
-        with open(path, "rb") as fh:
-            return tomllib.load(fh), str(path), path.resolve().parent
+        text = path.read_bytes().decode("utf-8-sig")
+        return tomllib.loads(text), str(path), path.resolve().parent
     except FileNotFoundError:
         raise CaseError(str(path), "", "sweep file not found") from None
+    except OSError as err:
+        raise CaseError(str(path), "", f"cannot read the file ({err.strerror})") from None
+    except UnicodeDecodeError:
+        raise CaseError(str(path), "", "not UTF-8 text; a sweep file is TOML") from None
     except tomllib.TOMLDecodeError as err:
         raise CaseError(str(path), "", f"not valid TOML: {err}") from None
 
@@ -297,11 +318,17 @@ def _range_args(args, source: str, where: str) -> tuple[float, float, int]:
         ok = all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in (start, stop))
     if not ok:
         raise CaseError(source, where, f"got {args!r}; give [start, stop, count]")
-    if isinstance(count, bool) or not isinstance(count, int) or count < 1:
-        raise CaseError(source, where, f"count {count!r}; must be an integer >= 1")
-    if not (math.isfinite(start) and math.isfinite(stop)):
-        raise CaseError(source, where, f"got {args!r}; start and stop must be finite")
-    return start, stop, count
+    if isinstance(count, bool) or not isinstance(count, int) or not 1 <= count <= MAX_RUNS:
+        raise CaseError(source, where, f"count {count!r}; must be an integer in [1, {MAX_RUNS}]")
+    try:
+        finite = math.isfinite(float(start)) and math.isfinite(float(stop))
+    except OverflowError:
+        finite = False
+    if not finite:
+        raise CaseError(source, where, f"got {args!r}; start and stop must be finite numbers")
+    ints = isinstance(start, int) and isinstance(stop, int)
+    return (start, stop, count) if ints and max(abs(start), abs(stop)) < 2**53 else (
+        float(start), float(stop), count)
 
 
 def _tidy(vals: np.ndarray, integers: bool) -> list:
@@ -400,7 +427,8 @@ class SweepOutcome:
 
 
 def run_sweep(sweep: str | os.PathLike | dict | Sweep, out_dir=None, workers: int | None = None,
-              scheduler: str | None = None, progress: bool = True) -> SweepOutcome:
+              scheduler: str | None = None, progress: bool = True,
+              notify: Callable[[str], None] | None = None) -> SweepOutcome:
     """Run (or resume) every run of a sweep and write the summaries.
 
     Parameters
@@ -417,6 +445,9 @@ def run_sweep(sweep: str | os.PathLike | dict | Sweep, out_dir=None, workers: in
         e.g. ``"tcp://node17:8786"``.
     progress : bool
         A tqdm bar over runs on stderr.
+    notify : callable, optional
+        Receives one-line notes before the runs start: the warnings of the sweep's cases (each
+        once) and a note when the kernels still have to be compiled.
 
     Returns
     -------
@@ -429,12 +460,16 @@ def run_sweep(sweep: str | os.PathLike | dict | Sweep, out_dir=None, workers: in
     SimulationError
         Some runs failed (the others are written, and so are the summaries); rerun to retry them.
     """
+    most = MAX_WORKERS_PER_CORE * default_workers()
     if workers is not None and (isinstance(workers, bool) or not isinstance(workers, int)
-                                or workers < 1):
-        raise DlsimError(f"workers must be an integer >= 1, got {workers!r}")
+                                or not 1 <= workers <= most):
+        raise DlsimError(f"--workers must be an integer in [1, {most}] ({MAX_WORKERS_PER_CORE} "
+                         f"per core of this machine), got {workers!r}")
     sw = sweep if isinstance(sweep, Sweep) else load_sweep(sweep)
     out = _resolve_out(sw, out_dir)
     _prepare_folder(sw, out)
+    if notify is not None:
+        _notify(sw, notify)
     done = {r.run_id for r in sw.runs if is_finished(out, r.run_id)}
     todo = [r for r in sw.runs if r.run_id not in done]
     failed: dict = {}
@@ -446,7 +481,7 @@ def run_sweep(sweep: str | os.PathLike | dict | Sweep, out_dir=None, workers: in
                     failed[spec.run_id] = f"{type(outcome).__name__}: {outcome}"
                     bar.write(f"dlsim: run {spec.run_id} failed: {failed[spec.run_id]}")
                 else:
-                    write_run_folder(out, spec.run_id, outcome)
+                    _write_run(out, spec.run_id, outcome, bar)
                 bar.update(1)
     finally:
         bar.close()
@@ -458,6 +493,30 @@ def run_sweep(sweep: str | os.PathLike | dict | Sweep, out_dir=None, workers: in
     return SweepOutcome(out, [r.run_id for r in todo], sorted(done), failed)
 
 
+def _notify(sw: Sweep, notify: Callable[[str], None]) -> None:
+    from .api import kernels_need_compiling
+    from .case import load_case
+
+    seen = []
+    for run in sw.runs[:: sw.seeds]:
+        for warning in load_case(run.case).warnings:
+            if warning not in seen:
+                seen.append(warning)
+                notify(f"warning: {warning}")
+    if kernels_need_compiling():
+        notify("compiling the kernels in each worker (first run only, about half a minute)")
+
+
+def _write_run(out: Path, run_id: str, files: dict[str, bytes], bar) -> None:
+    """Write one finished run; a run that cannot be written where it belongs is rescued."""
+    from .errors import RescuedOutput
+
+    try:
+        write_run_folder(out, run_id, files)
+    except RescuedOutput as err:
+        bar.write(f"dlsim: run {run_id}: {err}")
+
+
 def _resolve_out(sw: Sweep, out_dir) -> Path:
     if out_dir is not None:
         return Path(out_dir)
@@ -467,17 +526,22 @@ def _resolve_out(sw: Sweep, out_dir) -> Path:
 
 
 def _prepare_folder(sw: Sweep, out: Path) -> None:
-    """Create the folder, or check that it holds this same sweep; clear half-written runs."""
+    """Check the folder before anything runs (:func:`dlsim.output.check_destination`), create it,
+    or check that it holds this same sweep; clear half-written runs."""
+    output.check_destination(out, marker=SWEEP_JSON, label="sweep folder")
     runs = out / RUNS_FOLDER
-    runs.mkdir(parents=True, exist_ok=True)
+    try:
+        runs.mkdir(parents=True, exist_ok=True)
+    except OSError as err:
+        raise DlsimError(f"sweep folder {str(out)!r}: cannot create {RUNS_FOLDER}/ "
+                         f"({err.strerror})") from None
     stored = out / SWEEP_JSON
     expanded = sw.to_json()
     if stored.exists():
-        _check_same_sweep(json.loads(stored.read_text()), expanded, sw.source, out)
+        _check_same_sweep(output.read_json(stored, "sweep record"), expanded, sw.source, out)
     else:
-        _write_atomic(stored, json.dumps(expanded, indent=1, sort_keys=False).encode())
-    for tmp in runs.glob(TMP_PREFIX + "*"):
-        shutil.rmtree(tmp, ignore_errors=True)
+        output.write_file_atomic(stored, json.dumps(expanded, indent=1, sort_keys=False).encode())
+    output.clear_leftovers(runs)
 
 
 def _check_same_sweep(old: dict, new: dict, source: str, out: Path) -> None:
@@ -496,37 +560,25 @@ def _check_same_sweep(old: dict, new: dict, source: str, out: Path) -> None:
 
 
 def is_finished(out: Path, run_id: str) -> bool:
-    """A run folder exists only once complete (it is renamed into place)."""
-    return (Path(out) / RUNS_FOLDER / run_id / "result.json").is_file()
+    """A run folder exists only once complete (it is swapped into place whole)."""
+    return output.is_run_folder(Path(out) / RUNS_FOLDER / run_id)
 
 
 def write_run_folder(out: Path, run_id: str, files: dict[str, bytes]) -> Path:
-    """Write a run's files into a hidden folder, then rename it into ``runs/<run_id>``."""
-    final = Path(out) / RUNS_FOLDER / run_id
-    tmp = Path(tempfile.mkdtemp(prefix=f"{TMP_PREFIX}{run_id}-", dir=final.parent))
-    for name, data in files.items():
-        (tmp / name).write_bytes(data)
-    os.replace(tmp, final)
-    return final
-
-
-def _write_atomic(path: Path, data: bytes) -> None:
-    tmp = path.with_name(f"{TMP_PREFIX}{path.name}")
-    tmp.write_bytes(data)
-    os.replace(tmp, path)
+    """Write a run's files as ``runs/<run_id>`` (:func:`dlsim.output.write_folder`)."""
+    return output.write_folder(Path(out) / RUNS_FOLDER / run_id, files)
 
 
 def run_one(case: dict) -> dict[str, bytes]:
-    """Run one case in a scratch folder and return its files (name → bytes).
+    """Run one case and return its files (name → bytes), rendered in memory.
 
     This is what a pool process or Dask worker executes; returning the bytes lets the main
-    process do all the writing (atomic, and no shared file system needed on a cluster).
+    process do all the writing (atomic, and no shared file system needed on a cluster), and a
+    killed worker leaves nothing behind on disk.
     """
-    from .api import run_case
+    from .api import run_case, run_files
 
-    with tempfile.TemporaryDirectory(prefix="dlsim-run-") as tmp:
-        run_case(case, out_dir=tmp, progress=False)
-        return {p.name: p.read_bytes() for p in sorted(Path(tmp).iterdir()) if p.is_file()}
+    return run_files(run_case(case, out_dir=False, progress=False))
 
 
 def default_workers() -> int:
@@ -672,7 +724,8 @@ def summarize_sweep(out_dir) -> tuple[Path, Path]:
     -------
     (Path, Path)
         The two CSV files.  Columns of the run table: ``run_id, point, seed_index, seed``, one
-        per swept key, ``crss_MPa, crss_lo_MPa, crss_hi_MPa, orowan_MPa, converged``, then
+        per swept key, ``crss_MPa, crss_bracket_lo_MPa, crss_bracket_hi_MPa, orowan_MPa, status,
+        converged``, then
         ``delta_sigma_MPa`` and ``estimate_<model>_MPa`` when any run reports them.  The point
         table has the swept keys, ``n`` and, per quantity, ``<q>_mean_MPa, <q>_std_MPa,
         <q>_ci95_lo_MPa, <q>_ci95_hi_MPa`` (Student t), then the mean Orowan stress and the mean of
@@ -683,8 +736,8 @@ def summarize_sweep(out_dir) -> tuple[Path, Path]:
     keys = list(meta["vary"])
     rows = [_run_row(out, r, keys) for r in meta["runs"] if is_finished(out, r["id"])]
     extra = _extra_columns(rows)
-    run_cols = ["run_id", "point", "seed_index", "seed", *keys, "crss_MPa", "crss_lo_MPa",
-                "crss_hi_MPa", "orowan_MPa", "converged", *extra]
+    run_cols = ["run_id", "point", "seed_index", "seed", *keys, "crss_MPa", "crss_bracket_lo_MPa",
+                "crss_bracket_hi_MPa", "orowan_MPa", "status", "converged", *extra]
     runs_path = _write_csv(out / SUMMARY_RUNS, run_cols, rows)
     points = _point_rows(meta["runs"], rows, keys, extra)
     quantities = ["crss"] + (["delta_sigma"] if "delta_sigma_MPa" in extra else [])
@@ -701,16 +754,20 @@ def read_sweep_json(out_dir) -> dict:
     path = Path(out_dir) / SWEEP_JSON
     if not path.is_file():
         raise DlsimError(f"{str(out_dir)!r} is not a sweep folder (no {SWEEP_JSON})")
-    return json.loads(path.read_text())
+    data = output.read_json(path, "sweep record")
+    if not isinstance(data.get("runs"), list) or not isinstance(data.get("vary"), dict):
+        raise DlsimError(f"{str(path)!r}: not a dlsim sweep record (no runs or vary)")
+    return data
 
 
 def _run_row(out: Path, run: dict, keys: list[str]) -> dict:
-    res = json.loads((out / RUNS_FOLDER / run["id"] / "result.json").read_text())
-    lo, hi = res.get("crss_bracket_MPa", [math.nan, math.nan])
+    res = output.read_result(out / RUNS_FOLDER / run["id"])
+    lo, hi = res.get("crss_bracket_MPa") or [math.nan, math.nan]
     row = {"run_id": run["id"], "point": run["point"], "seed_index": run["seed_index"],
            "seed": run["seed"], **{k: run["params"][k] for k in keys},
-           "crss_MPa": res["crss_MPa"], "crss_lo_MPa": lo, "crss_hi_MPa": hi,
-           "orowan_MPa": res.get("orowan_MPa"), "converged": res.get("converged")}
+           "crss_MPa": res["crss_MPa"], "crss_bracket_lo_MPa": lo, "crss_bracket_hi_MPa": hi,
+           "orowan_MPa": res.get("orowan_MPa"), "status": res.get("status"),
+           "converged": res.get("converged")}
     if "delta_sigma_MPa" in res:
         row["delta_sigma_MPa"] = res["delta_sigma_MPa"]
     for model, value in (res.get("estimates_MPa") or {}).items():
@@ -744,26 +801,20 @@ def _point_rows(runs: list[dict], rows: list[dict], keys: list[str], extra: list
 
 
 def _stats(name: str, values: list) -> dict:
-    """Mean, sample std and the Student-t 95 % interval of the mean (NaN where undefined)."""
-    from scipy.stats import t as student_t
-
-    v = np.asarray([x for x in values if x is not None], dtype=float)
-    n = v.size
-    mean = float(v.mean()) if n else math.nan
-    std = float(v.std(ddof=1)) if n > 1 else math.nan
-    half = float(student_t.ppf(0.5 + CI_LEVEL / 2, n - 1) * std / math.sqrt(n)) if n > 1 else math.nan
-    return {f"{name}_mean_MPa": mean, f"{name}_std_MPa": std,
-            f"{name}_ci95_lo_MPa": mean - half, f"{name}_ci95_hi_MPa": mean + half}
+    """Mean, sample std and the Student-t 95 % interval of the mean (NaN where undefined;
+    :func:`dlsim.statistics.mean_interval`)."""
+    iv = statistics.mean_interval([x for x in values if x is not None])
+    return {f"{name}_mean_MPa": iv.mean, f"{name}_std_MPa": iv.std,
+            f"{name}_ci95_lo_MPa": iv.lo, f"{name}_ci95_hi_MPa": iv.hi}
 
 
 def _write_csv(path: Path, columns: list[str], rows: list[dict]) -> Path:
-    tmp = path.with_name(f"{TMP_PREFIX}{path.name}")
-    with open(tmp, "w", newline="") as fh:
-        writer = csv.DictWriter(fh, fieldnames=columns, extrasaction="ignore", restval="")
-        writer.writeheader()
-        for row in rows:
-            writer.writerow({k: _cell(v) for k, v in row.items()})
-    os.replace(tmp, path)
+    buf = io.StringIO(newline="")
+    writer = csv.DictWriter(buf, fieldnames=columns, extrasaction="ignore", restval="")
+    writer.writeheader()
+    for row in rows:
+        writer.writerow({k: _cell(v) for k, v in row.items()})
+    output.write_file_atomic(path, buf.getvalue().encode("utf-8"))
     return path
 
 

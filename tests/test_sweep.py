@@ -44,7 +44,7 @@ seeds = 2
 "obstacles.spacing_nm" = [30, 40]
 "obstacles.critical_angle_deg" = {linear = [100, 140, 2]}
 """
-PHYSICS_COLUMNS = ("crss_MPa", "crss_lo_MPa", "crss_hi_MPa", "orowan_MPa")
+PHYSICS_COLUMNS = ("crss_MPa", "crss_bracket_lo_MPa", "crss_bracket_hi_MPa", "orowan_MPa")
 
 
 def write_sweep(folder: Path, sweep: str = GRID_SWEEP, case: str = TINY_CASE) -> Path:
@@ -108,7 +108,7 @@ def test_load_sweep_seeds_shared_across_points(tmp_path):
 
 @pytest.mark.parametrize("spec, expected", [
     ("{linear = [10, 50, 5]}", [10, 20, 30, 40, 50]),
-    ("{linear = [0.1, 0.3, 3]}", [0.1, 0.2, 0.3]),
+    ("{linear = [10.1, 10.3, 3]}", [10.1, 10.2, 10.3]),
     ("{log = [10, 1000, 3]}", [10, 100, 1000]),
     ("{linear = [25, 25, 1]}", [25]),
     ("[35.5, 20]", [35.5, 20]),
@@ -188,8 +188,8 @@ def test_cli_malformed_sweep_exits_2_with_one_line(tmp_path, extra, vary, key):
 def test_run_sweep_summary_tables_match_sweep(pool_sweep):
     cols, rows = read_csv(pool_sweep / "summary_runs.csv")
     keys = ["obstacles.spacing_nm", "obstacles.critical_angle_deg"]
-    assert cols[:10] == ["run_id", "point", "seed_index", "seed", *keys, "crss_MPa", "crss_lo_MPa",
-                         "crss_hi_MPa", "orowan_MPa"]
+    assert cols[:11] == ["run_id", "point", "seed_index", "seed", *keys, "crss_MPa",
+                         "crss_bracket_lo_MPa", "crss_bracket_hi_MPa", "orowan_MPa", "status"]
     assert [r["run_id"] for r in rows] == [f"p{p:03d}_s{s:02d}" for p in range(4) for s in range(2)]
     pcols, points = read_csv(pool_sweep / "summary_points.csv")
     assert pcols[:8] == ["point", *keys, "n", "crss_mean_MPa", "crss_std_MPa", "crss_ci95_lo_MPa",
