@@ -688,9 +688,10 @@ def saltykov_matrix(edges_nm) -> np.ndarray:
 
         A[i, j] = 2 (sqrt(R_j² - e_i²) - sqrt(R_j² - e_(i+1)²))   for i <= j, 0 below,
 
-    with negative radicands read as 0 (a class above R_j gets no section).  The columns of A sum
-    to 2 R_j - 2 sqrt(R_j² - e_0²): every section of a sphere of class j lies in some class, except
-    those below e_0 when the classes start above 0 (a detection limit).
+    with negative radicands read as 0 (a class above R_j gets no section).  Column j sums to
+    2 sqrt(R_j² - e_0²): 2 R_j when the classes start at 0 (every section of the sphere lies in
+    some class, N_A = 2 R N_V), less when they start above 0 (a detection limit: sections below
+    e_0 were not counted).
 
     Parameters
     ----------
