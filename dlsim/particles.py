@@ -1416,19 +1416,22 @@ def default_unfold_classes(n: int) -> int:
     return int(min(max(round(2.0 * n ** (1.0 / 3.0)), MIN_DEFAULT_CLASSES), MAX_UNFOLD_CLASSES))
 
 
-def _classes(lower: np.ndarray, upper: np.ndarray, count: np.ndarray
+def _classes(path, key: str, lower: np.ndarray, upper: np.ndarray, count: np.ndarray
              ) -> tuple[np.ndarray, np.ndarray]:
-    """Contiguous class edges and counts of ordered bins, a gap becoming a class of count 0."""
-    gap = np.r_[False, lower[1:] > upper[:-1]]
-    edges = [lower[0]]
-    counts = []
-    for lo, hi, c, g in zip(lower, upper, count, gap):
-        if g:
-            edges.append(lo)
-            counts.append(0.0)
-        edges.append(hi)
-        counts.append(c)
-    return np.array(edges), np.array(counts)
+    """Contiguous class edges and counts of ordered bins, a gap becoming a class of count 0.
+
+    Bin i becomes class i + (gaps before it); edges[c] = lower and edges[c + 1] = upper of the
+    bin in class c, so a gap class runs from the previous bin's upper edge to the next lower one.
+    """
+    gap = lower[1:] > upper[:-1]
+    n = lower.size + int(gap.sum())
+    if n > MAX_UNFOLD_CLASSES:
+        raise CaseError(path, key, f"{n} classes to unfold (bins and the gaps between them); at "
+                                   f"most {MAX_UNFOLD_CLASSES} allowed")
+    where = np.arange(lower.size) + np.concatenate(([0], np.cumsum(gap)))
+    edges, counts = np.empty(n + 1), np.zeros(n)
+    edges[where], edges[where + 1], counts[where] = lower, upper, count
+    return edges, counts
 
 
 def read_measured_sizes(path, key: str, *, sizes_are: str, size_kind: str = "radius",
@@ -1510,14 +1513,14 @@ def _unfolded(path, key: str, lower, upper, count, binned: bool, classes: int | 
               notes: dict) -> Measured:
     """Spheres unfolded from section radii (rows or bins), as point masses at the class limits."""
     if binned:
-        edges, counts = _classes(lower, upper, count)
+        edges, counts = _classes(path, key, lower, upper, count)
     else:
         classes = default_unfold_classes(lower.size) if classes is None else int(classes)
+        if not 1 <= classes <= MAX_UNFOLD_CLASSES:
+            raise CaseError(path, key, f"got {classes} unfolding classes; allowed 1 to "
+                                       f"{MAX_UNFOLD_CLASSES}")
         edges = np.linspace(0.0, float(upper.max()), classes + 1)
         counts = np.histogram(upper, bins=edges)[0].astype(np.float64)
-    if counts.size > MAX_UNFOLD_CLASSES:
-        raise CaseError(path, key, f"{counts.size} classes to unfold (bins and the gaps between "
-                                   f"them); at most {MAX_UNFOLD_CLASSES} allowed")
     n_v, info = unfold_sections(edges, counts)
     widths = np.diff(edges)
     notes = {**notes, "method": "Scheil-Schwartz-Saltykov (Underwood 1970)",

@@ -63,11 +63,13 @@ def ratio_rel_var(mu, a: int, b: int, n: int) -> float:
 
 
 def lognormal_sections(n_sections, seed):
-    """Sections of Poisson log-normal spheres (LOGNORMAL), about ``n_sections`` of them."""
+    """Sections of Poisson log-normal spheres (LOGNORMAL), about ``n_sections`` of them, and the
+    side (nm) of their square box."""
     e = P.expected_section_stats(LOGNORMAL, FRACTION)
     side = math.sqrt(n_sections / e["areal_density_per_nm2"])
     rng = np.random.default_rng(seed)
-    return P.sample_sections(LOGNORMAL, volume_fraction=FRACTION, Lx_nm=side, Ly_nm=side, rng=rng)
+    return P.sample_sections(LOGNORMAL, volume_fraction=FRACTION, Lx_nm=side, Ly_nm=side,
+                             rng=rng), side
 
 
 # ---------------------------------------------------------------------------------------------
@@ -236,33 +238,36 @@ def test_unfold_lognormal_analytic_within_binning(classes):
     assert abs(got.sum() / n_v - 1.0) < 0.5 * delta / (true_mean - 0.5 * delta)
 
 
-def bootstrap_moments(edges, counts, repeats, rng):
-    """<R> and <R^3> of the unfolded spheres for Poisson resamples of the class counts."""
-    out = []
-    for _ in range(repeats):
-        n_v, _ = P.unfold_sections(edges, rng.poisson(counts).astype(float) + 0.0)
-        out.append([n_v @ edges[1:] / n_v.sum(), n_v @ edges[1:] ** 3 / n_v.sum()])
-    return np.array(out)
+def unfolded_stats(edges, counts):
+    """Total N_V (counts per area over a length), <R> and <R^3> of the unfolded spheres."""
+    n_v, _ = P.unfold_sections(edges, counts)
+    return np.array([n_v.sum(), n_v @ edges[1:] / n_v.sum(), n_v @ edges[1:] ** 3 / n_v.sum()])
 
 
 def test_unfold_sampled_lognormal_sections_file_matches_analytic(tmp_path):
-    sec = lognormal_sections(5000, seed=3)
+    sec, side = lognormal_sections(5000, seed=3)
+    area = side * side
+    n_v_true = P.number_density_from_fraction(LOGNORMAL, FRACTION)
     path = write_rows(tmp_path / "sec.csv", 2.0 * sec.rho_nm, column="diameter_nm")
     got = P.read_measured_sizes(path, KEY, sizes_are="sections", size_kind="diameter")
     k = got.notes["unfolding"]["classes"]
     edges = np.linspace(0.0, sec.rho_nm.max(), k + 1)
     assert k == P.default_unfold_classes(len(sec)) and np.allclose(got.lower_nm, edges[1:])
+    counts = np.histogram(sec.rho_nm, edges)[0].astype(float)
+    measured = unfolded_stats(edges, counts / area)
+    assert measured[1:] == pytest.approx([got.moment(1), got.moment(3)], rel=1e-12)
     # What the method gives, with the same classes, for the exact (infinitely many) sections:
-    n_v, _ = P.unfold_sections(edges, lognormal_section_histogram(edges))
-    expected = np.array([n_v @ edges[1:], n_v @ edges[1:] ** 3]) / n_v.sum()
+    expected = unfolded_stats(edges, lognormal_section_histogram(edges, n_v_true))
     # Counting noise: Poisson resamples of the measured class counts (200: the standard error of
     # a standard deviation is then 5%).
-    counts = np.histogram(sec.rho_nm, edges)[0].astype(float)
-    sigma = bootstrap_moments(edges, counts, 200, np.random.default_rng(9)).std(axis=0, ddof=1)
-    measured = np.array([got.moment(1), got.moment(3)])
+    rng = np.random.default_rng(9)
+    boot = np.array([unfolded_stats(edges, rng.poisson(counts) / area) for _ in range(200)])
+    sigma = boot.std(axis=0, ddof=1)
     assert np.all(np.abs(measured - expected) < Z * sigma), (measured, expected, sigma)
-    # and against the true spheres, within binning (as above) and noise
-    assert abs(got.moment(1) - LOGNORMAL.moment(1)) < 0.5 * edges[1] + Z * sigma[0]
+    # and against the true spheres: binning (as in the analytic test) plus noise
+    half = 0.5 * edges[1]
+    assert abs(measured[1] - LOGNORMAL.moment(1)) < half + Z * sigma[1]
+    assert abs(measured[0] / n_v_true - 1.0) < half / (LOGNORMAL.moment(1) - half) + Z * sigma[0] / n_v_true
 
 
 def test_unfolded_spheres_resectioned_give_the_sections_back():
@@ -304,7 +309,7 @@ def test_binned_radii_match_rows_statistically(lognormal_file, tmp_path):
 
 
 def test_binned_sections_unfold_exactly_like_rows_in_the_same_classes(tmp_path):
-    sec = lognormal_sections(2000, seed=6)
+    sec, _ = lognormal_sections(2000, seed=6)
     rows_path = write_rows(tmp_path / "rows.csv", sec.rho_nm)
     rows = P.read_measured_sizes(rows_path, KEY, sizes_are="sections", classes=12)
     edges = np.linspace(0.0, sec.rho_nm.max(), 13)
@@ -337,12 +342,26 @@ def test_binned_sections_file_with_gap(tmp_path):
     assert d.notes["unfolding"]["classes"] == 3 and np.allclose(d.lower_nm, [2.0, 3.0, 4.0])
 
 
+@pytest.mark.parametrize("bins, fragment", [
+    (P.MAX_UNFOLD_CLASSES + 1, f"{P.MAX_UNFOLD_CLASSES + 1} classes to unfold"),
+    (P.MAX_UNFOLD_CLASSES // 2 + 1, f"{P.MAX_UNFOLD_CLASSES + 1} classes to unfold"),  # + gaps
+])
+def test_binned_sections_too_many_classes_refused(tmp_path, bins, fragment):
+    step = 1.0 if bins > P.MAX_UNFOLD_CLASSES else 2.0  # step 2: a gap after every bin
+    lines = [f"{step * i},{step * i + 1},1" for i in range(bins)]
+    path = tmp_path / "many.csv"
+    path.write_text("lower_nm,upper_nm,count\n" + "\n".join(lines) + "\n")
+    with pytest.raises(CaseError, match=fragment):
+        P.read_measured_sizes(path, KEY, sizes_are="sections")
+    assert len(P.read_measured_sizes(path, KEY, sizes_are="particles").weight) == bins
+
+
 # ---------------------------------------------------------------------------------------------
 # Sections placed directly in the glide plane
 
 
 def test_in_plane_sections_area_fraction_is_volume_fraction(tmp_path):
-    sec = lognormal_sections(3000, seed=7)
+    sec, _ = lognormal_sections(3000, seed=7)
     write_rows(tmp_path / "sizes.csv", sec.rho_nm)
     f = 0.05
     c = case(tmp_path, sizes_are="sections", sections_as="in_plane", volume_fraction=f)
