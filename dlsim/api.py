@@ -702,7 +702,25 @@ def format_estimates(estimates: dict) -> str:
     if "L_s_nm" in estimates:
         lines.append(f"L_s = {estimates['L_s_nm']:.2f} nm (expected), N_A = "
                      f"{estimates['N_A_per_um2']:.4g} per µm² (realization 0)")
+    for name, pop in estimates.get("populations", {}).items():
+        lines.append(_describe_population(name, pop))
     return "\n".join(lines)
+
+
+def _describe_population(name: str, pop: dict) -> str:
+    """One line per population: its sections in realization 0 and where its sizes came from."""
+    text = (f"{name}: {pop['count']} sections (realization 0), L_s {pop['L_s_nm']:.3g} nm, "
+            f"⟨ρ⟩ {pop['rho_mean_nm']:.3g} nm, {100 * pop['fraction_sheared']:.0f}% sheared")
+    measured = (pop.get("expected") or {}).get("measured")
+    if measured:
+        text += (f"; sizes: {measured['count']} measured {measured['sizes_are']} "
+                 f"({measured['size_kind']}s) from {measured['file']}")
+        unfolding = measured.get("unfolding")
+        if unfolding:
+            text += (f", unfolded by {measured['method']} in {unfolding['classes']} classes"
+                     + (f", {unfolding['negative_classes']} negative classes fitted non-negative"
+                        if unfolding["negative_classes"] else ""))
+    return text
 
 
 def _fmt(value, spec: str = ".2f") -> str:

@@ -21,6 +21,7 @@ import os
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
+from . import particles as P
 from .errors import CaseError
 
 if TYPE_CHECKING:  # the case layer imports this module
@@ -219,13 +220,15 @@ def estimate_counts(case: "Case") -> Counts:
     for pop in case.populations:
         sections = pop.areal_density_per_nm2 * area
         dist = pop.size_distribution()
+        planar = isinstance(dist, P.PlanarSizes)       # measured sections placed in the plane
         if dist is None or pop.strength == "point":
             points += sections
         else:
-            # mean section radius (π/4)⟨r²⟩/⟨r⟩ (Underwood 1970); every section taken as a disc
-            rho = math.pi / 4.0 * dist.moment(2) / dist.moment(1)
+            # mean section radius: (π/4)⟨r²⟩/⟨r⟩ of spheres (Underwood 1970), or the measured
+            # sections' own; every section taken as a disc
+            rho = dist.moment(1) if planar else math.pi / 4.0 * dist.moment(2) / dist.moment(1)
             points += sections * max(1.0, 2.0 * math.pi * rho / gap)
-        if dist is not None:
+        if dist is not None and not planar:
             half = dist.r_max * (3.0 if pop.arrangement == "hard_spheres" else 1.0)
             n_v = pop.areal_density_per_nm2 / (2.0 * dist.moment(1))
             particles += n_v * area * 2.0 * half

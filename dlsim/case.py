@@ -287,21 +287,41 @@ SCHEMA: dict[str, Section] = {
 #: Arrays of tables (``[[populations]]``): each element is checked against its section by
 #: :func:`validate_table`, under the dotted name ``populations[i]`` (1-based, as a user counts).
 #: Kept apart from :data:`SCHEMA`, whose sections are plain tables that every resolved case lists.
-DISTRIBUTIONS = ("single", "lognormal", "lsw")
+DISTRIBUTIONS = ("single", "lognormal", "lsw", "measured")
 ARRANGEMENTS = ("poisson", "hard_spheres", "file")
 STRENGTHS = ("impenetrable", "constant", "power_law", "point")
+_NM_COLUMN = Check(lambda v: v.strip().endswith("_nm"), "a column name ending in _nm (sizes in nm)")
+#: Keys of measured sizes other than the two every measured population needs (see _NEEDS).
+_MEASURED_OPTIONS = ("size_kind", "sizes_column", "sections_as", "unfold_classes")
 ARRAY_SCHEMA: dict[str, Section] = {
     "populations": Section("one particle population (an alternative to [obstacles])", {
         "name": Key(str, "a unique name of the population", REQUIRED, NON_EMPTY),
         "volume_fraction": Key(float, "the volume fraction f", None, between(0, 1, closed=False)),
         "number_density_per_um3": Key(float, "the particles per µm³", None,
                                       between(1e-6, MAX_DENSITY_PER_UM3, closed=True)),
-        "distribution": Key(str, "the sphere radius distribution", None, one_of(*DISTRIBUTIONS)),
+        "distribution": Key(str, "the sphere radius distribution (measured: from a file of sizes)",
+                            None, one_of(*DISTRIBUTIONS)),
         "radius_nm": Key(float, "the sphere radius in nm (single)", None, length_nm()),
         "mean_radius_nm": Key(float, "the mean sphere radius in nm (lognormal, lsw)", None,
                               length_nm()),
         "sigma": Key(float, "the standard deviation of ln r (lognormal)", None,
                      up_to(MAX_LOGNORMAL_SIGMA)),
+        "sizes_file": Key(str, "the CSV of measured sizes in nm relative to the case file, one per "
+                               "row or bins lower_nm,upper_nm,count (measured)", None, NON_EMPTY),
+        "sizes_are": Key(str, "what the measured sizes are: particles (3D, e.g. atom probe, or "
+                              "corrected) or sections (planar, e.g. a micrograph) (measured)", None,
+                         one_of("particles", "sections")),
+        "size_kind": Key(str, "whether the measured sizes in nm are radii or diameters (measured; "
+                              "default radius)", None, one_of("radius", "diameter")),
+        "sizes_column": Key(str, "the column of a per-row sizes file holding the sizes in nm "
+                                 "(measured; default radius_nm or diameter_nm)", None, _NM_COLUMN),
+        "sections_as": Key(str, "what measured sections become: unfolded (spheres, by "
+                                "Scheil-Schwartz-Saltykov) or in_plane (the glide-plane sections "
+                                "themselves) (sections; default unfolded)", None,
+                           one_of("unfolded", "in_plane")),
+        "unfold_classes": Key(int, "the equal classes on [0, largest section] a per-row file of "
+                                   "sections is unfolded in (default round(2 n^(1/3)), n sections)",
+                              None, between(1, P.MAX_UNFOLD_CLASSES, closed=True)),
         "arrangement": Key(str, "how the particles are placed", "poisson", one_of(*ARRANGEMENTS)),
         "file": Key(str, "the particle file relative to the case file (arrangement = \"file\")",
                     None, NON_EMPTY),
@@ -321,7 +341,7 @@ ARRAY_SCHEMA: dict[str, Section] = {
 #: Keys each choice needs; a key of another choice is refused (it would be silently ignored).
 _NEEDS = {
     "distribution": {"single": ("radius_nm",), "lognormal": ("mean_radius_nm", "sigma"),
-                     "lsw": ("mean_radius_nm",)},
+                     "lsw": ("mean_radius_nm",), "measured": ("sizes_file", "sizes_are")},
     "strength": {"impenetrable": (), "constant": ("critical_force_nN",),
                  "power_law": ("prefactor_nN", "exponent"), "point": ("critical_angle_deg",)},
 }
@@ -385,6 +405,12 @@ class PopulationSpec:
     radius_nm: float | None
     mean_radius_nm: float | None
     sigma: float | None
+    sizes_file: str | None
+    sizes_are: str | None
+    size_kind: str | None
+    sizes_column: str | None
+    sections_as: str | None
+    unfold_classes: int | None
     arrangement: str
     file: str | None
     file_kind: str
@@ -396,9 +422,14 @@ class PopulationSpec:
     areal_density_per_nm2: float
     source: str = field(default=DICT_SOURCE, compare=False, repr=False)
     key: str = field(default="populations[1]", compare=False, repr=False)
+    #: The sizes read from ``sizes_file`` (distribution = "measured"), read once when resolved.
+    measured: "P.Measured | P.PlanarSizes | None" = field(default=None, compare=False, repr=False)
 
-    def size_distribution(self) -> "P.SizeDistribution | None":
-        """The sphere radius distribution (nm), None for particles read from a file."""
+    def size_distribution(self) -> "P.SizeDistribution | P.PlanarSizes | None":
+        """The sphere radius distribution (nm), None for particles read from a file; measured
+        sections placed in the plane give their :class:`~dlsim.particles.PlanarSizes`."""
+        if self.distribution == "measured":
+            return self.measured
         where = dict(source=self.source, key=self.key)
         if self.distribution == "single":
             return P.SingleSize(self.radius_nm, **where)
@@ -751,8 +782,10 @@ def _resolve_population(source: str, prefix: str, p: dict, base: Path,
                         box_nm: tuple[float, float] | None) -> PopulationSpec:
     """One ``[[populations]]`` table: choices checked, file path absolute, expected N_A (nm⁻²)."""
     _check_choice(source, prefix, p, "strength")
+    measured = None
     if p["arrangement"] == "file":
-        for k in ("volume_fraction", "number_density_per_um3", "distribution"):
+        for k in ("volume_fraction", "number_density_per_um3", "distribution",
+                  *_NEEDS["distribution"]["measured"], *_MEASURED_OPTIONS):
             _refuse(source, _join(prefix, k), p[k], "a population read from a file takes its "
                                                      "particles and sizes from the file")
         if p["file"] is None:
@@ -774,9 +807,11 @@ def _resolve_population(source: str, prefix: str, p: dict, base: Path,
         if p["volume_fraction"] is None and p["number_density_per_um3"] is None:
             raise CaseError(source, _join(prefix, "volume_fraction"),
                             "missing; give `volume_fraction` or `number_density_per_um3`")
-        _check_number_density(source, prefix, p)
+        measured = _resolve_measured(source, prefix, p, base)
+        _check_number_density(source, prefix, p, measured)
         n_a = 0.0
-    spec = PopulationSpec(**p, areal_density_per_nm2=n_a, source=source, key=prefix)
+    spec = PopulationSpec(**p, areal_density_per_nm2=n_a, source=source, key=prefix,
+                          measured=measured)
     if p["arrangement"] != "file":
         stats = P.expected_section_stats(spec.size_distribution(), p["volume_fraction"],
                                          spec.number_density_per_nm3, source=source, key=prefix)
@@ -784,19 +819,57 @@ def _resolve_population(source: str, prefix: str, p: dict, base: Path,
     return spec
 
 
-def _check_number_density(source: str, prefix: str, p: dict) -> None:
+def _check_number_density(source: str, prefix: str, p: dict, measured) -> None:
     """A number density whose spheres would fill more than the whole volume is refused here,
     under the user's key and unit, before the particle module sees it."""
     n_v = p["number_density_per_um3"]
-    if n_v is None:
+    if n_v is None or isinstance(measured, P.PlanarSizes):   # sections in the plane: no spheres
         return
     spec = PopulationSpec(**{**p, "file": None}, areal_density_per_nm2=0.0, source=source,
-                          key=prefix)
+                          key=prefix, measured=measured)
     f = P.volume_fraction_from_density(spec.size_distribution(), n_v / NM_PER_UM ** 3)
     if not f < 1.0:
         raise CaseError(source, _join(prefix, "number_density_per_um3"),
                         f"got {_show(n_v)} per µm³: the spheres would take a volume fraction of "
                         f"{f:.3g}; it must stay below 1")
+
+
+def _resolve_measured(source: str, prefix: str, p: dict, base: Path
+                      ) -> "P.Measured | P.PlanarSizes | None":
+    """The sizes of ``distribution = "measured"``, read from ``sizes_file`` (None otherwise).
+
+    Fills the defaults of the measured keys into ``p`` (size_kind, sections_as, and the classes
+    a per-row file of sections was unfolded in), so that the resolved case names them.
+    """
+    if p["distribution"] != "measured":
+        for k in _MEASURED_OPTIONS:
+            _refuse(source, _join(prefix, k), p[k], 'only for distribution = "measured"')
+        return None
+    sections = p["sizes_are"] == "sections"
+    for k in ("sections_as", "unfold_classes"):
+        if not sections:
+            _refuse(source, _join(prefix, k), p[k], 'only for sizes_are = "sections"')
+    p["size_kind"] = p["size_kind"] or "radius"
+    p["sections_as"] = (p["sections_as"] or "unfolded") if sections else None
+    if p["sections_as"] == "in_plane":
+        _refuse(source, _join(prefix, "unfold_classes"), p["unfold_classes"],
+                'only for sections_as = "unfolded"')
+        if p["arrangement"] != "poisson":
+            raise CaseError(source, _join(prefix, "arrangement"),
+                            f'got {_show(p["arrangement"])}; sections placed in the glide plane '
+                            'are Poisson discs, so only "poisson" is allowed')
+    p["sizes_file"] = os.path.normpath(base / os.path.expanduser(p["sizes_file"]))
+    sizes = P.read_measured_sizes(p["sizes_file"], _join(prefix, "sizes_file"),
+                                  sizes_are=p["sizes_are"], size_kind=p["size_kind"],
+                                  column=p["sizes_column"], sections_as=p["sections_as"] or "",
+                                  classes=p["unfold_classes"])
+    unfolding = sizes.notes.get("unfolding")
+    if unfolding is not None and sizes.notes["format"] == "bins":
+        _refuse(source, _join(prefix, "unfold_classes"), p["unfold_classes"],
+                f"only for a per-row file; the bins of {p['sizes_file']} are the classes")
+    elif unfolding is not None:
+        p["unfold_classes"] = unfolding["classes"]
+    return sizes
 
 
 def _resolve_populations(source: str, raw: Any, base: Path, line: dict

@@ -5,6 +5,8 @@ must agree exactly, not only statistically.
 """
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from dlsim.particles import RSA_MIN_BATCH
@@ -53,3 +55,22 @@ def overlapping_pairs(pos: np.ndarray, radii: np.ndarray, box: np.ndarray, chunk
         rows, cols = np.nonzero(close)
         count += int(np.sum(cols > rows))  # j > i only: each pair once, no self-pair
     return count
+
+
+def naive_saltykov_unfold(counts, delta):
+    """Twin of :func:`dlsim.particles.unfold_sections` for k equal classes of width ``delta`` from 0.
+
+    The Schwartz-Saltykov recurrence written out as in the textbook (Underwood, *Quantitative
+    Stereology*, 1970), in radii: spheres of class j (1-based) have radius j delta; one of them per
+    unit volume gives 2 delta (sqrt(j^2 - (i-1)^2) - sqrt(j^2 - i^2)) sections per unit area in
+    section class i <= j.  Solved from the largest class down, one class at a time, with explicit
+    loops and no matrix; negative results are returned as they come (no correction).
+    """
+    k = len(counts)
+    n_v = [0.0] * k
+    for j in range(k, 0, -1):
+        from_larger = 0.0
+        for m in range(j + 1, k + 1):
+            from_larger += n_v[m - 1] * 2.0 * delta * (math.sqrt(m * m - (j - 1) ** 2) - math.sqrt(m * m - j * j))
+        n_v[j - 1] = (counts[j - 1] - from_larger) / (2.0 * delta * math.sqrt(j * j - (j - 1) ** 2))
+    return np.array(n_v)

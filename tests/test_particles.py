@@ -177,8 +177,8 @@ def test_expected_section_stats_single_size():
     (dict(volume_fraction=-0.1), "volume_fraction"),
     (dict(volume_fraction=0.1, number_density=1e-5), "volume_fraction"),
     (dict(), "volume_fraction"),
-    (dict(number_density=-1e-5), "number_density_per_nm3"),
-    (dict(number_density=1.0), "number_density_per_nm3"),  # f = 524 for r = 5 nm
+    (dict(number_density=-1e-5), "number_density_per_um3"),
+    (dict(number_density=1.0), "number_density_per_um3"),  # f = 524 for r = 5 nm
 ])
 def test_resolve_density_invalid_raises(kwargs, key):
     with pytest.raises(CaseError) as err:
