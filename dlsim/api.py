@@ -311,7 +311,15 @@ def _realization(case: Case, r: int, show=None, every: int = 0, snap=None) -> Re
 
 def _search(case: Case, obstacles: ObstacleField, show=None, every: int = 0, snap=None
             ) -> CrssResult:
+    """The CRSS search of one field with the case's solver (``case.solver.solver``): the nodal
+    line (:func:`dlsim.solver.find_crss`) or the arc construction
+    (:func:`dlsim.arcs.find_crss_arcs`, snapshots every ``every`` events)."""
     model, protocol, _ = model_and_protocol(case, obstacles.spacing)
+    if case.solver.solver == "arcs":
+        from .arcs import find_crss_arcs
+
+        return find_crss_arcs(obstacles, model, protocol, y0=0.0, snapshot_every=every,
+                              on_snapshot=snap, on_relaxation=show)
     return find_crss(obstacles, model, protocol, y0=0.0, snapshot_every=every,
                      on_snapshot=snap, on_relaxation=show)
 
@@ -378,7 +386,9 @@ def _passes(case: Case, table: ParticleTable, show=None, every: int = 0, snap=No
         obstacles = population_field(case, table=current)
         search = _search(case, obstacles, show, every if k == 0 else 0, snap if k == 0 else None)
         model, protocol, _ = model_and_protocol(case, obstacles.spacing)
-        swept = sweep_through(obstacles, model, protocol, search)
+        # point obstacles leave no Orowan loops around discs: the arcs' line at the CRSS suffices
+        swept = (search.line if case.solver.solver == "arcs"
+                 else sweep_through(obstacles, model, protocol, search))
         out.append((obstacles, search, swept))
         loops = loops + loops_per_particle(obstacles, swept)
     return out
@@ -446,7 +456,7 @@ def summarize(case: Case, runs: list[Realization], wall: float, interrupted: boo
     warnings += statistics.interval_warnings(iv) if status != STATUS_NO_CRSS else []
     summary = {
         "status": status, "message": _message(status, records, len(runs), case),
-        "solver": "nodal",
+        "solver": case.solver.solver,
         "crss_MPa": crss,
         "crss_over_orowan": None if crss is None else float(u.stress(crss) / tau_ref),
         "realizations_count": len(runs),

@@ -186,6 +186,8 @@ class Section:
 
 
 _POSITIVE = above(0)
+#: ``[solver] method``: the two solvers and the automatic choice.
+SOLVER_METHODS = ("nodal", "arcs", "auto")
 #: The line models of ``[elasticity] model``, named once in the kernels.
 LINE_MODELS = MODEL_NAMES
 SCHEMA: dict[str, Section] = {
@@ -274,6 +276,12 @@ SCHEMA: dict[str, Section] = {
         "refresh": Key(int, "the time steps between evaluations of the non-local self-stress "
                             "(self_stress; the local part is evaluated every step)", 1,
                        int_range(1, MAX_REFRESH)),
+    }),
+    "solver": Section("which solver finds the CRSS", {
+        "method": Key(str, "nodal (the discretised line: every obstacle and line model), arcs "
+                           "(the exact quasi-static arc construction of Foreman & Makin: point "
+                           "obstacles, constant line tension) or auto (arcs wherever the case "
+                           "qualifies, else nodal)", "auto", one_of(*SOLVER_METHODS)),
     }),
     "output": Section("result files", {
         "folder": Key(str, "the output folder relative to the case file (default: runs/<stem>)",
@@ -498,6 +506,17 @@ class ElasticitySpec:
 
 
 @dataclass(frozen=True)
+class SolverSpec:
+    """``method`` as given, and the solver that runs (``solver``: "nodal" or "arcs")."""
+
+    method: str
+    solver: str
+
+    def to_dict(self) -> dict:
+        return {"method": self.method}
+
+
+@dataclass(frozen=True)
 class OutputSpec:
     """Output folder (absolute path) and snapshot interval (0: no snapshots)."""
 
@@ -524,6 +543,7 @@ class Case:
     statistics: StatisticsSpec = StatisticsSpec(1)
     strength: StrengthSpec | None = None
     elasticity: ElasticitySpec | None = None
+    solver: SolverSpec = SolverSpec("nodal", "nodal")
     #: One-line warnings about values outside real materials (:func:`dlsim.bounds.check_case`).
     warnings: tuple[str, ...] = field(default=(), compare=False)
 
@@ -554,6 +574,7 @@ class Case:
             "statistics": dataclasses.asdict(self.statistics),
             "strength": dataclasses.asdict(self.strength),
             "elasticity": dataclasses.asdict(self.elasticity),
+            "solver": self.solver.to_dict(),
             "output": dataclasses.asdict(self.output),
         }
         if self.obstacles is not None:
@@ -989,7 +1010,54 @@ def load_case(source: str | os.PathLike | dict | Case, base_dir: str | os.PathLi
                 output=_resolve_output(table("output"), base, stem), raw=raw,
                 populations=populations, statistics=StatisticsSpec(**table("statistics")),
                 strength=StrengthSpec(**strength), elasticity=elasticity)
+    case = dataclasses.replace(case, solver=_resolve_solver(name, table("solver")["method"], case))
     return dataclasses.replace(case, warnings=bounds.check_case(case))
+
+
+def arcs_limitation(case: Case) -> str | None:
+    """Why the arc construction cannot run this case (None when it can).
+
+    It needs point obstacles under a constant line tension: no finite impenetrable discs (an
+    impenetrable population, or a strength law that reaches the bypass limit 2Γ within the sizes
+    drawn), no repeated passes (they turn looped particles into discs) and the constant line model.
+    """
+    if case.elasticity.model != "constant":
+        return (f"it needs a constant line tension, and [elasticity] model = "
+                f"\"{case.elasticity.model}\"")
+    if case.strength.passes > 1:
+        return "repeated passes turn looped particles into finite discs"
+    two_gamma = 2.0 * case.line.tension_alpha * case.material.shear_modulus_GPa * \
+        case.material.burgers_nm ** 2                                   # nN (GPa nm² = nN)
+    for i, pop in enumerate(case.populations, start=1):
+        rho_max = _largest_radius(pop)
+        if pop.strength == "impenetrable" and rho_max > 0.0:
+            return f"populations[{i}] are impenetrable discs of finite size"
+        if pop.strength == "constant" and pop.critical_force_nN >= two_gamma:
+            return (f"populations[{i}] reach the bypass limit 2Γ = {two_gamma:.3g} nN and are "
+                    "impenetrable discs")
+        if pop.strength == "power_law" and pop.prefactor_nN * rho_max ** pop.exponent >= two_gamma:
+            return (f"populations[{i}] reach the bypass limit 2Γ = {two_gamma:.3g} nN within "
+                    f"their sizes (F_c at ρ = {rho_max:.3g} nm) and are impenetrable discs there")
+    return None
+
+
+def _largest_radius(pop: PopulationSpec) -> float:
+    """The largest planar radius a population can put in the plane (nm)."""
+    if pop.arrangement == "file":
+        read = P.read_particles_csv if pop.file_kind == "particles" else P.read_sections_csv
+        return float(read(pop.file, f"{pop.key}.file", math.inf, math.inf).rho_nm.max(initial=0.0))
+    dist = pop.size_distribution()
+    return float(getattr(dist, "rho_max", None) or dist.r_max)
+
+
+def _resolve_solver(source: str, method: str, case: Case) -> SolverSpec:
+    """"auto" runs the arc construction wherever it applies; "arcs" where it cannot is refused."""
+    reason = arcs_limitation(case)
+    if method == "arcs" and reason is not None:
+        raise CaseError(source, "solver.method", f'got "arcs", but the arc construction cannot '
+                                                 f'run this case: {reason}; use "nodal" or "auto"')
+    solver = "arcs" if method != "nodal" and reason is None else "nodal"
+    return SolverSpec(method, solver)
 
 
 def _resolve_elasticity(source: str, e: dict, material: Material, spacing_nm: float
