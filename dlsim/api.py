@@ -453,7 +453,8 @@ def summarize(case: Case, runs: list[Realization], wall: float, interrupted: boo
     box = [Lx / L, Ly / L]
     random = first.field.kind != "square"
     warnings = list(case.warnings) + (box_warnings(box) if random else [])
-    warnings += statistics.interval_warnings(iv) if status != STATUS_NO_CRSS else []
+    warnings += statistics.interval_warnings(
+        iv, relative_target=case.statistics.target_half_width) if status != STATUS_NO_CRSS else []
     summary = {
         "status": status, "message": _message(status, records, len(runs), case),
         "solver": case.solver.solver,

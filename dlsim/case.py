@@ -247,6 +247,23 @@ SCHEMA: dict[str, Section] = {
     "statistics": Section("independent random fields of one case", {
         "realizations": Key(int, "the number of fields drawn with derived seeds", 1,
                             int_range(1, MAX_REALIZATIONS)),
+        "target_half_width": Key(float, "the wanted half-width of the 95% interval of the CRSS, "
+                                        "as a fraction of the CRSS (`dlsim converge` stops there; "
+                                        "runs say how many realizations would reach it)", 0.02,
+                                 between(1e-4, 0.5, closed=True)),
+        "budget_realizations": Key(int, "the most realizations `dlsim converge` may run over all "
+                                        "box sizes", 400, int_range(4, MAX_REALIZATIONS)),
+    }),
+    "convergence": Section("the series of box sizes of `dlsim converge` (the infinite-box CRSS)", {
+        "box_min": Key(float, "the smallest box side in obstacle spacings L_s", 8.0,
+                       between(2.0, 1e4, closed=True)),
+        "box_max": Key(float, "the largest box side in obstacle spacings L_s", 64.0,
+                       between(2.0, 1e4, closed=True)),
+        "boxes": Key(int, "the box sizes, spaced geometrically from box_min to box_max", 4,
+                     int_range(3, 12)),
+        "realizations_start": Key(int, "the realizations of every box size before the first fit; "
+                                       "more go where they narrow the extrapolation most", 8,
+                                  int_range(2, 1000)),
     }),
     "strength": Section("from CRSS to strength, and repeated dislocations", {
         "taylor_factor": Key(float, "the Taylor factor M in Δσ = M τ_c (3.06: random FCC)", 3.06,
@@ -459,9 +476,27 @@ class PopulationSpec:
 
 @dataclass(frozen=True)
 class StatisticsSpec:
-    """Independent random fields (realizations) of one case."""
+    """Independent random fields (realizations) of one case, the wanted precision (a fraction of
+    the CRSS) and the budget of ``dlsim converge``."""
 
     realizations: int
+    target_half_width: float = 0.02
+    budget_realizations: int = 400
+
+
+@dataclass(frozen=True)
+class ConvergenceSpec:
+    """Box sizes of ``dlsim converge`` (sides in obstacle spacings)."""
+
+    box_min: float = 8.0
+    box_max: float = 64.0
+    boxes: int = 4
+    realizations_start: int = 8
+
+    def sizes(self) -> list[float]:
+        """The box sides, geometric from box_min to box_max (spacings)."""
+        ratio = (self.box_max / self.box_min) ** (1.0 / (self.boxes - 1))
+        return [self.box_min * ratio ** k for k in range(self.boxes)]
 
 
 @dataclass(frozen=True)
@@ -544,6 +579,7 @@ class Case:
     strength: StrengthSpec | None = None
     elasticity: ElasticitySpec | None = None
     solver: SolverSpec = SolverSpec("nodal", "nodal")
+    convergence: ConvergenceSpec = ConvergenceSpec()
     #: One-line warnings about values outside real materials (:func:`dlsim.bounds.check_case`).
     warnings: tuple[str, ...] = field(default=(), compare=False)
 
@@ -575,6 +611,7 @@ class Case:
             "strength": dataclasses.asdict(self.strength),
             "elasticity": dataclasses.asdict(self.elasticity),
             "solver": self.solver.to_dict(),
+            "convergence": dataclasses.asdict(self.convergence),
             "output": dataclasses.asdict(self.output),
         }
         if self.obstacles is not None:
@@ -1010,7 +1047,8 @@ def load_case(source: str | os.PathLike | dict | Case, base_dir: str | os.PathLi
                 output=_resolve_output(table("output"), base, stem), raw=raw,
                 populations=populations, statistics=StatisticsSpec(**table("statistics")),
                 strength=StrengthSpec(**strength), elasticity=elasticity)
-    case = dataclasses.replace(case, solver=_resolve_solver(name, table("solver")["method"], case))
+    case = dataclasses.replace(case, solver=_resolve_solver(name, table("solver")["method"], case),
+                               convergence=_resolve_convergence(name, table("convergence")))
     return dataclasses.replace(case, warnings=bounds.check_case(case))
 
 
@@ -1048,6 +1086,13 @@ def _largest_radius(pop: PopulationSpec) -> float:
         return float(read(pop.file, f"{pop.key}.file", math.inf, math.inf).rho_nm.max(initial=0.0))
     dist = pop.size_distribution()
     return float(getattr(dist, "rho_max", None) or dist.r_max)
+
+
+def _resolve_convergence(source: str, c: dict) -> ConvergenceSpec:
+    if not c["box_max"] > c["box_min"]:
+        raise CaseError(source, "convergence.box_max", f"got {c['box_max']:g}; must exceed "
+                                                       f"`convergence.box_min` = {c['box_min']:g}")
+    return ConvergenceSpec(**c)
 
 
 def _resolve_solver(source: str, method: str, case: Case) -> SolverSpec:

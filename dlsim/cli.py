@@ -48,6 +48,18 @@ def _cmd_estimate(args: argparse.Namespace) -> int:
     return 0
 
 
+def _cmd_converge(args: argparse.Namespace) -> int:
+    from .case import load_case
+    from .converge import converge_case, format_converge
+
+    case = load_case(args.case)
+    for warning in case.warnings:
+        _note(f"warning: {warning}")
+    result = converge_case(case, out_dir=args.out, progress=not args.quiet)
+    print(format_converge(result))
+    return 0
+
+
 def _cmd_sweep(args: argparse.Namespace) -> int:
     from .sweep import run_sweep
 
@@ -119,6 +131,14 @@ def build_parser() -> argparse.ArgumentParser:
     estimate.add_argument("case", help="case file (TOML)")
     estimate.add_argument("--json", action="store_true", help="print JSON (for scripts)")
     estimate.set_defaults(func=_cmd_estimate)
+    converge = sub.add_parser("converge", help="the infinite-box CRSS of a random field: "
+                                                "realizations over box sizes, a finite-size fit")
+    converge.add_argument("case", help="case file (TOML)")
+    converge.add_argument("--out", default=None,
+                          help="folder for converge.json/.csv/.png (default: the case's output "
+                               "folder + '-converge')")
+    converge.add_argument("--quiet", action="store_true", help="no progress messages")
+    converge.set_defaults(func=_cmd_converge)
     _add_sweep_commands(sub)
     return parser
 
