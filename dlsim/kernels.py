@@ -14,14 +14,15 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-# The stepper calls the serial twins: a compiled function that calls a ``parallel=True`` one
-# does not survive numba's on-disk cache reliably (segmentation faults seen when the cache was
-# filled by other processes), and sweeps and realizations already use every core, one run each.
-from dlsim.elastic import dwk_forces, local_stress
-from dlsim.elastic import loop_stress_serial as loop_stress
-from dlsim.elastic import self_stress_serial as self_stress
+from dlsim.elastic import dwk_forces, local_stress, loop_stress, self_stress
 from dlsim.geometry import neighbours as _neighbours
-from dlsim.jit import JIT
+from dlsim.jit import JIT, start_threads
+
+# relax_line links the parallel self-stress kernels into its own code; its cache entry may not
+# restart the threading layer they need (dlsim.jit, numba issue #8578), so start it now, before
+# anything can call the stepper.  (They run on every thread numba is given: sweeps give each
+# worker one.)
+start_threads()
 
 # --- slots of the float parameter vector ``prm`` ------------------------------------------------
 P_GAMMA = 0      # line tension Γ (G b²)
