@@ -25,6 +25,7 @@ import dlsim
 # the parallel self-stress and loop-stress kernels.  Prints the cache hits of relax_line.
 STEP_WITH_LOOP = """
 import numpy as np
+from dlsim import contract as C
 from dlsim import kernels as K
 from dlsim.fields import square_field
 from dlsim.line import LineState
@@ -36,7 +37,7 @@ relaxer = Relaxer(square_field(L, 1, 1, np.inf), LineModel(0.5, 10.0, elasticity
 s = LineState.straight(L, 0.0, 10.0)
 t = np.linspace(0.0, 2.0 * np.pi, 20, endpoint=False)
 s.loop_x[:20], s.loop_y[:20] = 50.0 + 8.0 * np.cos(t), 60.0 + 8.0 * np.sin(t)
-s.loop_off[1], s.meta[K.M_NLOOPS], s.meta[K.M_NLOOPNODES] = 20, 1, 20
+s.loop_off[1], s.meta[C.M_NLOOPS], s.meta[C.M_NLOOPNODES] = 20, 1, 20
 name, steps = relaxer.relax(s, 0.2 / L, s.area(), Protocol(0.1 / L, 1e-4 / L, L, 0, 200, 1.0))
 assert steps == 200, (name, steps)
 print(sum(K.relax_line.stats.cache_hits.values()))
