@@ -27,6 +27,7 @@ import time
 import numba
 import numpy as np
 
+from dlsim import contract as C
 from dlsim import kernels as K
 from dlsim import solver
 from dlsim.fields import random_field, square_field
@@ -94,8 +95,7 @@ class StepRig:
 
     def _arrays(self, state):
         cap = state.capacity
-        return (np.empty(cap), np.empty(cap), np.empty(cap, np.int64), np.empty(cap, np.int64),
-                np.zeros(cap), np.zeros((K.N_WORK_F, cap)), np.zeros((K.N_WORK_I, cap), np.int64))
+        return np.zeros((C.N_WORK_F, cap)), np.zeros((C.N_WORK_I, cap), np.int64)
 
 
 class StepProfile:
@@ -116,32 +116,21 @@ class StepProfile:
         self._arrays()
 
     def _arrays(self):
-        (self.bx, self.by, self.bpin, self.bign, self.tau_int, work_f,
-         work_i) = self.rig._arrays(self.s)
-        self.w = _Work(work_f, work_i)
-        self.rx, self.ry, self.rad = self.w.clear
-        self.rad[: self.s.n] = K.UNKNOWN
+        self.work_f, self.work_i = self.rig._arrays(self.s)
+        self.work_f[C.W_RAD, : self.s.n] = K.UNKNOWN
+        self.field = self.rig.relaxer.field_arrays(self.opin)
 
     def _kernels(self, n):
-        s, w, r, prm, o = self.s, self.w, self.rig.relaxer, self.rig.prm, self.opin
-        obs = (r.ox, r.oy, o, r.cstart, r.citems, r.ncx, r.ncy)
+        s, prm, f, wf, wi = self.s, self.rig.prm, self.field, self.work_f, self.work_i
+        line, loops = s.line, s.loop_arrays
         return {
-            "node_pass": lambda: K.node_pass(s.x, s.y, n, s.pin, prm, self.tau_int, w.fex, w.fey,
-                                             w.vx, w.vy, w.fpin, w.ntx, w.nty),
-            "remesh": lambda bad: K._remesh_line(s.x, s.y, s.pin, s.ign, n, prm, bad, self.bx,
-                                                 self.by, self.bpin, self.bign, w.head, w.nxt,
-                                                 self.rx, self.ry, self.rad, *obs, w.far),
-            "release": lambda: K._release(n, s.pin, s.ign, w.fpin, r.ofc, o),
-            "contacts and reconnections": lambda: K._reconnect_all(
-                s.x, s.y, s.pin, s.ign, n, prm, s.meta, s.loop_x, s.loop_y, s.loop_pin,
-                s.loop_off, self.rx, self.ry, self.rad, w.ntx, w.nty, w.head, w.nxt, w.cap_seg,
-                w.cap_obs, *obs),
-            "move_and_capture": lambda dt: K.move_and_capture(
-                s.x, s.y, n, s.pin, s.ign, w.vx, w.vy, w.fpin, dt, *obs, prm, self.rx, self.ry,
-                self.rad, w.cap_seg, w.cap_s, w.cap_obs, w.cap_x, w.cap_y),
-            "insert_pins": lambda ncap: K.insert_pins(s.x, s.y, s.pin, s.ign, n, ncap, w.cap_seg,
-                                                      w.cap_s, w.cap_obs, w.cap_x, w.cap_y, o,
-                                                      self.rx, self.ry, self.rad, w.far),
+            "node_pass": lambda: K.node_pass(line, n, prm, wf),
+            "remesh": lambda bad: K._remesh_line(line, n, prm, bad, f, wf, wi),
+            "release": lambda: K._release(line, n, f[2], f[3], wf[C.W_FPIN]),
+            "contacts and reconnections": lambda: K._reconnect_all(line, n, prm, s.meta, loops, f,
+                                                                   wf, wi),
+            "move_and_capture": lambda dt: K.move_and_capture(line, n, dt, prm, f, wf, wi),
+            "insert_pins": lambda ncap: K.insert_pins(line, n, ncap, f[3], wf, wi),
         }
 
     def _call(self, name, *args):
@@ -170,11 +159,11 @@ class StepProfile:
         s, meta = self.s, self.s.meta
         self._n = None
         n, moved, node_steps = s.n, 0, 0
-        searched, reconnections = False, meta[K.M_RECONNECT]
+        searched, reconnections = False, meta[C.M_RECONNECT]
         t0 = time.perf_counter()
         while moved < steps:
-            if 2 * n + 2 * K.MAX_CAPTURES + 16 > s.capacity:
-                meta[K.M_N] = n
+            if 2 * n + 2 * C.MAX_CAPTURES + 16 > s.capacity:
+                meta[C.M_N] = n
                 s.grow()
                 self._arrays()
             self._n = n
@@ -183,45 +172,31 @@ class StepProfile:
                 n = self._n = self._call("remesh", bad)
                 area, bad, max_te, stiff, vmax, turned = self._call("node_pass")
             if self._call("release") > 0:
-                self.rad[:n] = K.UNKNOWN
+                self.work_f[C.W_RAD, :n] = K.UNKNOWN
                 continue
             if turned > 0 and not searched:
                 n_new, full = self._call("contacts and reconnections")
                 if full:
-                    n = meta[K.M_N] = n_new
+                    n = meta[C.M_N] = n_new
                     s.grow()
                     self._arrays()
                     continue
-                if n_new != n or meta[K.M_RECONNECT] != reconnections:
-                    n, reconnections, searched = n_new, meta[K.M_RECONNECT], True
+                if n_new != n or meta[C.M_RECONNECT] != reconnections:
+                    n, reconnections, searched = n_new, meta[C.M_RECONNECT], True
                     continue
             searched = False
             ncap, bad = self._call("move_and_capture", K.time_step(self.rig.prm))
             if ncap > 0:
                 n = self._n = self._call("insert_pins", ncap)
-                bad = self.w.cap_seg[0] if bad < 0 else min(bad, self.w.cap_seg[0])
+                first = self.work_i[C.I_CAPTURE, 0]
+                bad = first if bad < 0 else min(bad, first)
             if bad >= 0:
                 self._n = n
                 n = self._call("remesh", bad)
             moved += 1
             node_steps += n
-        meta[K.M_N] = n
+        meta[C.M_N] = n
         return time.perf_counter() - t0, node_steps
-
-
-class _Work:
-    """Named views of relax_line's work arrays (the layout of :func:`dlsim.kernels.relax_line`)."""
-
-    def __init__(self, work_f, work_i):
-        mc = K.MAX_CAPTURES
-        self.vx, self.vy, self.fpin, self.ntx, self.nty = (work_f[0], work_f[1], work_f[2],
-                                                            work_f[6], work_f[7])
-        self.clear = (work_f[3], work_f[4], work_f[5])
-        self.cap_s, self.cap_x = work_f[8, :mc], work_f[8, mc:2 * mc]
-        self.cap_y = work_f[8, 2 * mc:3 * mc]
-        self.cap_seg, self.cap_obs = work_i[0, :mc], work_i[0, mc:2 * mc]
-        self.head, self.nxt = work_i[1], work_i[2]
-        self.fex, self.fey, self.far = work_f[9], work_f[10], work_f[11]
 
 
 def throughput(repeats: int, sizes) -> None:
@@ -236,10 +211,10 @@ def throughput(repeats: int, sizes) -> None:
         before = s.meta.copy()
         rig.run(s, 1000)
         d = s.meta - before
-        per = 1.0 / max(1, d[K.M_STEPS])
+        per = 1.0 / max(1, d[C.M_STEPS])
         print(f"{n:>8}{rig.n_obstacles:>11}{rate:>15.3e}{1e9 / rate:>14.1f}"
-              f"{d[K.M_REMESH] * per:>13.3f}{d[K.M_CONTACT_CHECKS] * per:>14.3f}"
-              f"{d[K.M_CAPTURES] * per:>15.4f}")
+              f"{d[C.M_REMESH] * per:>13.3f}{d[C.M_CONTACT_CHECKS] * per:>14.3f}"
+              f"{d[C.M_CAPTURES] * per:>15.4f}")
         rigs[nodes] = (rig, rate)
     print("\n2. share of each kernel in the step (Python-driven copy of the loop, see StepProfile;"
           " ns per node-step with the call cost removed)")

@@ -27,7 +27,7 @@ from typing import Any, Callable
 from . import bounds
 from . import particles as P
 from .errors import CaseError
-from .kernels import MODEL_NAMES
+from .contract import MODEL_NAMES
 from .materials import TABLE, Material, Units
 
 NM_PER_UM = 1000.0

@@ -80,8 +80,6 @@ about as cutoff⁻² and matters for wavelengths longer than the cutoff (the tes
 """
 from __future__ import annotations
 
-import types
-
 import numpy as np
 from numba import njit, prange
 
@@ -601,22 +599,42 @@ def _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu):
     return xe, ye, tx, ty, sl, ca, cb, cc, starts
 
 
+@njit(**JIT)
+def _loop_stress_target(px, py, Lx, n_images, n_loops, prep, a2, k0, uu, tmp):
+    """Resolved shear at (px, py) from every loop and its images (``prep``: _prepare_loops)."""
+    xe, ye, tx, ty, sl, ca, cb, cc, starts = prep
+    total = 0.0
+    for k in range(-n_images, n_images + 1):
+        for lp in range(n_loops):
+            total += _chain_sum(px - k * Lx, py, xe, ye, starts[lp], starts[lp + 1] - 1,
+                                tx, ty, sl, ca, cb, cc, a2, k0, uu, tmp)
+    return total
+
+
+# Two Python functions, not two dispatchers of one: numba's on-disk cache names an entry after
+# the Python function and keys it by signature and bytecode only, not by ``parallel``, so two
+# dispatchers of one function would load each other's code (dlsim.jit, "One function per
+# dispatcher").
 def _loop_stress_impl(x, y, n, loop_x, loop_y, loop_offsets, n_loops, Lx, theta0, nu, a_core,
                       n_images, out):
-    xe, ye, tx, ty, sl, ca, cb, cc, starts = _prepare_loops(loop_x, loop_y, loop_offsets,
-                                                            n_loops, theta0, nu)
+    prep = _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu)
     a2 = a_core * a_core
     k0 = -nu * INV_4PI / (1.0 - nu)
-    m = xe.shape[0]
+    m = prep[0].shape[0]
     for i in prange(n):
-        uu = np.empty(m)
-        tmp = np.empty(m)
-        total = 0.0
-        for k in range(-n_images, n_images + 1):
-            for lp in range(n_loops):
-                total += _chain_sum(x[i] - k * Lx, y[i], xe, ye, starts[lp], starts[lp + 1] - 1,
-                                    tx, ty, sl, ca, cb, cc, a2, k0, uu, tmp)
-        out[i] = total
+        out[i] = _loop_stress_target(x[i], y[i], Lx, n_images, n_loops, prep, a2, k0,
+                                     np.empty(m), np.empty(m))
+
+
+def _loop_stress_serial_impl(x, y, n, loop_x, loop_y, loop_offsets, n_loops, Lx, theta0, nu,
+                             a_core, n_images, out):
+    prep = _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu)
+    a2 = a_core * a_core
+    k0 = -nu * INV_4PI / (1.0 - nu)
+    m = prep[0].shape[0]
+    uu, tmp = np.empty(m), np.empty(m)
+    for i in range(n):
+        out[i] = _loop_stress_target(x[i], y[i], Lx, n_images, n_loops, prep, a2, k0, uu, tmp)
 
 
 loop_stress = njit(**JIT_PARALLEL)(_loop_stress_impl)
@@ -657,22 +675,7 @@ loop_stress.__doc__ = """Resolved shear at the line nodes from closed loops in t
     """
 
 
-def _renamed(func, name: str):
-    """A copy of ``func`` under another name.
-
-    numba's on-disk cache names an entry after the function's qualified name and first line, and
-    its index does not tell ``parallel=True`` from serial builds: two dispatchers of one Python
-    function share one entry, so a serial kernel could load the parallel build (and a kernel
-    compiled against it then fails in a fresh process, where the parallel runtime it references
-    was never started).  Each variant therefore gets a function of its own name.
-    """
-    code = func.__code__.replace(co_name=name, co_qualname=name)
-    twin = types.FunctionType(code, func.__globals__, name, func.__defaults__, func.__closure__)
-    twin.__qualname__ = name
-    return twin
-
-
-loop_stress_serial = njit(**JIT)(_renamed(_loop_stress_impl, "_loop_stress_serial_impl"))
+loop_stress_serial = njit(**JIT)(_loop_stress_serial_impl)
 loop_stress_serial.__doc__ = "Serial twin of :func:`loop_stress` (same code, one thread).\n\n" \
     + loop_stress.__doc__
 

@@ -1,8 +1,10 @@
 """Numba kernels of the line model: forces, motion, capture, release, remeshing, reconnection.
 
 Everything here works in reduced units (length in b, stress in G, line tension and nodal force in
-G b²) on plain arrays.  The public driver of one relaxation is :func:`relax_line`; it runs the whole
-loop of time steps in compiled code and returns a status code, so Python costs nothing per step.
+G b²) on plain arrays grouped as :mod:`dlsim.contract` describes (``line``, ``loops``, ``field``,
+the work arrays with named rows, the parameter record ``prm``).  The public driver of one
+relaxation is :func:`relax_line`; it runs the whole loop of time steps in compiled code and returns
+a status code, so Python costs nothing per step.
 
 The nodal forces are the energy-consistent forms of physics.md (exact for straight segments):
 line tension ``F_i = Γ (t_i - t_{i-1})`` and Peach–Koehler ``F_i = ½ τ ẑ × (r_{i+1} - r_{i-1})``
@@ -14,73 +16,22 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-# The stepper calls the serial twins: a compiled function that calls a ``parallel=True`` one
-# does not survive numba's on-disk cache reliably (segmentation faults seen when the cache was
-# filled by other processes), and sweeps and realizations already use every core, one run each.
-from dlsim.elastic import dwk_forces, local_stress
-from dlsim.elastic import loop_stress_serial as loop_stress
-from dlsim.elastic import self_stress_serial as self_stress
+from dlsim.contract import (CAPACITY, EQUILIBRIUM, FLOWING, HEADROOM, I_BIGN, I_BPIN, I_CAPTURE,
+                            I_HEAD, I_KEEP, I_NEXT, I_SRC, M_CAPTURES, M_CONTACT_CHECKS, M_N,
+                            M_NLOOPNODES, M_NLOOPS, M_RECONNECT, M_RELEASES, M_REMESH, M_STEPS,
+                            MAX_CAPTURES, MAX_STEPS, MIN_NODES, MODEL_CONSTANT, MODEL_DWK,
+                            MODEL_SELF, W_BUF, W_BX, W_BY, W_CAPTURE, W_FAR, W_FEX, W_FEY,
+                            W_FPIN, W_NEAR, W_NTX, W_NTY, W_RAD, W_RX, W_RY, W_TAU_INT, W_VX,
+                            W_VY)
+from dlsim.elastic import dwk_forces, local_stress, loop_stress, self_stress
 from dlsim.geometry import neighbours as _neighbours
-from dlsim.jit import JIT
+from dlsim.jit import JIT, start_threads
 
-# --- slots of the float parameter vector ``prm`` ------------------------------------------------
-P_GAMMA = 0      # line tension Γ (G b²)
-P_TAU = 1        # applied resolved shear stress τ (G)
-P_TAUF = 2       # friction threshold τ_f (G)
-P_MOB = 3        # mobility M (sets the time unit only)
-P_LMIN = 4       # shortest segment kept by the remesher (b)
-P_LMAX = 5       # longest segment kept by the remesher (b)
-P_TOL = 6        # equilibrium: max |τ_eff| below this (G)
-P_FLOW = 7       # mean glide past the reference state that counts as flow (b)
-P_LX = 8         # box width, period of the line (b)
-P_LY = 9         # box height, period of the obstacle field (b)
-P_AREF = 10      # area under the line in the reference (last pinned) state (b²)
-P_DANN = 11      # distance below which parts of opposite sense reconnect (b)
-P_MODEL = 12     # line model: MODEL_CONSTANT, MODEL_DWK or MODEL_SELF (a float holding an int)
-P_THETA = 13     # angle of the Burgers vector from +x, the initial line direction (rad)
-P_NU = 14        # Poisson ratio
-P_ACORE = 15     # core radius: inner cut-off of de Wit–Koehler, a of the non-singular field (b)
-P_ROUT = 16      # outer cut-off radius of de Wit–Koehler (b)
-P_NIMG = 17      # periodic images summed segment by segment on each side (self-stress)
-P_CUTOFF = 18    # self-stress cutoff along x (b), 0 for none
-P_REFRESH = 19   # time steps between evaluations of the non-local self-stress
-P_GSTIFF = 20    # line stiffness of the time step and of the point-implicit update (G b²)
-N_PRM = 21
-
-# --- line models (prm[P_MODEL]) -----------------------------------------------------------------
-#: Names of the line models (``[elasticity] model``), indexed by their codes below.
-MODEL_NAMES = ("constant", "dewit_koehler", "self_stress")
-#: Constant line tension Γ = prm[P_GAMMA]: F_i = Γ (t_i − t_{i−1}).
-MODEL_CONSTANT = 0
-#: de Wit–Koehler orientation-dependent line energy, energy-consistent nodal forces.
-MODEL_DWK = 1
-#: The line's full non-singular elastic field (self-stress, images, Orowan loops); no line
-#: tension on top of it.
-MODEL_SELF = 2
-
-# --- slots of the int64 state vector ``meta`` ----------------------------------------------------
-M_N = 0          # number of nodes of the line
-M_NLOOPS = 1     # number of loops recorded
-M_NLOOPNODES = 2 # nodes used in the loop buffers
-M_STEPS = 3      # time steps taken (cumulative, the caller resets it)
-M_RELEASES = 4   # obstacles released (cumulative)
-M_CAPTURES = 5   # obstacles captured (cumulative)
-M_RECONNECT = 6  # reconnections (cumulative)
-M_REMESH = 7     # remeshing passes (cumulative)
-M_CONTACT_CHECKS = 8  # contact searches run (cumulative)
-N_META = 9
-
-#: Rows of the float and int work arrays relax_line takes (``work_f``: (N_WORK_F, cap) float64,
-#: ``work_i``: (N_WORK_I, cap) int64).
-N_WORK_F = 14
-N_WORK_I = 3
-
-# --- status codes of relax_line ----------------------------------------------------------------
-EQUILIBRIUM = 0
-FLOWING = 1
-MAX_STEPS = 2
-CAPACITY = 3
-STATUS_NAMES = ("pinned", "flowing", "unresolved", "capacity")
+# relax_line links the parallel self-stress kernels into its own code; its cache entry may not
+# restart the threading layer they need (dlsim.jit, numba issue #8578), so start it now, before
+# anything can call the stepper.  (They run on every thread numba is given: sweeps give each
+# worker one.)
+start_threads()
 
 #: Each node's own line-tension stiffness k_i = 2MΓ/(a_i b_i) (a_i, b_i its arms; the diagonal of
 #: the line-tension Jacobian) is taken implicitly: a node moves by v dt/(1 + k_i dt) (point-implicit
@@ -94,17 +45,12 @@ STEP_STIFFNESS = 2.0
 #: quadrilaterals stay simple and capture geometry stays accurate.  The few fast nodes (next to a
 #: fresh pin) are held to it one by one rather than shortening the step of the whole line.
 MAX_MOVE_FRACTION = 0.25
-#: Captures recorded in one step at the most (a step moves each node by < l_min/4, so even dense
-#: fields capture a handful).
-MAX_CAPTURES = 256
 #: Clearance of a node whose distance to the nearest free obstacle is not known (must be measured
 #: before the node can vouch that its segments sweep no obstacle).
 UNKNOWN = -np.inf
 #: A node closer to a free obstacle than its half-segment measures its clearance again only after
 #: moving this fraction of l_min (until then its segments are always tested exactly).
 REFRESH_FRACTION = 0.25
-#: The remesher never thins a line below this many nodes.
-MIN_NODES = 4
 #: Nodes closer than this many places along the line are never reconnected with each other.  The
 #: two arms at a pin meeting at angle φ come within the annihilation distance d = l_min at about
 #: s·φ = d from the pin, s the path length to the pin; with at least 20 nodes between them
@@ -121,6 +67,14 @@ RECONNECT_MIN_SEPARATION = 20
 RECONNECT_MIN_PINS = 8
 #: Two parts of the line reconnect only when their tangents are closer to antiparallel than this.
 RECONNECT_COS = -0.5
+#: A free node whose chord tangent has t_x below this has turned more than 60° from +x.  Two
+#: tangents more than 120° apart (RECONNECT_COS) cannot both lie within 60° of +x, so only such
+#: nodes can start a contact.
+TURNED_TX = 0.5
+#: relax_line's loop runs at most this many passes per time step allowed: a pass that releases
+#: pins or reconnects does not move the line and is followed by another (a bound, never reached
+#: in practice, that keeps a line that would release and reconnect for ever from hanging).
+PASSES_PER_STEP = 4
 
 
 @njit(**JIT)
@@ -133,14 +87,14 @@ def nodal_forces(x, y, n, prm, tau_node, fx, fy):
         Node positions (b); node n is node 0 shifted by (Lx, 0).
     n : int
         Number of nodes.
-    prm : (N_PRM,) float64
-        Parameters (Γ, Lx used here).
+    prm : parameter record (dlsim.contract)
+        ``gamma`` and ``Lx`` used here.
     tau_node : (>= n,) float64
         Resolved shear stress at each node (G): applied plus any internal stress.
     fx, fy : (>= n,) float64
         Output nodal forces (G b²).
     """
-    gamma, Lx = prm[P_GAMMA], prm[P_LX]
+    gamma, Lx = prm.gamma, prm.Lx
     for i in range(n):
         xm, ym, xp, yp = _neighbours(x, y, n, i, Lx)
         ax, ay = x[i] - xm, y[i] - ym
@@ -153,34 +107,32 @@ def nodal_forces(x, y, n, prm, tau_node, fx, fy):
 
 
 @njit(**JIT)
-def node_pass(x, y, n, pin, prm, tau_int, fex, fey, vx, vy, fpin, ntx, nty):
+def node_pass(line, n, prm, work_f):
     """Forces, friction and velocities of every node in one pass over the line.
 
     At a free node the local driving stress ``τ_loc = F·n/l`` (``F`` line tension plus
     Peach–Koehler, ``n`` the normal of the chord r_{i+1} − r_{i−1}, ``l`` the nodal length) is
     reduced by the friction threshold τ_f (no motion while |τ_loc| <= τ_f); the node moves along
-    ``n`` at ``M τ_eff``.  A pinned node does not move; ``fpin`` receives the magnitude of the force
-    the line exerts on it, with the Peach–Koehler part reduced by friction like everywhere else,
-    and at a free node its line stiffness ``2 M Γ_s/(a b)`` (per time unit, Γ_s = prm[P_GSTIFF];
-    STEP_STIFFNESS).  ``fex, fey`` are nodal forces of a line-tension model other than the
-    constant one (de Wit–Koehler), added to ``Γ (t_i − t_{i−1})``; zeros otherwise.
-    ``ntx, nty`` receive the unit chord tangent at each node.  Each segment is computed once and
-    carried to the next node, so every node's data is read once per pass.
+    ``n`` at ``M τ_eff``.  A pinned node does not move; row W_FPIN receives the magnitude of the
+    force the line exerts on it, with the Peach–Koehler part reduced by friction like everywhere
+    else, and at a free node its line stiffness ``2 M Γ_s/(a b)`` (per time unit, Γ_s =
+    prm.stiffness; STEP_STIFFNESS).  Rows W_FEX, W_FEY hold nodal forces of a line-tension model
+    other than the constant one (de Wit–Koehler), added to ``Γ (t_i − t_{i−1})``; row W_TAU_INT
+    an internal stress added to τ.  Rows W_NTX, W_NTY receive the unit chord tangent at each node.
+    Each segment is computed once and carried to the next node, so every node's data is read once
+    per pass.
 
     Parameters
     ----------
-    x, y : (>= n,) float64
-        Node positions (b); node n is node 0 shifted by (Lx, 0).
-    pin : (>= n,) int64
-        Obstacle holding each node, -1 if free.
-    prm : (N_PRM,) float64
-        Parameters (Γ, τ, τ_f, M, l_min, l_max, Lx used here).
-    tau_int : (>= n,) float64
-        Internal resolved shear stress at each node (G), added to the applied stress.
-    fex, fey : (>= n,) float64
-        Further line-tension forces at each node (G b²), added to the constant-Γ ones.
-    vx, vy, fpin, ntx, nty : (>= n,) float64
-        Outputs: velocity (b per time unit), pin force (G b²), unit chord tangent.
+    line : (x, y, pin, ign)
+        The line (dlsim.contract); node n is node 0 shifted by (Lx, 0).
+    n : int
+        Number of nodes.
+    prm : parameter record
+        gamma, tau, tau_f, mobility, l_min, l_max, Lx, stiffness used here.
+    work_f : (N_WORK_F, cap) float64
+        Reads W_TAU_INT, W_FEX, W_FEY; writes W_VX, W_VY (velocity, b per time unit), W_FPIN
+        (pin force, G b², or stiffness), W_NTX, W_NTY.
 
     Returns
     -------
@@ -197,12 +149,15 @@ def node_pass(x, y, n, pin, prm, tau_int, fex, fey, vx, vy, fpin, ntx, nty):
     vmax : float
         Largest node speed.
     n_turned : int
-        Free nodes whose chord tangent has t_x < 1/2: only these can start a contact
-        (:func:`find_contact`).
+        Free nodes whose chord tangent has t_x < TURNED_TX: only these can start a contact
+        (:func:`find_contacts`).
     """
-    gamma, tau, tau_f, mob = prm[P_GAMMA], prm[P_TAU], prm[P_TAUF], prm[P_MOB]
-    Lx, lmin, lmax = prm[P_LX], prm[P_LMIN], prm[P_LMAX]
-    k_stiff = 2.0 * mob * prm[P_GSTIFF]
+    x, y, pin, _ = line
+    tau_int, fex, fey = work_f[W_TAU_INT], work_f[W_FEX], work_f[W_FEY]
+    vx, vy, fpin, ntx, nty = work_f[W_VX], work_f[W_VY], work_f[W_FPIN], work_f[W_NTX], work_f[W_NTY]
+    gamma, tau, tau_f, mob = prm.gamma, prm.tau, prm.tau_f, prm.mobility
+    Lx, lmin, lmax = prm.Lx, prm.l_min, prm.l_max
+    k_stiff = 2.0 * mob * prm.stiffness
     # the arm behind node 0 is segment n-1, across the seam
     ax, ay = x[0] + Lx - x[n - 1], y[0] - y[n - 1]
     a = np.sqrt(ax * ax + ay * ay)
@@ -242,7 +197,7 @@ def node_pass(x, y, n, pin, prm, tau_int, fex, fey, vx, vy, fpin, ntx, nty):
             vx[i] = 0.0
             vy[i] = 0.0
         else:
-            if tnx < 0.5:
+            if tnx < TURNED_TX:
                 turned += 1
             # normal (-tny, tnx): F·n = ty tnx - tx tny + ½ τ c
             t_loc = (ty * tnx - tx * tny + 0.5 * t_node * c) / (0.5 * (a + b))
@@ -279,6 +234,16 @@ def _in_triangle(px, py, ax, ay, bx, by, cx, cy):
     return d1 <= 0.0 and d2 <= 0.0 and d3 <= 0.0
 
 
+# --- the periodic cell list ------------------------------------------------------------------------
+# Every search of the obstacles walks the cells a bounding box covers, at the image of each cell
+# that falls inside the box: :func:`_cell_walk` describes the walk, :func:`_walk_cell` gives its
+# t-th cell, so a search reads
+#     walk = _cell_walk(x0, x1, y0, y1, field)
+#     for t in range(walk[6]):
+#         cell, shx, shy = _walk_cell(walk, t, field)
+#         for q in range(cstart[cell], cstart[cell + 1]): ... ox[citems[q]] + shx ...
+
+
 @njit(inline="always", **JIT)
 def _cell_span(lo, hi, period, ncell):
     """Cells of a periodic axis that the interval [lo, hi] covers.
@@ -297,110 +262,119 @@ def _cell_span(lo, hi, period, ncell):
     return first, shift, count
 
 
-@njit(**JIT)
-def free_obstacle_in_triangle(ax, ay, bx, by, cx, cy, ox, oy, opin, cstart, citems, ncx, ncy,
-                              Lx, Ly):
-    """Whether some free obstacle (``opin == 0``; any periodic image) lies in the triangle abc."""
-    x0, x1 = min(ax, min(bx, cx)), max(ax, max(bx, cx))
-    y0, y1 = min(ay, min(by, cy)), max(ay, max(by, cy))
+@njit(inline="always", **JIT)
+def _cell_walk(x0, x1, y0, y1, field):
+    """The walk over the cells the box [x0, x1] × [y0, y1] covers: (first cell and shift along
+    x, cells along x, the same along y, cells in all); x outer, y inner."""
+    ncx, ncy, Lx, Ly = field[6], field[7], field[8], field[9]
     kx0, sx0, nx = _cell_span(x0, x1, Lx, ncx)
     ky0, sy0, ny = _cell_span(y0, y1, Ly, ncy)
-    kx, shx = kx0, sx0
-    for _ in range(nx):
-        ky, shy = ky0, sy0
-        for _ in range(ny):
-            cell = kx + ncx * ky
-            for q in range(cstart[cell], cstart[cell + 1]):
-                k = citems[q]
-                px, py = ox[k] + shx, oy[k] + shy
-                if (x0 <= px <= x1 and y0 <= py <= y1 and opin[k] <= 0
-                        and _in_triangle(px, py, ax, ay, bx, by, cx, cy)):
-                    return True
-            ky += 1
-            if ky == ncy:
-                ky, shy = 0, shy + Ly
-        kx += 1
-        if kx == ncx:
-            kx, shx = 0, shx + Lx
+    return kx0, sx0, nx, ky0, sy0, ny, nx * ny
+
+
+@njit(inline="always", **JIT)
+def _wrapped_axis(k0, s0, step, ncell, period):
+    """Cell ``k0 + step`` of a periodic axis and its shift, the shift grown by one period at each
+    wrap (added one period at a time, as a walk cell by cell would)."""
+    k, shift = k0 + step, s0
+    while k >= ncell:
+        k -= ncell
+        shift += period
+    return k, shift
+
+
+@njit(inline="always", **JIT)
+def _walk_cell(walk, t, field):
+    """Cell index and image shifts (shx, shy) of the t-th cell of ``walk`` (:func:`_cell_walk`)."""
+    kx0, sx0, _, ky0, sy0, ny, _ = walk
+    ncx, ncy, Lx, Ly = field[6], field[7], field[8], field[9]
+    if ny == 1:     # most boxes lie in one row of cells: no integer division
+        ix, iy = t, 0
+    else:
+        ix, iy = t // ny, t % ny
+    kx, shx = _wrapped_axis(kx0, sx0, ix, ncx, Lx)
+    ky, shy = _wrapped_axis(ky0, sy0, iy, ncy, Ly)
+    return kx + ncx * ky, shx, shy
+
+
+@njit(**JIT)
+def free_obstacle_in_triangle(ax, ay, bx, by, cx, cy, field):
+    """Whether some free obstacle (``opin == 0``; any periodic image) lies in the triangle abc."""
+    ox, oy, _, opin, cstart, citems = field[0], field[1], field[2], field[3], field[4], field[5]
+    x0, x1 = min(ax, min(bx, cx)), max(ax, max(bx, cx))
+    y0, y1 = min(ay, min(by, cy)), max(ay, max(by, cy))
+    walk = _cell_walk(x0, x1, y0, y1, field)
+    for t in range(walk[6]):
+        cell, shx, shy = _walk_cell(walk, t, field)
+        for q in range(cstart[cell], cstart[cell + 1]):
+            k = citems[q]
+            px, py = ox[k] + shx, oy[k] + shy
+            if (x0 <= px <= x1 and y0 <= py <= y1 and opin[k] <= 0
+                    and _in_triangle(px, py, ax, ay, bx, by, cx, cy)):
+                return True
     return False
 
 
 @njit(inline="always", **JIT)
-def _capture_in_quad(i, x0, y0, x1, y1, x2, y2, x3, y3, skip_a, skip_b, ox, oy, opin, cstart,
-                     citems, ncx, ncy, Lx, Ly, ncap, cap_seg, cap_s, cap_obs, cap_x, cap_y):
-    """Record the free obstacles inside the quadrilateral 0-1-2-3 swept by segment i.
+def _capture_in_quad(i, quad, skip_a, skip_b, field, ncap, captures):
+    """Record the free obstacles inside the quadrilateral ``quad`` swept by segment i.
 
-    The quadrilateral is old(i), old(i+1), new(i+1), new(i), tested as the closed triangles
-    (0, 1, 2) and (0, 2, 3); obstacles are found in the cells its bounding box covers, at their
-    image inside that box.  Held obstacles, ``skip_a``/``skip_b`` (just left by an end node) and
-    obstacles already recorded are skipped.  Returns the new capture count.
+    ``quad`` = (x0, y0, x1, y1, x2, y2, x3, y3): old(i), old(i+1), new(i+1), new(i), tested as the
+    closed triangles (0, 1, 2) and (0, 2, 3); obstacles are found in the cells its bounding box
+    covers, at their image inside that box.  Held obstacles, ``skip_a``/``skip_b`` (just left by
+    an end node) and obstacles already recorded are skipped.  ``captures`` = (segment, position
+    along the new segment, obstacle, x, y) lists.  Returns the new capture count.
     """
+    ox, oy, _, opin, cstart, citems = field[0], field[1], field[2], field[3], field[4], field[5]
+    cap_seg, cap_s, cap_obs, cap_x, cap_y = captures
+    x0, y0, x1, y1, x2, y2, x3, y3 = quad
     xmin, xmax = min(min(x0, x1), min(x2, x3)), max(max(x0, x1), max(x2, x3))
     ymin, ymax = min(min(y0, y1), min(y2, y3)), max(max(y0, y1), max(y2, y3))
-    kx0, sx0, nx = _cell_span(xmin, xmax, Lx, ncx)
-    ky0, sy0, ny = _cell_span(ymin, ymax, Ly, ncy)
-    kx, shx = kx0, sx0
-    for _ in range(nx):
-        ky, shy = ky0, sy0
-        for _ in range(ny):
-            cell = kx + ncx * ky
-            for q in range(cstart[cell], cstart[cell + 1]):
-                k = citems[q]
-                px, py = ox[k] + shx, oy[k] + shy
-                if px < xmin or px > xmax or py < ymin or py > ymax:
-                    continue
-                if opin[k] > 0 or k == skip_a or k == skip_b:
-                    continue
-                if not (_in_triangle(px, py, x0, y0, x1, y1, x2, y2)
-                        or _in_triangle(px, py, x0, y0, x2, y2, x3, y3)):
-                    continue
-                dup = False
-                for m in range(ncap):
-                    dup |= cap_obs[m] == k
-                if dup or ncap >= cap_obs.shape[0]:
-                    continue
-                ex, ey = x2 - x3, y2 - y3
-                ee = ex * ex + ey * ey
-                cap_seg[ncap] = i
-                cap_s[ncap] = 0.5 if ee == 0.0 else ((px - x3) * ex + (py - y3) * ey) / ee
-                cap_obs[ncap], cap_x[ncap], cap_y[ncap] = k, px, py
-                ncap += 1
-            ky += 1
-            if ky == ncy:
-                ky, shy = 0, shy + Ly
-        kx += 1
-        if kx == ncx:
-            kx, shx = 0, shx + Lx
+    walk = _cell_walk(xmin, xmax, ymin, ymax, field)
+    for t in range(walk[6]):
+        cell, shx, shy = _walk_cell(walk, t, field)
+        for q in range(cstart[cell], cstart[cell + 1]):
+            k = citems[q]
+            px, py = ox[k] + shx, oy[k] + shy
+            if px < xmin or px > xmax or py < ymin or py > ymax:
+                continue
+            if opin[k] > 0 or k == skip_a or k == skip_b:
+                continue
+            if not (_in_triangle(px, py, x0, y0, x1, y1, x2, y2)
+                    or _in_triangle(px, py, x0, y0, x2, y2, x3, y3)):
+                continue
+            dup = False
+            for m in range(ncap):
+                dup |= cap_obs[m] == k
+            if dup or ncap >= cap_obs.shape[0]:
+                continue
+            ex, ey = x2 - x3, y2 - y3
+            ee = ex * ex + ey * ey
+            cap_seg[ncap] = i
+            cap_s[ncap] = 0.5 if ee == 0.0 else ((px - x3) * ex + (py - y3) * ey) / ee
+            cap_obs[ncap], cap_x[ncap], cap_y[ncap] = k, px, py
+            ncap += 1
     return ncap
 
 
 @njit(**JIT)
-def _clearance(px, py, reach, ox, oy, opin, cstart, citems, ncx, ncy, Lx, Ly):
+def _clearance(px, py, reach, field):
     """Distance from (px, py) to the nearest free obstacle (any image), capped at ``reach``.
 
     ``reach`` must not exceed one cell of the list, so the cells scanned hold every obstacle
     closer than it.
     """
+    ox, oy, _, opin, cstart, citems = field[0], field[1], field[2], field[3], field[4], field[5]
     best = reach * reach
-    kx0, sx0, nx = _cell_span(px - reach, px + reach, Lx, ncx)
-    ky0, sy0, ny = _cell_span(py - reach, py + reach, Ly, ncy)
-    kx, shx = kx0, sx0
-    for _ in range(nx):
-        ky, shy = ky0, sy0
-        for _ in range(ny):
-            cell = kx + ncx * ky
-            for q in range(cstart[cell], cstart[cell + 1]):
-                k = citems[q]
-                dx, dy = ox[k] + shx - px, oy[k] + shy - py
-                d2 = dx * dx + dy * dy
-                if d2 < best and opin[k] <= 0:
-                    best = d2
-            ky += 1
-            if ky == ncy:
-                ky, shy = 0, shy + Ly
-        kx += 1
-        if kx == ncx:
-            kx, shx = 0, shx + Lx
+    walk = _cell_walk(px - reach, px + reach, py - reach, py + reach, field)
+    for t in range(walk[6]):
+        cell, shx, shy = _walk_cell(walk, t, field)
+        for q in range(cstart[cell], cstart[cell + 1]):
+            k = citems[q]
+            dx, dy = ox[k] + shx - px, oy[k] + shy - py
+            d2 = dx * dx + dy * dy
+            if d2 < best and opin[k] <= 0:
+                best = d2
     return np.sqrt(best)
 
 
@@ -421,43 +395,55 @@ def _step_factor(vx, vy, k, dt, cap2):
     return h
 
 
+@njit(inline="always", **JIT)
+def _captures(work_f, work_i):
+    """The capture lists of one step, views of their work rows: (segment, position along the new
+    segment, obstacle, x, y of its image)."""
+    mc = MAX_CAPTURES
+    return (work_i[I_CAPTURE, :mc], work_f[W_CAPTURE, :mc], work_i[I_CAPTURE, mc:2 * mc],
+            work_f[W_CAPTURE, mc:2 * mc], work_f[W_CAPTURE, 2 * mc:3 * mc])
+
+
 @njit(**JIT)
-def move_and_capture(x, y, n, pin, ign, vx, vy, stiff, dt, ox, oy, opin, cstart, citems, ncx,
-                     ncy, prm, rx, ry, rad, cap_seg, cap_s, cap_obs, cap_x, cap_y):
+def move_and_capture(line, n, dt, prm, field, work_f, work_i):
     """Advance every node by ``v dt / (1 + k dt)`` and list the obstacles the segments sweep.
 
-    ``k = stiff`` is each node's line-tension stiffness (per time unit, from :func:`node_pass`;
-    zero gives plain explicit Euler), see STEP_STIFFNESS; no node moves more than
-    MAX_MOVE_FRACTION l_min.  No obstacle is tunnelled through:
+    ``v`` is rows W_VX, W_VY and ``k`` row W_FPIN at free nodes, each node's line-tension stiffness
+    (per time unit, from :func:`node_pass`; zero gives plain explicit Euler), see STEP_STIFFNESS;
+    no node moves more than MAX_MOVE_FRACTION l_min.  No obstacle is tunnelled through:
 
     The area segment i sweeps is the quadrilateral old(i), old(i+1), new(i+1), new(i)
     (:func:`_capture_in_quad`); segments with both ends at rest sweep nothing.  Obstacles come
-    from a periodic cell list (``cstart``/``citems``, CSR over ``ncx × ncy`` cells of the box).
+    from the periodic cell list of ``field``.
 
     Most segments are far from every free obstacle, and most steps move them by a small fraction of
-    that distance, so each node keeps a disc free of obstacles: centre ``rx, ry`` (where its
-    clearance was measured) and radius ``rad`` (the clearance less ``h = l_max/2``).  A point of the
+    that distance, so each node keeps a disc free of obstacles: centre W_RX, W_RY (where its
+    clearance was measured) and radius W_RAD (the clearance less ``h = l_max/2``).  A point of the
     area a segment no longer than l_max before and after the step sweeps lies within ``h`` of one
     end's path (the segment's length along the way is at most the larger of the two), and each
     path, a straight step from a position inside the disc, stays inside it (discs are convex); so
     when both ends end the step inside their discs the segment sweeps no obstacle and its exact
-    test is skipped.  A node outside its
-    disc (or with ``rad = UNKNOWN``) measures its clearance again at its new position, except that
-    a node nearer than ``h`` to an obstacle waits until it has moved REFRESH_FRACTION l_min (its
-    segments are tested exactly meanwhile).  Callers set ``rad = UNKNOWN`` wherever nodes are
-    created or moved other than here and everywhere when an obstacle becomes free.  Each node is
-    moved right after the segment it starts has been tested, so the line is read once.  The
-    captures are not inserted here (:func:`insert_pins`).
+    test is skipped.  A node outside its disc (or with radius UNKNOWN) measures its clearance
+    again at its new position, except that a node nearer than ``h`` to an obstacle waits until it
+    has moved REFRESH_FRACTION l_min (its segments are tested exactly meanwhile).  Callers set the
+    radius to UNKNOWN wherever nodes are created or moved other than here and everywhere when an
+    obstacle becomes free.  Each node is moved right after the segment it starts has been tested,
+    so the line is read once.  The captures go to the capture rows (:func:`_captures`), not yet
+    into the line (:func:`insert_pins`).
 
     Returns
     -------
     ncap : int
-        Number of captures written to ``cap_*`` (segment, position along the new segment,
-        obstacle, x, y of its image).
+        Number of captures written.
     first_bad : int
         The first segment out of its bounds after the move, as in :func:`node_pass` (-1: none).
     """
-    Lx, Ly, lmin, lmax = prm[P_LX], prm[P_LY], prm[P_LMIN], prm[P_LMAX]
+    x, y, pin, ign = line
+    vx, vy, stiff = work_f[W_VX], work_f[W_VY], work_f[W_FPIN]
+    rx, ry, rad = work_f[W_RX], work_f[W_RY], work_f[W_RAD]
+    captures = _captures(work_f, work_i)
+    ncx, ncy = field[6], field[7]
+    Lx, Ly, lmin, lmax = prm.Lx, prm.Ly, prm.l_min, prm.l_max
     lmin2 = lmin * lmin
     first_bad = -1
     reach = min(Lx / ncx, Ly / ncy)
@@ -492,25 +478,24 @@ def move_and_capture(x, y, n, pin, ign, vx, vy, stiff, dt, ox, oy, opin, cstart,
         if vxa != 0.0 or vya != 0.0 or vxb != 0.0 or vyb != 0.0:
             ex, ey = xb - xa, yb - ya
             if not (safe_a and safe_b) or ex * ex + ey * ey > lmax2 or f2 > lmax2:
-                ncap = _capture_in_quad(i, xa, ya, xb, yb, xb_new, yb_new, xa_new, ya_new, ga, gb,
-                                        ox, oy, opin, cstart, citems, ncx, ncy, Lx, Ly, ncap,
-                                        cap_seg, cap_s, cap_obs, cap_x, cap_y)
+                ncap = _capture_in_quad(i, (xa, ya, xb, yb, xb_new, yb_new, xa_new, ya_new),
+                                        ga, gb, field, ncap, captures)
         x[i], y[i] = xa_new, ya_new
         if not safe_a:
             r = rad[i]
             dx, dy = xa_new - rx[i], ya_new - ry[i]
             if r > 0.0 or r == UNKNOWN or dx * dx + dy * dy > wait2:
                 rx[i], ry[i] = xa_new, ya_new
-                rad[i] = _clearance(xa_new, ya_new, reach, ox, oy, opin, cstart, citems,
-                                    ncx, ncy, Lx, Ly) - half
+                rad[i] = _clearance(xa_new, ya_new, reach, field) - half
         xa, ya, vxa, vya, ga, pa = xb, yb, vxb, vyb, gb, pb
         xa_new, ya_new, safe_a = xb_new, yb_new, safe_b
     return ncap, first_bad
 
 
 @njit(**JIT)
-def _sort_captures(ncap, cap_seg, cap_s, cap_obs, cap_x, cap_y):
+def _sort_captures(ncap, captures):
     """Order captures by segment, then by position along it (insertion sort: ncap is small)."""
+    cap_seg, cap_s, cap_obs, cap_x, cap_y = captures
     for a in range(1, ncap):
         b = a
         while b > 0 and (cap_seg[b - 1] > cap_seg[b]
@@ -524,17 +509,21 @@ def _sort_captures(ncap, cap_seg, cap_s, cap_obs, cap_x, cap_y):
 
 
 @njit(**JIT)
-def insert_pins(x, y, pin, ign, n, ncap, cap_seg, cap_s, cap_obs, cap_x, cap_y, opin,
-                rx, ry, rad, far):
+def insert_pins(line, n, ncap, opin, work_f, work_i):
     """Insert a pinned node at every captured obstacle, in place; return the new node count.
 
-    Each capture becomes a node after the start of its segment, in order along the segment; the
-    arrays must hold ``n + ncap`` nodes.  The line is shifted from its end backwards, so no buffer
-    is needed; the clearances ``rx, ry, rad`` (:func:`move_and_capture`) and the non-local
-    self-stress ``far`` (:func:`model_forces`) move with their nodes, a new pin taking the value
-    of its segment's start.
+    Each capture (:func:`_captures`) becomes a node after the start of its segment, in order along
+    the segment; the arrays must hold ``n + ncap`` nodes.  The line is shifted from its end
+    backwards, so no buffer is needed; the clearances (rows W_RX, W_RY, W_RAD,
+    :func:`move_and_capture`) and the non-local self-stress (W_FAR, :func:`model_forces`) move
+    with their nodes, a new pin taking the value of its segment's start.  ``opin`` counts the new
+    holders.
     """
-    _sort_captures(ncap, cap_seg, cap_s, cap_obs, cap_x, cap_y)
+    x, y, pin, ign = line
+    rx, ry, rad, far = work_f[W_RX], work_f[W_RY], work_f[W_RAD], work_f[W_FAR]
+    captures = _captures(work_f, work_i)
+    _sort_captures(ncap, captures)
+    cap_seg, _, cap_obs, cap_x, cap_y = captures
     dst = n + ncap - 1
     c = ncap - 1
     for i in range(n - 1, -1, -1):
@@ -573,8 +562,7 @@ def _node_curvature(x, y, n, pin, i, Lx):
 
 
 @njit(**JIT)
-def remesh(x, y, pin, ign, n, prm, first_bad, bx, by, bpin, bign, src, keep, ox, oy, opin,
-           cstart, citems, ncx, ncy):
+def remesh(line, n, prm, first_bad, field, work_f, work_i):
     """Keep every segment length within [l_min, l_max], in place; return (node count, lo).
 
     A free node is removed when one of its arms is shorter than l_min; pinned nodes are never
@@ -583,18 +571,22 @@ def remesh(x, y, pin, ign, n, prm, first_bad, bx, by, bpin, bign, src, keep, ox,
     the circular arc whose curvature is the mean of the free end nodes' three-point curvatures (so
     remeshing does not flatten a bowed line).  Remeshing moves the line a little (a removed node's
     corner is cut, an arc bulges off its chord); where that would carry the line across a free
-    obstacle (``ox, oy, opin`` and the periodic cell list, as in :func:`move_and_capture`) the node
-    is kept, or the new nodes go on the chord, so that remeshing never tunnels.
+    obstacle of ``field`` the node is kept, or the new nodes go on the chord, so that remeshing
+    never tunnels.
 
     Segments before ``first_bad`` (from :func:`node_pass`; 0 redoes the whole line) are within
     bounds, so the nodes before ``lo = first_bad - 1`` stay where they are and only the rest of
-    the line is rebuilt, through the scratch arrays ``bx, by, bpin, bign`` (``keep``: int64
-    scratch).  The seam is no special place: when node 0 may have to go (its arm across the seam
-    is short) the whole line is redone, and shifted by a period if need be so that node 0 lies in
-    [0, Lx).  ``src[lo:m]`` receives the old index of each rebuilt node (-1 for an inserted node,
-    and for every node when the line was shifted).
+    the line is rebuilt, through the scratch rows W_BX, W_BY, I_BPIN, I_BIGN (I_KEEP marks the
+    nodes kept).  The seam is no special place: when node 0 may have to go (its arm across the
+    seam is short) the whole line is redone, and shifted by a period if need be so that node 0
+    lies in [0, Lx).  Row I_SRC receives in ``lo:m`` the old index of each rebuilt node (-1 for
+    an inserted node, and for every node when the line was shifted).
     """
-    lmin, lmax, Lx, Ly = prm[P_LMIN], prm[P_LMAX], prm[P_LX], prm[P_LY]
+    x, y, pin, ign = line
+    keep = work_i[I_KEEP]
+    copy = (work_f[W_BX], work_f[W_BY], work_i[I_BPIN], work_i[I_BIGN], work_i[I_SRC])
+    bx, by, bpin, bign, src = copy
+    lmin, lmax, Lx = prm.l_min, prm.l_max, prm.Lx
     lmin2 = lmin * lmin
     seam_short = pin[0] < 0 and _dist2(x[0] + Lx - x[n - 1], y[0] - y[n - 1]) < lmin2
     lo = first_bad - 1 if first_bad >= 1 and not seam_short else 0
@@ -611,8 +603,7 @@ def remesh(x, y, pin, ign, n, prm, first_bad, bx, by, bpin, bign, src, keep, ox,
             da = _dist2(x[i] - x[last], y[i] - y[last])
             db = _dist2(x[nxt] + sh - x[i], y[nxt] - y[i])
             if (da < lmin2 or db < lmin2) and not free_obstacle_in_triangle(
-                    x[last], y[last], x[i], y[i], x[nxt] + sh, y[nxt], ox, oy, opin, cstart,
-                    citems, ncx, ncy, Lx, Ly):
+                    x[last], y[last], x[i], y[i], x[nxt] + sh, y[nxt], field):
                 keep[i] = 0
                 removed += 1
                 continue
@@ -624,8 +615,7 @@ def remesh(x, y, pin, ign, n, prm, first_bad, bx, by, bpin, bign, src, keep, ox,
         da = _dist2(x[0] + Lx - x[last], y[0] - y[last])
         db = _dist2(x[first] - x[0], y[first] - y[0])
         if (da < lmin2 or db < lmin2) and not free_obstacle_in_triangle(
-                x[last] - Lx, y[last], x[0], y[0], x[first], y[first], ox, oy, opin, cstart,
-                citems, ncx, ncy, Lx, Ly):
+                x[last] - Lx, y[last], x[0], y[0], x[first], y[first], field):
             keep[0] = 0
     head = lo if keep[lo] == 1 else first     # new node 0 when lo = 0, else node lo itself
     wrap = Lx if lo == 0 and x[head] >= Lx else 0.0
@@ -645,8 +635,8 @@ def remesh(x, y, pin, ign, n, prm, first_bad, bx, by, bpin, bign, src, keep, ox,
         m += 1
         ex, ey = x[j] + sh - x[i], y[j] - y[i]
         if ex * ex + ey * ey > lmax * lmax:
-            m = _split_segment(x, y, n, pin, i, j, ex, ey, np.sqrt(ex * ex + ey * ey), prm, wrap,
-                               bx, by, bpin, bign, src, m, ox, oy, opin, cstart, citems, ncx, ncy)
+            m = _split_segment(line, n, i, j, (ex, ey, np.sqrt(ex * ex + ey * ey)), prm, wrap,
+                               copy, m, field)
         if closing:
             break
         i = j
@@ -656,14 +646,15 @@ def remesh(x, y, pin, ign, n, prm, first_bad, bx, by, bpin, bign, src, keep, ox,
 
 
 @njit(**JIT)
-def _split_segment(x, y, n, pin, i, j, ex, ey, length, prm, wrap, bx, by, bpin, bign, src, m,
-                   ox, oy, opin, cstart, citems, ncx, ncy):
-    """Write the free nodes that split the long segment i -> i + e at m on; return the next m."""
-    Lx, Ly, lmax = prm[P_LX], prm[P_LY], prm[P_LMAX]
-    parts = int(np.ceil(length / lmax))
-    kappa = _split_curvature(x, y, n, pin, i, j, Lx, length)
-    if kappa != 0.0 and _arc_crosses_obstacle(x[i], y[i], ex, ey, length, kappa, parts,
-                                              ox, oy, opin, cstart, citems, ncx, ncy, Lx, Ly):
+def _split_segment(line, n, i, j, chord, prm, wrap, copy, m, field):
+    """Write the free nodes that split the long segment i -> i + e (``chord`` = (ex, ey, |e|))
+    into ``copy`` = (x, y, pin, ign, src) rows at m on; return the next m."""
+    x, y, pin, _ = line
+    bx, by, bpin, bign, src = copy
+    ex, ey, length = chord
+    parts = int(np.ceil(length / prm.l_max))
+    kappa = _split_curvature(x, y, n, pin, i, j, prm.Lx, length)
+    if kappa != 0.0 and _arc_crosses_obstacle(x[i], y[i], chord, kappa, parts, field):
         kappa = 0.0
     nx, ny = -ey / length, ex / length
     for p in range(1, parts):
@@ -693,13 +684,13 @@ def _split_curvature(x, y, n, pin, i, j, Lx, length):
 
 
 @njit(**JIT)
-def _arc_crosses_obstacle(xi, yi, ex, ey, length, kappa, parts, ox, oy, opin, cstart, citems,
-                          ncx, ncy, Lx, Ly):
+def _arc_crosses_obstacle(xi, yi, chord, kappa, parts, field):
     """Whether a free obstacle lies between the chord r_i -> r_i + e and the split arc's polygon.
 
-    The region is the fan of triangles (r_i, p_k, p_k+1) over the arc points p_1 .. p_parts
-    (p_parts = r_i + e), convex for a circular arc.
+    ``chord`` = (ex, ey, |e|).  The region is the fan of triangles (r_i, p_k, p_k+1) over the arc
+    points p_1 .. p_parts (p_parts = r_i + e), convex for a circular arc.
     """
+    ex, ey, length = chord
     nx, ny = -ey / length, ex / length
     px, py = xi + ex / parts, yi + ey / parts
     off = -0.5 * kappa * length * length * (1.0 / parts) * (1.0 - 1.0 / parts)
@@ -708,8 +699,7 @@ def _arc_crosses_obstacle(xi, yi, ex, ey, length, kappa, parts, ox, oy, opin, cs
         u = p / parts
         off = -0.5 * kappa * length * length * u * (1.0 - u)
         qx, qy = xi + u * ex + off * nx, yi + u * ey + off * ny
-        if free_obstacle_in_triangle(xi, yi, px, py, qx, qy, ox, oy, opin, cstart, citems,
-                                     ncx, ncy, Lx, Ly):
+        if free_obstacle_in_triangle(xi, yi, px, py, qx, qy, field):
             return True
         px, py = qx, qy
     return False
@@ -745,13 +735,13 @@ def _pow2_at_most(value):
 
 
 @njit(**JIT)
-def find_contact(x, y, n, pin, ntx, nty, prm, head, nxt):
+def find_contact(line, n, prm, work_f, work_i):
     """A pair of free nodes (i, j), i < j, on parts of the line of opposite sense in contact.
 
     The first pair :func:`find_contacts` finds; (-1, -1) when there is none.
     """
     ci, cj = np.empty(1, np.int64), np.empty(1, np.int64)
-    if find_contacts(x, y, n, pin, ntx, nty, prm, head, nxt, ci, cj) == 0:
+    if find_contacts(line, n, prm, work_f, work_i, ci, cj) == 0:
         return -1, -1
     return ci[0], cj[0]
 
@@ -775,21 +765,24 @@ def _wrapped(pin, n, i, j):
 
 
 @njit(**JIT)
-def find_contacts(x, y, n, pin, ntx, nty, prm, head, nxt, ci, cj):
+def find_contacts(line, n, prm, work_f, work_i, ci, cj):
     """Pairs of free nodes (i, j), i < j, on parts of the line of opposite sense in contact.
 
     Node i touches node j's part of the line when it lies within the annihilation distance of one
     of j's two segments, the two are at least RECONNECT_MIN_SEPARATION
     nodes apart along the line (or wrapped round obstacles between, RECONNECT_MIN_PINS) and their
-    tangents are closer to antiparallel than RECONNECT_COS.  Two tangents more than 120°
-    apart cannot both lie within 60° of +x, so only nodes with t_x < 1/2 need to look (most of a
-    gliding line does not).  Candidates come from a hashed cell list over the free nodes, with
-    power-of-two cell counts so that wrapping is a bit mask (``head``: cells, ``nxt``: nodes; work
-    arrays).  Each looking node contributes the first partner it finds; the pairs go to ``ci, cj``
-    until they are full.  Returns the number of pairs.
+    chord tangents (rows W_NTX, W_NTY, :func:`node_pass`) are closer to antiparallel than
+    RECONNECT_COS; only nodes with t_x < TURNED_TX need to look (most of a gliding line does
+    not).  Candidates come from a hashed cell list over the free nodes, with power-of-two cell
+    counts so that wrapping is a bit mask (rows I_HEAD: cells, I_NEXT: nodes).  Each looking node
+    contributes the first partner it finds; the pairs go to ``ci, cj`` until they are full.
+    Returns the number of pairs.
     """
-    Lx, dann = prm[P_LX], prm[P_DANN]
-    hc = prm[P_LMAX] + dann
+    x, y, pin, _ = line
+    ntx, nty = work_f[W_NTX], work_f[W_NTY]
+    head, nxt = work_i[I_HEAD], work_i[I_NEXT]
+    Lx, dann = prm.Lx, prm.d_ann
+    hc = prm.l_max + dann
     ncx = _pow2_at_most(Lx / hc)
     ncy = _pow2_at_most(max(1.0, min(head.shape[0] / ncx, 2.0 * n / ncx + 1.0)))
     mx, my = ncx - 1, ncy - 1
@@ -804,7 +797,7 @@ def find_contacts(x, y, n, pin, ntx, nty, prm, head, nxt, ci, cj):
     d2max = dann * dann
     count = 0
     for i in range(n):
-        if pin[i] >= 0 or ntx[i] >= 0.5:
+        if pin[i] >= 0 or ntx[i] >= TURNED_TX:
             continue
         ix0 = int(np.floor(x[i] * inv_cw))
         iy0 = int(np.floor(y[i] * inv_hc))
@@ -840,7 +833,7 @@ def find_contacts(x, y, n, pin, ntx, nty, prm, head, nxt, ci, cj):
 
 
 @njit(**JIT)
-def _cut_crosses_obstacle(x, y, n, i, j, shift, Lx, Ly, ox, oy, opin, cstart, citems, ncx, ncy):
+def _cut_crosses_obstacle(x, y, n, i, j, shift, field):
     """Whether a free obstacle lies in the corner a reconnection of i and j cuts (i's frame).
 
     The corner is the polygon i-1, i, i+1, j-1, j, j+1, m (m the joining midpoint) or, across the
@@ -848,6 +841,7 @@ def _cut_crosses_obstacle(x, y, n, i, j, shift, Lx, Ly, ox, oy, opin, cstart, ci
     m over its other edges covers it (the winding number of the polygon about any inside point is
     the sum of the fan triangles').
     """
+    Lx = field[8]
     ixm, iym, ixp, iyp = _neighbours(x, y, n, i, Lx)
     jxm, jym, jxp, jyp = _neighbours(x, y, n, j, Lx)
     jx = x[j] - shift
@@ -858,70 +852,81 @@ def _cut_crosses_obstacle(x, y, n, i, j, shift, Lx, Ly, ox, oy, opin, cstart, ci
     for k in range(5):
         a = k if shift == 0.0 or k < 2 else k + 1    # across the seam: skip (i+1, j-1) ...
         b = (a + 1) % 6                                # ... and close with (j+1, i-1)
-        if free_obstacle_in_triangle(mx, my, px[a], py[a], px[b], py[b], ox, oy, opin,
-                                     cstart, citems, ncx, ncy, Lx, Ly):
+        if free_obstacle_in_triangle(mx, my, px[a], py[a], px[b], py[b], field):
             return True
     return False
 
 
 @njit(**JIT)
-def _obstacle_in_loop(x, y, n, lo, hi, shift, Lx, Ly, ox, oy, opin, cstart, citems, ncx, ncy):
+def _obstacle_in_loop(x, y, n, lo, hi, shift, field):
     """Whether a free obstacle lies inside the closed loop of nodes lo..hi (indices mod n, the
     nodes past n shifted by ``shift``): crossing number of a ray in +x over the loop's edges."""
+    ox, oy, _, opin, cstart, citems = field[0], field[1], field[2], field[3], field[4], field[5]
     x0, x1, y0, y1 = np.inf, -np.inf, np.inf, -np.inf
     for q in range(lo, hi + 1):
         qx = x[q % n] + (shift if q >= n else 0.0)
         x0, x1, y0, y1 = min(x0, qx), max(x1, qx), min(y0, y[q % n]), max(y1, y[q % n])
-    kx0, sx0, nx = _cell_span(x0, x1, Lx, ncx)
-    ky0, sy0, ny = _cell_span(y0, y1, Ly, ncy)
-    kx, shx = kx0, sx0
-    for _ in range(nx):
-        ky, shy = ky0, sy0
-        for _ in range(ny):
-            cell = kx + ncx * ky
-            for c in range(cstart[cell], cstart[cell + 1]):
-                k = citems[c]
-                px, py = ox[k] + shx, oy[k] + shy
-                if opin[k] > 0 or px < x0 or px > x1 or py < y0 or py > y1:
-                    continue
-                inside = False
-                for q in range(lo, hi + 1):
-                    r = q + 1 if q < hi else lo
-                    ax, ay = x[q % n] + (shift if q >= n else 0.0), y[q % n]
-                    bx, by = x[r % n] + (shift if r >= n else 0.0), y[r % n]
-                    if (ay > py) != (by > py) and px < ax + (py - ay) * (bx - ax) / (by - ay):
-                        inside = not inside
-                if inside:
-                    return True
-            ky += 1
-            if ky == ncy:
-                ky, shy = 0, shy + Ly
-        kx += 1
-        if kx == ncx:
-            kx, shx = 0, shx + Lx
+    walk = _cell_walk(x0, x1, y0, y1, field)
+    for t in range(walk[6]):
+        cell, shx, shy = _walk_cell(walk, t, field)
+        for c in range(cstart[cell], cstart[cell + 1]):
+            k = citems[c]
+            px, py = ox[k] + shx, oy[k] + shy
+            if opin[k] > 0 or px < x0 or px > x1 or py < y0 or py > y1:
+                continue
+            inside = False
+            for q in range(lo, hi + 1):
+                r = q + 1 if q < hi else lo
+                ax, ay = x[q % n] + (shift if q >= n else 0.0), y[q % n]
+                bx, by = x[r % n] + (shift if r >= n else 0.0), y[r % n]
+                if (ay > py) != (by > py) and px < ax + (py - ay) * (bx - ax) / (by - ay):
+                    inside = not inside
+            if inside:
+                return True
     return False
 
 
 @njit(**JIT)
-def reconnect(x, y, pin, ign, n, i, j, Lx, Ly, meta, lx, ly, lpin, loff, rx, ry, rad,
-              ox, oy, opin, cstart, citems, ncx, ncy):
+def _store_loop(x, y, pin, n, lo, hi, shift, meta, loops):
+    """Append nodes lo..hi (mod n, past n shifted by ``shift``) as a loop; False if the buffers
+    are full (then nothing is stored)."""
+    lx, ly, lpin, loff = loops
+    nl, used = meta[M_NLOOPS], meta[M_NLOOPNODES]
+    if used + (hi - lo + 1) > lx.shape[0] or nl + 2 > loff.shape[0]:
+        return False
+    for q in range(lo, hi + 1):
+        k = q % n
+        lx[used] = x[k] + (shift if q >= n else 0.0)
+        ly[used] = y[k]
+        lpin[used] = pin[k]
+        used += 1
+    loff[nl + 1] = used
+    meta[M_NLOOPS] = nl + 1
+    meta[M_NLOOPNODES] = used
+    return True
+
+
+@njit(**JIT)
+def reconnect(line, n, i, j, meta, loops, field, work_f):
     """Join two parts of opposite sense at nodes i < j, cutting off a closed loop.
 
     The line is rebuilt in place as ``[..i-1, m, j+1..]`` (m the midpoint of i and j) and the part
     between them, ``[i+1 .. j-1]``, becomes a closed loop; where the contact lies across the
     periodic seam (node j is node i's neighbour one period on) it is the other way round.  A loop
-    holding a pinned node is stored in the loop buffers (CSR: ``lx, ly, lpin`` with offsets
-    ``loff``): an Orowan loop left around its obstacles, which stay held.  A loop holding none is
-    dropped (under line tension alone it would shrink away).  Returns the new node count; ``n``
-    unchanged when the contact is not a reconnection (folded across the seam backwards), -1 when
-    the loop buffers are full (nothing changed).  The clearances ``rx, ry, rad`` (:func:`move_and_capture`) move with
-    their nodes; the joining node's is unknown.
+    holding a pinned node is stored in ``loops`` (CSR, dlsim.contract): an Orowan loop left around
+    its obstacles, which stay held.  A loop holding none is dropped (under line tension alone it
+    would shrink away).  Returns the new node count; ``n`` unchanged when the contact is not a
+    reconnection (folded across the seam backwards), -1 when the loop buffers are full (nothing
+    changed).  The clearances (rows W_RX, W_RY, W_RAD, :func:`move_and_capture`) move with their
+    nodes; the joining node's is unknown.
 
     Reconnection must not tunnel either: it is refused (``n`` returned, nothing changed) while a
-    free obstacle (``ox, oy, opin`` and the periodic cell list) lies in the corner it cuts, the
-    polygon i-1, i, i+1, j-1, j, j+1, m, or inside a loop that would be dropped.  The line then
-    moves on, sweeps and captures that obstacle, and reconnects later around it.
+    free obstacle of ``field`` lies in the corner it cuts, the polygon i-1, i, i+1, j-1, j, j+1, m,
+    or inside a loop that would be dropped.  The line then moves on, sweeps and captures that
+    obstacle, and reconnects later around it.
     """
+    x, y, pin, ign = line
+    Lx = field[8]
     shift = Lx * np.floor((x[j] - x[i]) / Lx + 0.5)
     if shift < 0.0:
         return n
@@ -933,24 +938,20 @@ def reconnect(x, y, pin, ign, n, i, j, Lx, Ly, meta, lx, ly, lpin, loff, rx, ry,
     for q in range(lo, hi + 1):
         if pin[q % n] >= 0:
             has_pin = True
-    if _cut_crosses_obstacle(x, y, n, i, j, shift, Lx, Ly, ox, oy, opin, cstart, citems, ncx, ncy):
+    if _cut_crosses_obstacle(x, y, n, i, j, shift, field):
         return n
-    if not has_pin and _obstacle_in_loop(x, y, n, lo, hi, shift, Lx, Ly, ox, oy, opin, cstart,
-                                         citems, ncx, ncy):
+    if not has_pin and _obstacle_in_loop(x, y, n, lo, hi, shift, field):
         return n
-    if has_pin:
-        nl, used = meta[M_NLOOPS], meta[M_NLOOPNODES]
-        if used + (hi - lo + 1) > lx.shape[0] or nl + 2 > loff.shape[0]:
-            return -1
-        for q in range(lo, hi + 1):
-            k = q % n
-            lx[used] = x[k] + (shift if q >= n else 0.0)
-            ly[used] = y[k]
-            lpin[used] = pin[k]
-            used += 1
-        loff[nl + 1] = used
-        meta[M_NLOOPS] = nl + 1
-        meta[M_NLOOPNODES] = used
+    if has_pin and not _store_loop(x, y, pin, n, lo, hi, shift, meta, loops):
+        return -1
+    return _join(line, n, i, j, shift, work_f)
+
+
+@njit(**JIT)
+def _join(line, n, i, j, shift, work_f):
+    """Rebuild the line without the part a reconnection of i and j cuts off; return the count."""
+    x, y, pin, ign = line
+    rx, ry, rad = work_f[W_RX], work_f[W_RY], work_f[W_RAD]
     xmid = 0.5 * (x[i] + shift + x[j])
     ymid = 0.5 * (y[i] + y[j])
     if shift == 0.0:  # line = [0 .. i-1] + [m] + [j+1 .. n-1]
@@ -971,22 +972,24 @@ def reconnect(x, y, pin, ign, n, i, j, Lx, Ly, meta, lx, ly, lpin, loff, rx, ry,
 
 
 @njit(**JIT)
-def _reconnect_all(x, y, pin, ign, n, prm, meta, lx, ly, lpin, loff, rx, ry, rad, ntx, nty,
-                   head, nxt, ci, cj, ox, oy, opin, cstart, citems, ncx, ncy):
+def _reconnect_all(line, n, prm, meta, loops, field, work_f, work_i):
     """Reconnect every contact of the line; return (node count, whether the loop buffers ran
     full: then grow them and call again).
 
-    Each round lists the contacts (:func:`find_contacts`, pairs in ``ci, cj``) and reconnects them
-    from the end of the line backwards, each pair lying wholly before the last one done (so that the
-    indices it names are still valid); a pair across the seam renumbers the line and ends the
-    round.  The chord tangents are then recomputed (:func:`_chord_tangents`, as :func:`node_pass`
-    would) and the line searched again, until no contact is left: a line touching itself in many
-    places is resolved without a force pass, or a search, per contact.
+    Each round lists the contacts (:func:`find_contacts`, pairs in the capture rows) and
+    reconnects them from the end of the line backwards, each pair lying wholly before the last
+    one done (so that the indices it names are still valid); a pair across the seam renumbers
+    the line and ends the round.  The chord tangents are then recomputed
+    (:func:`_chord_tangents`, as :func:`node_pass` would) and the line searched again, until no
+    contact is left: a line touching itself in many places is resolved without a force pass, or a
+    search, per contact.
     """
-    Lx = prm[P_LX]
+    x, y = line[0], line[1]
+    ci, cj = work_i[I_CAPTURE, :MAX_CAPTURES], work_i[I_CAPTURE, MAX_CAPTURES:2 * MAX_CAPTURES]
+    Lx = prm.Lx
     while True:
         meta[M_CONTACT_CHECKS] += 1
-        k = find_contacts(x, y, n, pin, ntx, nty, prm, head, nxt, ci, cj)
+        k = find_contacts(line, n, prm, work_f, work_i, ci, cj)
         _sort_pairs(k, ci, cj)
         done = False
         limit = n                      # pairs must lie wholly before the last one reconnected
@@ -995,8 +998,7 @@ def _reconnect_all(x, y, pin, ign, n, prm, meta, lx, ly, lpin, loff, rx, ry, rad
             if j >= limit:
                 continue
             across = x[j] - x[i] > 0.5 * Lx   # then the line is renumbered from i + 1
-            n_new = reconnect(x, y, pin, ign, n, i, j, Lx, prm[P_LY], meta, lx, ly, lpin, loff,
-                              rx, ry, rad, ox, oy, opin, cstart, citems, ncx, ncy)
+            n_new = reconnect(line, n, i, j, meta, loops, field, work_f)
             if n_new < 0:
                 return n, True
             if n_new == n:
@@ -1009,7 +1011,7 @@ def _reconnect_all(x, y, pin, ign, n, prm, meta, lx, ly, lpin, loff, rx, ry, rad
                 break
         if not done:
             return n, False
-        _chord_tangents(x, y, n, Lx, ntx, nty)
+        _chord_tangents(x, y, n, Lx, work_f[W_NTX], work_f[W_NTY])
 
 
 @njit(**JIT)
@@ -1034,8 +1036,10 @@ def _chord_tangents(x, y, n, Lx, ntx, nty):
 
 
 @njit(**JIT)
-def _release(n, pin, ign, fpin, ofc, opin):
-    """Free every pinned node whose force exceeds its obstacle's strength; count releases."""
+def _release(line, n, ofc, opin, fpin):
+    """Free every pinned node whose force ``fpin`` exceeds its obstacle's strength ``ofc``;
+    return the count."""
+    pin, ign = line[2], line[3]
     released = 0
     for i in range(n):
         k = pin[i]
@@ -1048,15 +1052,15 @@ def _release(n, pin, ign, fpin, ofc, opin):
 
 
 @njit(**JIT)
-def _remesh_line(x, y, pin, ign, n, prm, first_bad, bx, by, bpin, bign, src, keep, rx, ry, rad,
-                 ox, oy, opin, cstart, citems, ncx, ncy, far):
+def _remesh_line(line, n, prm, first_bad, field, work_f, work_i):
     """:func:`remesh` from ``first_bad`` on, the node clearances and (MODEL_SELF) the non-local
-    self-stress ``far`` following; return the count."""
-    n, lo = remesh(x, y, pin, ign, n, prm, first_bad, bx, by, bpin, bign, src, keep, ox, oy,
-                   opin, cstart, citems, ncx, ncy)
-    _gather_clearance(lo, n, src, rx, ry, rad, bx, by)
-    if int(prm[P_MODEL]) == MODEL_SELF:
-        _gather_far(lo, n, src, far, bx)
+    self-stress (row W_FAR) following; return the count."""
+    n, lo = remesh(line, n, prm, first_bad, field, work_f, work_i)
+    src = work_i[I_SRC]
+    _gather_clearance(lo, n, src, work_f[W_RX], work_f[W_RY], work_f[W_RAD], work_f[W_BX],
+                      work_f[W_BY])
+    if prm.model == MODEL_SELF:
+        _gather_far(lo, n, src, work_f[W_FAR], work_f[W_BX])
     return n
 
 
@@ -1064,7 +1068,7 @@ def _remesh_line(x, y, pin, ign, n, prm, first_bad, bx, by, bpin, bign, src, kee
 def _gather_far(lo, n, src, far, buf):
     """Carry the non-local self-stress of nodes lo.. through a remesh (``src``: old index or -1);
     a new node takes the mean of its neighbours' values (the field is smooth on the node
-    spacing, and it is evaluated afresh within prm[P_REFRESH] steps)."""
+    spacing, and it is evaluated afresh within prm.refresh steps)."""
     for m in range(lo, n):
         buf[m] = far[src[m]] if src[m] >= 0 else np.nan
     for m in range(lo, n):
@@ -1101,39 +1105,42 @@ def _gather_clearance(lo, n, src, rx, ry, rad, buf_a, buf_b):
 
 
 @njit(**JIT)
-def model_forces(x, y, n, pin, prm, meta, lx, ly, loff, tau_int, fex, fey, far, near, buf,
-                 fresh):
-    """Internal stress ``tau_int`` and extra line-tension forces ``fex, fey`` of the line model.
+def model_forces(line, n, prm, meta, loops, work_f, fresh):
+    """Internal stress (row W_TAU_INT) and extra line-tension forces (W_FEX, W_FEY) of the model.
 
     - MODEL_CONSTANT: nothing to do (the constant Γ is in :func:`node_pass`).
-    - MODEL_DWK: ``fex, fey`` = de Wit–Koehler nodal forces (:func:`dlsim.elastic.dwk_forces`),
-      and prm[P_GAMMA] is 0.
-    - MODEL_SELF: at a free node ``tau_int`` = the line's non-singular self-stress (window of
+    - MODEL_DWK: W_FEX, W_FEY = de Wit–Koehler nodal forces (:func:`dlsim.elastic.dwk_forces`),
+      and prm.gamma is 0.
+    - MODEL_SELF: at a free node W_TAU_INT = the line's non-singular self-stress (window of
       images plus straight remainder, :func:`dlsim.elastic.self_stress`) plus the stress of the
-      stored Orowan loops (:func:`dlsim.elastic.loop_stress`), ``fex = fey = 0``; prm[P_GAMMA] is 0.
-      The non-local part (``far``: everything except the node's own arms) is evaluated only when
-      ``fresh`` (the caller asks every prm[P_REFRESH] steps and after reconnections; remeshing and
-      captures carry it to the new nodes, :func:`_gather_far`, :func:`insert_pins`); the local part
-      (``near``, :func:`dlsim.elastic.local_stress`, the stiff one) at every call.
+      stored Orowan ``loops`` (:func:`dlsim.elastic.loop_stress`), W_FEX = W_FEY = 0; prm.gamma
+      is 0.  The non-local part (W_FAR: everything except the node's own arms) is evaluated only
+      when ``fresh`` (the caller asks every prm.refresh steps and after reconnections; remeshing
+      and captures carry it to the new nodes, :func:`_gather_far`, :func:`insert_pins`); the
+      local part (W_NEAR, :func:`dlsim.elastic.local_stress`, the stiff one) at every call.
       At a pinned node, where the arc treatment of the own arms does not hold (the arms meet at a
       corner), the force on the obstacle is the de Wit–Koehler pull of its two arms (in
-      ``fex, fey``, cut-offs prm[P_ACORE], prm[P_ROUT]) plus the Peach–Koehler force of the applied
-      and the non-local stress (``tau_int`` = ``far``).
+      W_FEX, W_FEY, cut-offs prm.a_core, prm.r_out) plus the Peach–Koehler force of the applied
+      and the non-local stress (W_TAU_INT = W_FAR).
 
-    ``far``, ``near``, ``buf`` : (cap,) float64 scratch; ``far`` persists between calls.
+    Row W_FAR persists between calls; W_NEAR and W_BUF are scratch.
     """
-    model = int(prm[P_MODEL])
+    model = prm.model
     if model == MODEL_CONSTANT:
         return
-    Lx, theta, nu, a = prm[P_LX], prm[P_THETA], prm[P_NU], prm[P_ACORE]
-    dwk_forces(x, y, n, Lx, theta, nu, a, prm[P_ROUT], pin, fex, fey)
+    x, y, pin, _ = line
+    tau_int, fex, fey = work_f[W_TAU_INT], work_f[W_FEX], work_f[W_FEY]
+    far, near, buf = work_f[W_FAR], work_f[W_NEAR], work_f[W_BUF]
+    Lx, theta, nu, a = prm.Lx, prm.theta, prm.nu, prm.a_core
+    dwk_forces(x, y, n, Lx, theta, nu, a, prm.r_out, pin, fex, fey)
     if model == MODEL_DWK:
         return
-    n_img = int(prm[P_NIMG])
+    n_img = prm.images
     if fresh:
-        self_stress(x, y, n, Lx, theta, nu, a, n_img, prm[P_CUTOFF], far)
+        self_stress(x, y, n, Lx, theta, nu, a, n_img, prm.cutoff, far)
         n_loops = meta[M_NLOOPS]
         if n_loops > 0:
+            lx, ly, _, loff = loops
             loop_stress(x, y, n, lx, ly, loff, n_loops, Lx, theta, nu, a, n_img, buf)
             for i in range(n):
                 far[i] += buf[i]
@@ -1152,111 +1159,107 @@ def model_forces(x, y, n, pin, prm, meta, lx, ly, loff, tau_int, fex, fey, far, 
 @njit(**JIT)
 def time_step(prm):
     """Time step of the point-implicit update (STEP_STIFFNESS; time unit 1/(M G))."""
-    h = 0.5 * (prm[P_LMIN] + prm[P_LMAX])
-    return STEP_STIFFNESS * h * h / (2.0 * prm[P_MOB] * prm[P_GSTIFF])
+    h = 0.5 * (prm.l_min + prm.l_max)
+    return STEP_STIFFNESS * h * h / (2.0 * prm.mobility * prm.stiffness)
 
 
 @njit(**JIT)
-def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
-               ox, oy, ofc, opin, cstart, citems, ncx, ncy,
-               lx, ly, lpin, loff, tau_int, work_f, work_i):
+def _forces(line, n, prm, meta, loops, field, work_f, work_i, fresh):
+    """The line model's forces, then :func:`node_pass`; remesh first if a segment is out of
+    bounds (the line was changed since the last move).  Returns (node count, node_pass's
+    results)."""
+    model_forces(line, n, prm, meta, loops, work_f, fresh)
+    out = node_pass(line, n, prm, work_f)
+    if out[1] >= 0:
+        meta[M_REMESH] += 1
+        n = _remesh_line(line, n, prm, out[1], field, work_f, work_i)
+        model_forces(line, n, prm, meta, loops, work_f, False)
+        out = node_pass(line, n, prm, work_f)
+    return n, out
+
+
+@njit(**JIT)
+def _advance(line, n, prm, meta, field, work_f, work_i):
+    """Move the free nodes by one point-implicit step, pin what they swept and remesh where a
+    segment left its bounds; return the node count."""
+    dt = time_step(prm)
+    ncap, bad = move_and_capture(line, n, dt, prm, field, work_f, work_i)
+    if ncap > 0:
+        meta[M_CAPTURES] += ncap
+        n = insert_pins(line, n, ncap, field[3], work_f, work_i)
+        first = work_i[I_CAPTURE, 0]          # the first capture's segment, once sorted
+        bad = first if bad < 0 else min(bad, first)   # pins split segments
+    if bad >= 0:   # remesh now, so that the next step's node_pass is its only one
+        meta[M_REMESH] += 1
+        n = _remesh_line(line, n, prm, bad, field, work_f, work_i)
+    return n
+
+
+@njit(**JIT)
+def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
     """Relax the line at fixed stress until equilibrium, flow, or ``max_steps`` time steps.
 
-    One step: the line model's forces (:func:`model_forces`), then forces and velocities in one
-    pass (:func:`node_pass`; remesh first if the line came in out of bounds); stop if the line
-    has glided the flow distance; release overloaded pins;
-    reconnect parts of opposite sense in contact (only searched for when some node has turned
-    past 60°); stop at equilibrium; otherwise advance the free nodes by the point-implicit step
-    (STEP_STIFFNESS), pin every obstacle swept on the way (:func:`move_and_capture`,
-    :func:`insert_pins`) and remesh where a segment left its bounds.
+    One step: the line model's forces and the node pass (:func:`_forces`, remeshing first if the
+    line came in out of bounds); stop if the line has glided the flow distance; release
+    overloaded pins; reconnect parts of opposite sense in contact (only searched for when some
+    node has turned past 60°); stop at equilibrium; otherwise advance the free nodes by the
+    point-implicit step (STEP_STIFFNESS), pin every obstacle swept on the way and remesh where a
+    segment left its bounds (:func:`_advance`).
 
     Parameters
     ----------
-    x, y, pin, ign : (cap,) arrays
-        Line state, updated in place (first ``meta[M_N]`` entries used).
-    bx, by, bpin, bign : (cap,) arrays
-        Work buffers of the same capacity.
+    line : (x, y, pin, ign) of capacity cap
+        Updated in place (first ``meta[M_N]`` entries used).
     meta : (N_META,) int64
         Counts, updated in place.
-    prm : (N_PRM,) float64
-        Parameters (see the ``P_*`` slots).
+    prm : parameter record (dlsim.contract.pack_parameters)
     max_steps : int
         Time steps allowed in this call.
-    ox, oy, ofc : (n_obs,) float64
-        Obstacle positions (b) and critical forces (G b²).
-    opin : (n_obs,) int64
-        How many line or loop nodes hold each obstacle (updated).
-    cstart, citems, ncx, ncy
-        Periodic cell list of the obstacles.
-    lx, ly, lpin, loff
-        Loop buffers (CSR, see :func:`reconnect`).
-    tau_int : (cap,) float64
-        Internal stress at the nodes (G): zero for the line-tension models, written by
-        :func:`model_forces` for MODEL_SELF.
+    field : obstacle field tuple (dlsim.contract); its ``opin`` is updated.
+    loops : loop buffers (dlsim.contract)
     work_f : (N_WORK_F, cap) float64 and work_i : (N_WORK_I, cap) int64
-        Work arrays (cap >= 3 MAX_CAPTURES): velocities, pin forces or stiffnesses, node
-        clearances (rows 3-5, reset at every call), chord tangents, capture lists, the line
-        model's forces and stresses (rows 9-13, :func:`model_forces`); contact grid.
+        Work rows (cap >= 3 MAX_CAPTURES), zeroed by the caller at the start of a relaxation;
+        W_TAU_INT stays zero for the line-tension models, W_FAR carries the non-local self-stress
+        between calls; the node clearances are reset at every call.
 
     Returns
     -------
     int
         EQUILIBRIUM, FLOWING, MAX_STEPS or CAPACITY (grow the arrays and call again).
     """
-    cap = x.shape[0]
-    vx, vy, fpin, ntx, nty = work_f[0], work_f[1], work_f[2], work_f[6], work_f[7]
-    rx, ry, rad = work_f[3], work_f[4], work_f[5]
-    cap_s = work_f[8, :MAX_CAPTURES]
-    cap_x = work_f[8, MAX_CAPTURES:2 * MAX_CAPTURES]
-    cap_y = work_f[8, 2 * MAX_CAPTURES:3 * MAX_CAPTURES]
-    cap_seg = work_i[0, :MAX_CAPTURES]
-    cap_obs = work_i[0, MAX_CAPTURES:2 * MAX_CAPTURES]
-    head, nxt = work_i[1], work_i[2]
-    fex, fey, far, near, buf = work_f[9], work_f[10], work_f[11], work_f[12], work_f[13]
-    Lx = prm[P_LX]
+    cap = line[0].shape[0]
+    Lx = prm.Lx
     n = meta[M_N]
-    rad[:n] = UNKNOWN       # the line may have changed since the last call
+    work_f[W_RAD, :n] = UNKNOWN       # the line may have changed since the last call
     moved = 0
     searched = False
     reconnections = meta[M_RECONNECT]
-    refresh = max(int(prm[P_REFRESH]), 1)
+    refresh = max(prm.refresh, 1)
     stale = True            # the non-local self-stress must be evaluated (MODEL_SELF)
     since = 0               # moves since it was
-    for _ in range(4 * max_steps):
+    for _ in range(PASSES_PER_STEP * max_steps):
         if moved >= max_steps:
             break
-        if 2 * n + 2 * MAX_CAPTURES + 16 > cap:   # room to insert captures, then remesh
+        if 2 * n + HEADROOM > cap:   # room to insert captures, then remesh
             meta[M_N] = n
             return CAPACITY
         fresh = stale or since >= refresh
-        model_forces(x, y, n, pin, prm, meta, lx, ly, loff, tau_int, fex, fey, far, near, buf,
-                     fresh)
+        n, passed = _forces(line, n, prm, meta, loops, field, work_f, work_i, fresh)
+        area, _, max_te, _, _, turned = passed
         if fresh:
             stale, since = False, 0
-        area, bad, max_te, stiff, vmax, turned = node_pass(x, y, n, pin, prm, tau_int, fex, fey,
-                                                           vx, vy, fpin, ntx, nty)
-        if bad >= 0:   # the line was changed since the last move, or could not be remeshed
-            meta[M_REMESH] += 1
-            n = _remesh_line(x, y, pin, ign, n, prm, bad, bx, by, bpin, bign, head, nxt, rx, ry,
-                             rad, ox, oy, opin, cstart, citems, ncx, ncy, far)
-            model_forces(x, y, n, pin, prm, meta, lx, ly, loff, tau_int, fex, fey, far, near,
-                         buf, stale)
-            area, bad, max_te, stiff, vmax, turned = node_pass(x, y, n, pin, prm, tau_int,
-                                                               fex, fey, vx, vy, fpin, ntx, nty)
-        if (area - prm[P_AREF]) / Lx > prm[P_FLOW]:
+        if (area - prm.area_ref) / Lx > prm.flow:
             meta[M_N] = n
             return FLOWING
-        released = _release(n, pin, ign, fpin, ofc, opin)
+        released = _release(line, n, field[2], field[3], work_f[W_FPIN])
         if released > 0:
             meta[M_RELEASES] += released
-            rad[:n] = UNKNOWN   # a freed obstacle may lie in any node's disc
+            work_f[W_RAD, :n] = UNKNOWN   # a freed obstacle may lie in any node's disc
             continue
         # no free node turned past 60° from x: no two parts can be antiparallel; just after a
         # round of reconnections the line has been searched already
         if turned > 0 and not searched:
-            n_new, full = _reconnect_all(x, y, pin, ign, n, prm, meta, lx, ly, lpin, loff, rx, ry,
-                                         rad, ntx, nty, head, nxt, cap_seg, cap_obs, ox, oy, opin,
-                                         cstart, citems, ncx, ncy)
+            n_new, full = _reconnect_all(line, n, prm, meta, loops, field, work_f, work_i)
             if full:      # earlier reconnections of the round stand: keep their node count
                 meta[M_N] = n_new
                 return CAPACITY
@@ -1265,22 +1268,10 @@ def relax_line(x, y, pin, ign, bx, by, bpin, bign, meta, prm, max_steps,
                 stale = True
                 continue
         searched = False
-        if max_te < prm[P_TOL]:
+        if max_te < prm.tolerance:
             meta[M_N] = n
             return EQUILIBRIUM
-        dt = time_step(prm)
-        ncap, bad = move_and_capture(x, y, n, pin, ign, vx, vy, fpin, dt, ox, oy, opin, cstart,
-                                     citems, ncx, ncy, prm, rx, ry, rad, cap_seg, cap_s, cap_obs,
-                                     cap_x, cap_y)
-        if ncap > 0:
-            meta[M_CAPTURES] += ncap
-            n = insert_pins(x, y, pin, ign, n, ncap, cap_seg, cap_s, cap_obs, cap_x, cap_y, opin,
-                            rx, ry, rad, far)
-            bad = cap_seg[0] if bad < 0 else min(bad, cap_seg[0])   # pins split segments
-        if bad >= 0:   # remesh now, so that the next step's node_pass is its only one
-            meta[M_REMESH] += 1
-            n = _remesh_line(x, y, pin, ign, n, prm, bad, bx, by, bpin, bign, head, nxt, rx, ry,
-                             rad, ox, oy, opin, cstart, citems, ncx, ncy, far)
+        n = _advance(line, n, prm, meta, field, work_f, work_i)
         moved += 1
         since += 1
         meta[M_STEPS] += 1

@@ -11,10 +11,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from . import contract as C
 from . import kernels as K
-
-#: Smallest capacity of the node arrays (the capture scratch space lives in a work row of this length).
-MIN_CAPACITY = 4 * K.MAX_CAPTURES
+from .contract import MIN_CAPACITY
 
 
 @dataclass
@@ -30,7 +29,7 @@ class LineState:
     ign : (cap,) int64
         Obstacle each node has just left (not re-captured by its own arms), -1 otherwise.
     meta : (N_META,) int64
-        Node count, loop counts, step and event counters (``kernels.M_*`` slots).
+        Node count, loop counts, step and event counters (``contract.M_*`` slots).
     loop_x, loop_y, loop_pin : (loop_cap,) arrays
         Loop nodes, CSR with ``loop_off`` (loops closed: the last node joins the first).
     loop_off : (max_loops + 1,) int64
@@ -53,13 +52,13 @@ class LineState:
     @classmethod
     def straight(cls, Lx: float, y0: float, spacing: float) -> "LineState":
         """A straight line along x at height ``y0`` with nodes about ``spacing`` apart."""
-        n = max(K.MIN_NODES, int(np.ceil(Lx / spacing)))
+        n = max(C.MIN_NODES, int(np.ceil(Lx / spacing)))
         cap = max(MIN_CAPACITY, 4 * n)
         x = np.zeros(cap)
         x[:n] = (np.arange(n) + 0.5) * (Lx / n)
         y = np.full(cap, float(y0))
-        meta = np.zeros(K.N_META, dtype=np.int64)
-        meta[K.M_N] = n
+        meta = np.zeros(C.N_META, dtype=np.int64)
+        meta[C.M_N] = n
         loop_cap = MIN_CAPACITY
         return cls(x, y, np.full(cap, -1, np.int64), np.full(cap, -1, np.int64), meta,
                    np.zeros(loop_cap), np.zeros(loop_cap), np.full(loop_cap, -1, np.int64),
@@ -67,7 +66,7 @@ class LineState:
 
     @property
     def n(self) -> int:
-        return int(self.meta[K.M_N])
+        return int(self.meta[C.M_N])
 
     @property
     def capacity(self) -> int:
@@ -75,7 +74,17 @@ class LineState:
 
     @property
     def n_loops(self) -> int:
-        return int(self.meta[K.M_NLOOPS])
+        return int(self.meta[C.M_NLOOPS])
+
+    @property
+    def line(self) -> tuple:
+        """The kernels' ``line`` group (x, y, pin, ign), dlsim.contract."""
+        return self.x, self.y, self.pin, self.ign
+
+    @property
+    def loop_arrays(self) -> tuple:
+        """The kernels' ``loops`` group (loop_x, loop_y, loop_pin, loop_off), dlsim.contract."""
+        return self.loop_x, self.loop_y, self.loop_pin, self.loop_off
 
     def copy(self) -> "LineState":
         return LineState(self.x.copy(), self.y.copy(), self.pin.copy(), self.ign.copy(),

@@ -13,6 +13,7 @@ from typing import Callable
 
 import numpy as np
 
+from . import contract as C
 from . import kernels as K
 from .fields import ObstacleField
 from .line import LineState
@@ -27,8 +28,8 @@ ANNIHILATION_FRACTION = 0.5
 DEFAULT_CHUNK = 50_000
 
 
-#: Line models and their codes in the kernels (prm[P_MODEL]).
-MODELS = {name: code for code, name in enumerate(K.MODEL_NAMES)}
+#: Line models and their codes in the kernels (``prm.model``).
+MODELS = {name: code for code, name in enumerate(C.MODEL_NAMES)}
 
 
 @dataclass(frozen=True)
@@ -195,30 +196,31 @@ class Relaxer:
         self.ofc = np.ascontiguousarray(obstacles.fc, dtype=np.float64)
         self.cstart, self.citems, self.ncx, self.ncy = obstacles.cell_list()
 
-    def parameters(self, tau: float, area_ref: float, protocol: Protocol) -> np.ndarray:
-        m, h = self.model, self.model.node_spacing
-        prm = np.zeros(K.N_PRM)
-        prm[K.P_GAMMA], prm[K.P_TAU], prm[K.P_TAUF], prm[K.P_MOB] = (
-            m.tension, tau, m.friction, m.mobility)
-        prm[K.P_LMIN], prm[K.P_LMAX] = LMIN_FRACTION * h, LMAX_FRACTION * h
-        prm[K.P_TOL], prm[K.P_FLOW] = protocol.tolerance, protocol.flow_distance
-        prm[K.P_LX], prm[K.P_LY] = self.field.Lx, self.field.Ly
-        prm[K.P_AREF], prm[K.P_DANN] = area_ref, ANNIHILATION_FRACTION * h
-        e = m.elasticity
-        prm[K.P_MODEL] = MODELS[e.model]
-        if e.model != "constant":
-            prm[K.P_GAMMA] = 0.0       # the model's forces replace the constant line tension
-        prm[K.P_THETA], prm[K.P_NU] = e.burgers_angle, e.poisson
-        prm[K.P_ACORE], prm[K.P_ROUT] = e.core_radius, e.outer_radius
-        prm[K.P_NIMG], prm[K.P_CUTOFF], prm[K.P_REFRESH] = e.images, e.cutoff, e.refresh
-        prm[K.P_GSTIFF] = e.stiffness(m.tension, h)
-        return prm
+    def field_arrays(self, opin: np.ndarray) -> tuple:
+        """The kernels' ``field`` group (dlsim.contract) with the occupancy ``opin``."""
+        return (self.ox, self.oy, self.ofc, opin, self.cstart, self.citems, int(self.ncx),
+                int(self.ncy), float(self.field.Lx), float(self.field.Ly))
+
+    def parameters(self, tau: float, area_ref: float, protocol: Protocol) -> np.record:
+        """The kernels' parameter record of a relaxation at stress ``tau`` (dlsim.contract)."""
+        m, h, e = self.model, self.model.node_spacing, self.model.elasticity
+        return C.pack_parameters(dict(
+            # the other models' forces replace the constant line tension
+            gamma=m.tension if e.model == "constant" else 0.0,
+            tau=tau, tau_f=m.friction, mobility=m.mobility,
+            l_min=LMIN_FRACTION * h, l_max=LMAX_FRACTION * h,
+            tolerance=protocol.tolerance, flow=protocol.flow_distance,
+            Lx=self.field.Lx, Ly=self.field.Ly, area_ref=area_ref,
+            d_ann=ANNIHILATION_FRACTION * h,
+            model=MODELS[e.model], theta=e.burgers_angle, nu=e.poisson, a_core=e.core_radius,
+            r_out=e.outer_radius, images=e.images, cutoff=e.cutoff, refresh=e.refresh,
+            stiffness=e.stiffness(m.tension, h)))
 
     def occupancy(self, state: LineState) -> np.ndarray:
         """How many line and loop nodes hold each obstacle (derived from the state)."""
         m = self.field.n
         pins = state.pin[: state.n]
-        lpins = state.loop_pin[: state.meta[K.M_NLOOPNODES]]
+        lpins = state.loop_pin[: state.meta[C.M_NLOOPNODES]]
         held = np.concatenate([pins[pins >= 0], lpins[lpins >= 0]])
         return np.bincount(held, minlength=m).astype(np.int64)
 
@@ -227,30 +229,26 @@ class Relaxer:
               on_chunk: Callable[[LineState, float, int], None] | None = None) -> tuple[str, int]:
         """Relax ``state`` in place at stress ``tau``; return (state name, time steps taken)."""
         prm = self.parameters(tau, area_ref, protocol)
-        opin = self.occupancy(state)
+        field = self.field_arrays(self.occupancy(state))
         taken = 0
         while True:
             cap = state.capacity
-            work_f = np.zeros((K.N_WORK_F, cap))
-            tau_int = np.zeros(cap)
-            work_i = np.zeros((K.N_WORK_I, cap), dtype=np.int64)
-            bufs = (np.empty(cap), np.empty(cap), np.empty(cap, np.int64), np.empty(cap, np.int64))
+            work_f = np.zeros((C.N_WORK_F, cap))
+            work_i = np.zeros((C.N_WORK_I, cap), dtype=np.int64)
             while True:
-                before = int(state.meta[K.M_STEPS])
-                status = K.relax_line(state.x, state.y, state.pin, state.ign, *bufs, state.meta,
-                                      prm, min(chunk, protocol.max_steps - taken),
-                                      self.ox, self.oy, self.ofc, opin, self.cstart, self.citems,
-                                      self.ncx, self.ncy, state.loop_x, state.loop_y,
-                                      state.loop_pin, state.loop_off, tau_int, work_f, work_i)
-                taken += int(state.meta[K.M_STEPS]) - before
+                before = int(state.meta[C.M_STEPS])
+                status = K.relax_line(state.line, state.meta, prm,
+                                      min(chunk, protocol.max_steps - taken), field,
+                                      state.loop_arrays, work_f, work_i)
+                taken += int(state.meta[C.M_STEPS]) - before
                 if on_chunk is not None:
                     on_chunk(state, tau, taken)
-                if status == K.CAPACITY:
+                if status == C.CAPACITY:
                     state.grow()
                     break
-                if status == K.MAX_STEPS and taken < protocol.max_steps:
+                if status == C.MAX_STEPS and taken < protocol.max_steps:
                     continue
-                return K.STATUS_NAMES[status], taken
+                return C.STATUS_NAMES[status], taken
 
 
 def find_crss(obstacles: ObstacleField, model: LineModel, protocol: Protocol,
@@ -330,5 +328,5 @@ def find_crss(obstacles: ObstacleField, model: LineModel, protocol: Protocol,
 
 def _counters(state: LineState) -> dict:
     m = state.meta
-    return {"captures": int(m[K.M_CAPTURES]), "releases": int(m[K.M_RELEASES]),
-            "reconnections": int(m[K.M_RECONNECT]), "loops": int(m[K.M_NLOOPS])}
+    return {"captures": int(m[C.M_CAPTURES]), "releases": int(m[C.M_RELEASES]),
+            "reconnections": int(m[C.M_RECONNECT]), "loops": int(m[C.M_NLOOPS])}

@@ -275,7 +275,8 @@ def test_loop_self_stress_matches_numpy_twin():
     np.testing.assert_allclose(out, ref, rtol=1e-10, atol=1e-10 * np.max(np.abs(ref)))
 
 
-def test_loop_stress_matches_numpy_twin():
+@pytest.mark.parametrize("kernel", [E.loop_stress, E.loop_stress_serial])
+def test_loop_stress_matches_numpy_twin(kernel):
     rng = np.random.default_rng(26)
     n, Lx = 30, 600.0
     x, y = wavy_line(rng, n, Lx, 20.0)
@@ -287,7 +288,7 @@ def test_loop_stress_matches_numpy_twin():
         offsets.append(offsets[-1] + m)
     lx, ly, off = np.concatenate(loops_x), np.concatenate(loops_y), np.array(offsets)
     out = np.zeros(n)
-    E.loop_stress(x, y, n, lx, ly, off, 2, Lx, MIXED, NU, A_CORE, 2, out)
+    kernel(x, y, n, lx, ly, off, 2, Lx, MIXED, NU, A_CORE, 2, out)
     ref = N.loop_stress_np(x, y, n, lx, ly, off, 2, Lx, MIXED, NU, A_CORE, 2)
     np.testing.assert_allclose(out, ref, rtol=1e-10, atol=1e-10 * np.max(np.abs(ref)))
 

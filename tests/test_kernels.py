@@ -10,6 +10,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from dlsim import contract as C
 from dlsim import kernels as K
 from dlsim.fields import ObstacleField, random_field
 from dlsim.line import LineState
@@ -31,11 +32,12 @@ def wavy_line(rng, n, Lx, amplitude, x0=0.0, y0=0.0, jitter=0.3):
 
 
 def params(Lx, Ly=1.0, tau=0.0, tau_f=0.0, lmin=0.0, lmax=np.inf, dann=0.0, mobility=1.0):
-    prm = np.zeros(K.N_PRM)
-    prm[K.P_GAMMA], prm[K.P_TAU], prm[K.P_TAUF], prm[K.P_MOB] = GAMMA, tau, tau_f, mobility
-    prm[K.P_LMIN], prm[K.P_LMAX], prm[K.P_LX], prm[K.P_LY] = lmin, lmax, Lx, Ly
-    prm[K.P_DANN], prm[K.P_GSTIFF] = dann, GAMMA
-    return prm
+    """The parameter record of a constant-Γ line (every field named, dlsim.contract)."""
+    return C.pack_parameters(dict(
+        gamma=GAMMA, tau=tau, tau_f=tau_f, mobility=mobility, l_min=lmin, l_max=lmax,
+        tolerance=0.0, flow=np.inf, Lx=Lx, Ly=Ly, area_ref=0.0, d_ann=dann,
+        model=C.MODEL_CONSTANT, theta=0.0, nu=1.0 / 3.0, a_core=1.0, r_out=1000.0, images=0,
+        cutoff=0.0, refresh=1, stiffness=GAMMA))
 
 
 def padded(a, cap, fill):
@@ -52,14 +54,28 @@ def random_pins(rng, n, fraction, n_obs=1000):
 
 
 class Work:
-    """Scratch arrays of one capacity for calling kernels one by one."""
+    """The work arrays of one capacity (at least the capture lists') for calling kernels one by
+    one, with named views of their rows (dlsim.contract)."""
 
     def __init__(self, cap):
-        self.vx, self.vy, self.fpin, self.ntx, self.nty = (np.zeros(cap) for _ in range(5))
-        mc = K.MAX_CAPTURES
-        self.cap_seg, self.cap_obs = np.zeros(mc, np.int64), np.zeros(mc, np.int64)
-        self.cap_s, self.cap_x, self.cap_y = np.zeros(mc), np.zeros(mc), np.zeros(mc)
-        self.head, self.nxt = np.zeros(cap, np.int64), np.zeros(cap, np.int64)
+        cap = max(cap, 3 * C.MAX_CAPTURES)
+        self.f = np.zeros((C.N_WORK_F, cap))
+        self.i = np.zeros((C.N_WORK_I, cap), np.int64)
+        self.vx, self.vy, self.fpin = self.f[C.W_VX], self.f[C.W_VY], self.f[C.W_FPIN]
+        self.ntx, self.nty = self.f[C.W_NTX], self.f[C.W_NTY]
+        self.rx, self.ry, self.rad = self.f[C.W_RX], self.f[C.W_RY], self.f[C.W_RAD]
+        self.far, self.tau_int = self.f[C.W_FAR], self.f[C.W_TAU_INT]
+        mc = C.MAX_CAPTURES
+        self.cap_seg, self.cap_obs = self.i[C.I_CAPTURE, :mc], self.i[C.I_CAPTURE, mc:2 * mc]
+        self.cap_s, self.cap_x = self.f[C.W_CAPTURE, :mc], self.f[C.W_CAPTURE, mc:2 * mc]
+        self.cap_y = self.f[C.W_CAPTURE, 2 * mc:3 * mc]
+
+
+def field_tuple(ox, oy, opin, cstart, citems, ncx, ncy, Lx, Ly):
+    """The kernels' ``field`` group (critical forces unused by these kernels: impenetrable)."""
+    ox, oy = np.asarray(ox, float), np.asarray(oy, float)
+    return (ox, oy, np.full(len(ox), np.inf), opin, cstart, citems, int(ncx), int(ncy),
+            float(Lx), float(Ly))
 
 
 def run_node_pass(x, y, pin, prm, tau_int=None):
@@ -68,9 +84,9 @@ def run_node_pass(x, y, pin, prm, tau_int=None):
     n = len(x)
     w = Work(n + 8)
     xs, ys, ps = padded(x, n + 8, 0.0), padded(y, n + 8, 0.0), padded(pin, n + 8, -1)
-    ti = np.zeros(n + 8) if tau_int is None else padded(tau_int, n + 8, 0.0)
-    zero = np.zeros(n + 8)
-    out = K.node_pass(xs, ys, n, ps, prm, ti, zero, zero, w.vx, w.vy, w.fpin, w.ntx, w.nty)
+    if tau_int is not None:
+        w.tau_int[:n] = tau_int
+    out = K.node_pass((xs, ys, ps, np.full(n + 8, -1)), n, prm, w.f)
     return w, out
 
 
@@ -170,13 +186,11 @@ def run_captures(x, y, pin, ign, v, dt, ox, oy, opin, Lx, Ly, cell):
     cstart, citems, ncx, ncy = cells(ox, oy, Lx, Ly, cell)
     w = Work(n)
     xm, ym = x.copy(), y.copy()
-    rx, ry, rad = np.zeros(n), np.zeros(n), np.full(n, K.UNKNOWN)
+    w.vx[:n], w.vy[:n], w.rad[:n] = v[:, 0], v[:, 1], K.UNKNOWN
     # l_min large: the step limit MAX_MOVE_FRACTION l_min does not hold any node back here
-    ncap, _ = K.move_and_capture(xm, ym, n, pin, ign, np.ascontiguousarray(v[:, 0]),
-                              np.ascontiguousarray(v[:, 1]), np.zeros(n), dt, ox, oy, opin,
-                              cstart, citems, ncx, ncy, params(Lx, Ly, lmin=1e3), rx, ry, rad,
-                              w.cap_seg, w.cap_s,
-                              w.cap_obs, w.cap_x, w.cap_y)
+    ncap, _ = K.move_and_capture((xm, ym, pin, ign), n, dt, params(Lx, Ly, lmin=1e3),
+                                 field_tuple(ox, oy, opin, cstart, citems, ncx, ncy, Lx, Ly),
+                                 w.f, w.i)
     # every node advanced by v dt
     np.testing.assert_allclose(np.stack([xm, ym], 1), np.stack([x, y], 1) + v * dt, rtol=1e-15)
     return {int(w.cap_obs[c]): int(w.cap_seg[c]) for c in range(ncap)}, w, ncap
@@ -215,7 +229,7 @@ def test_find_captures_equals_brute_force(seed, x0, y0, moving):
     opin[rng.choice(m, 200, replace=False)] = 1
     found, w, ncap = run_captures(x, y, pin, ign, v, dt, ox, oy, opin, Lx, Ly, cell=50.0)
     ref = naive.find_captures(x, y, pin, ign, v, dt, ox, oy, opin, Lx, Ly)
-    assert 5 < len(ref) < K.MAX_CAPTURES   # the case tests something, within one step's room
+    assert 5 < len(ref) < C.MAX_CAPTURES   # the case tests something, within one step's room
     assert ncap == len(found)      # no obstacle captured twice
     assert found == ref
 
@@ -237,10 +251,11 @@ def test_insert_pins_equals_twin(seed):
     cap = n + ncap
     xs, ys = padded(x + v[:, 0] * 4.0, cap, 0.0), padded(y + v[:, 1] * 4.0, cap, 0.0)
     ps, gs = padded(pin, cap, -1), padded(ign, cap, -1)
-    rx, ry, rad = np.arange(cap, dtype=float), np.zeros(cap), np.arange(cap, dtype=float)
-    far = np.arange(cap, dtype=float) + 0.5
-    n_new = K.insert_pins(xs, ys, ps, gs, n, ncap, w.cap_seg, w.cap_s, w.cap_obs, w.cap_x,
-                          w.cap_y, opin, rx, ry, rad, far)
+    w.rx[:], w.ry[:], w.rad[:] = np.arange(w.f.shape[1], dtype=float), 0.0, np.arange(
+        w.f.shape[1], dtype=float)
+    w.far[:] = np.arange(w.f.shape[1], dtype=float) + 0.5
+    n_new = K.insert_pins((xs, ys, ps, gs), n, ncap, opin, w.f, w.i)
+    rx, rad, far = w.rx[:cap], w.rad[:cap], w.far[:cap]
     assert n_new == n + ncap
     np.testing.assert_allclose(xs, ref[0], rtol=1e-15)
     np.testing.assert_allclose(ys, ref[1], rtol=1e-15)
@@ -268,8 +283,10 @@ def test_captures_with_kept_clearances_equal_brute_force_every_step(seed):
     prm = params(Lx, Ly, lmin=5.0, lmax=15.0)
     pin, ign = np.full(n, -1, np.int64), np.full(n, -1, np.int64)
     opin = np.zeros(m, np.int64)
-    rx, ry, rad = np.zeros(n), np.zeros(n), np.full(n, K.UNKNOWN)
     w = Work(n)
+    rad = w.rad[:n]
+    rad[:] = K.UNKNOWN
+    field = field_tuple(ox, oy, opin, cstart, citems, ncx, ncy, Lx, Ly)
     total = skipped = 0
     steps = 100
     for step in range(steps):
@@ -278,11 +295,8 @@ def test_captures_with_kept_clearances_equal_brute_force_every_step(seed):
         dt = 1.0
         ref = naive.find_captures(x, y, pin, ign, v, dt, ox, oy, opin, Lx, Ly)
         skipped += np.count_nonzero(rad > 0)
-        ncap, _ = K.move_and_capture(x, y, n, pin, ign, np.ascontiguousarray(v[:, 0]),
-                                  np.ascontiguousarray(v[:, 1]), np.zeros(n), dt, ox, oy, opin,
-                                  cstart, citems,
-                                  ncx, ncy, prm, rx, ry, rad, w.cap_seg, w.cap_s, w.cap_obs,
-                                  w.cap_x, w.cap_y)
+        w.vx[:n], w.vy[:n] = v[:, 0], v[:, 1]
+        ncap, _ = K.move_and_capture((x, y, pin, ign), n, dt, prm, field, w.f, w.i)
         found = {int(w.cap_obs[c]): int(w.cap_seg[c]) for c in range(ncap)}
         assert found == ref, step
         opin[list(found)] = 1        # held from now on (the line is not rebuilt here)
@@ -319,13 +333,13 @@ def remeshed(x, y, pin, prm, ox=(), oy=(), first_bad=0):
     cap = 8 * n + 64
     xs, ys = padded(x, cap, 0.0), padded(y, cap, 0.0)
     ps, gs = padded(pin, cap, -1), np.full(cap, -1)
-    bx, by, bp, bg = np.zeros(cap), np.zeros(cap), np.full(cap, -1), np.full(cap, -1)
-    Lx, Ly = prm[K.P_LX], prm[K.P_LY]
+    Lx, Ly = prm.Lx, prm.Ly
     cstart, citems, ncx, ncy = cells(ox, oy, Lx, Ly, Lx / 4)
-    src, keep = np.zeros(cap, np.int64), np.zeros(cap, np.int64)
-    m, lo = K.remesh(xs, ys, ps, gs, n, prm, first_bad, bx, by, bp, bg, src, keep,
-                     np.asarray(ox, float), np.asarray(oy, float), np.zeros(len(ox), np.int64),
-                     cstart, citems, ncx, ncy)
+    w = Work(cap)
+    m, lo = K.remesh((xs, ys, ps, gs), n, prm, first_bad,
+                     field_tuple(ox, oy, np.zeros(len(ox), np.int64), cstart, citems, ncx, ncy,
+                                 Lx, Ly), w.f, w.i)
+    src = w.i[C.I_SRC]
     kept = src[lo:m] >= 0
     np.testing.assert_array_equal(xs[lo:m][kept], np.asarray(x, float)[src[lo:m][kept]])
     np.testing.assert_array_equal(xs[:lo], x[:lo])                          # the rest stays
@@ -482,7 +496,7 @@ def test_find_contact_equals_brute_force(gap, expect):
     n = len(x)
     prm = params(Lx, lmax=7.5, dann=2.5)
     w, _ = run_node_pass(x, y, pin, prm)
-    i, j = K.find_contact(x, y, n, pin, w.ntx, w.nty, prm, w.head, w.nxt)
+    i, j = K.find_contact((x, y, pin, np.full(n, -1)), n, prm, w.f, w.i)
     ref = naive.find_contacts(x, y, pin, np.stack([w.ntx[:n], w.nty[:n]], 1), Lx, 2.5,
                               K.RECONNECT_MIN_SEPARATION, K.RECONNECT_COS,
                               K.RECONNECT_MIN_PINS)
@@ -502,13 +516,14 @@ def test_find_contact_equals_brute_force_on_folded_lines(seed):
     pin = random_pins(rng, n, 0.05)
     prm = params(Lx, lmax=16.0, dann=rng.uniform(3.0, 8.0))
     w, _ = run_node_pass(x, y, pin, prm)
-    i, j = K.find_contact(x, y, n, pin, w.ntx, w.nty, prm, w.head, w.nxt)
+    line = (x, y, pin, np.full(n, -1))
+    i, j = K.find_contact(line, n, prm, w.f, w.i)
     ref = naive.find_contacts(x, y, pin, np.stack([w.ntx[:n], w.nty[:n]], 1), Lx,
-                              prm[K.P_DANN], K.RECONNECT_MIN_SEPARATION, K.RECONNECT_COS,
+                              prm.d_ann, K.RECONNECT_MIN_SEPARATION, K.RECONNECT_COS,
                               K.RECONNECT_MIN_PINS)
     assert ((i, j) in ref) if ref else (i, j) == (-1, -1)
     ci, cj = np.zeros(64, np.int64), np.zeros(64, np.int64)
-    k = K.find_contacts(x, y, n, pin, w.ntx, w.nty, prm, w.head, w.nxt, ci, cj)
+    k = K.find_contacts(line, n, prm, w.f, w.i, ci, cj)
     assert set(zip(ci[:k].tolist(), cj[:k].tolist())) <= ref
     assert (k > 0) == bool(ref)
 
@@ -518,19 +533,17 @@ def test_reconnect_leaves_line_and_loop():
     n = len(x)
     prm = params(Lx, lmax=7.5, dann=2.5)
     w, _ = run_node_pass(x, y, pin, prm)
-    i, j = K.find_contact(x, y, n, pin, w.ntx, w.nty, prm, w.head, w.nxt)
+    i, j = K.find_contact((x, y, pin, np.full(n, -1)), n, prm, w.f, w.i)
     cap = 4 * n
     xs, ys = padded(x, cap, 0.0), padded(y, cap, 0.0)
     ps, gs = padded(pin, cap, -1), np.full(cap, -1)
-    meta = np.zeros(K.N_META, np.int64)
+    meta = np.zeros(C.N_META, np.int64)
     lx, ly, lp, loff = np.zeros(cap), np.zeros(cap), np.full(cap, -1), np.zeros(cap, np.int64)
-    rx, ry, rad = np.zeros(cap), np.zeros(cap), np.zeros(cap)
     cstart, citems, ncx, ncy = cells([], [], Lx, 100.0, 50.0)
-    none = np.zeros(0)
-    m = K.reconnect(xs, ys, ps, gs, n, i, j, Lx, 100.0, meta, lx, ly, lp, loff, rx, ry, rad,
-                    none, none, np.zeros(0, np.int64), cstart, citems, ncx, ncy)
-    used = int(meta[K.M_NLOOPNODES])
-    assert meta[K.M_NLOOPS] == 1
+    field = field_tuple([], [], np.zeros(0, np.int64), cstart, citems, ncx, ncy, Lx, 100.0)
+    m = K.reconnect((xs, ys, ps, gs), n, i, j, meta, (lx, ly, lp, loff), field, Work(cap).f)
+    used = int(meta[C.M_NLOOPNODES])
+    assert meta[C.M_NLOOPS] == 1
     assert m + used == n - 1                      # nodes i and j merge into one
     assert 5 in set(lp[:used].tolist())            # the loop holds the obstacle
     assert 5 not in set(ps[:m].tolist())
@@ -549,11 +562,10 @@ def test_move_and_capture_point_implicit_step():
     prm = params(Lx, 100.0, lmin=20.0, lmax=30.0)
     cstart, citems, ncx, ncy = cells([], [], Lx, 100.0, 25.0)
     w = Work(n)
-    none = np.zeros(0)
-    K.move_and_capture(x, y, n, np.full(n, -1), np.full(n, -1), vx, vy, k, dt, none, none,
-                       np.zeros(0, np.int64),
-                       cstart, citems, ncx, ncy, prm, np.zeros(n), np.zeros(n),
-                       np.full(n, K.UNKNOWN), w.cap_seg, w.cap_s, w.cap_obs, w.cap_x, w.cap_y)
+    w.vx[:n], w.vy[:n], w.fpin[:n], w.rad[:n] = vx, vy, k, K.UNKNOWN
+    K.move_and_capture((x, y, np.full(n, -1), np.full(n, -1)), n, dt, prm,
+                       field_tuple([], [], np.zeros(0, np.int64), cstart, citems, ncx, ncy, Lx,
+                                   100.0), w.f, w.i)
     expect = vy * dt / (1 + k * dt)
     expect[3] = K.MAX_MOVE_FRACTION * 20.0
     np.testing.assert_allclose(y, expect, rtol=1e-14)
@@ -594,17 +606,16 @@ def test_reconnect_all_keeps_count_when_loop_buffers_fill():
     ps, gs = padded(pin, cap, -1), np.full(cap, -1)
     one_loop = np.count_nonzero(y1 > 0) + 4
     lx, ly, lp = np.zeros(one_loop), np.zeros(one_loop), np.full(one_loop, -1)
-    loff, meta = np.zeros(cap, np.int64), np.zeros(K.N_META, np.int64)
+    loff, meta = np.zeros(cap, np.int64), np.zeros(C.N_META, np.int64)
     cstart, citems, ncx, ncy = cells([], [], Lx, 100.0, 50.0)
-    none = np.zeros(0)
-    m, full = K._reconnect_all(xs, ys, ps, gs, n, prm, meta, lx, ly, lp, loff, np.zeros(cap),
-                               np.zeros(cap), np.zeros(cap), padded(w.ntx[:n], cap, 0.0),
-                               padded(w.nty[:n], cap, 0.0), w.head, w.nxt,
-                               np.zeros(8, np.int64), np.zeros(8, np.int64), none, none,
-                               np.zeros(0, np.int64), cstart, citems, ncx, ncy)
-    assert full and meta[K.M_NLOOPS] == 1
-    assert m + meta[K.M_NLOOPNODES] == n - 1     # one reconnection, counted in the node count
-    held = set(ps[:m].tolist()) | set(lp[: meta[K.M_NLOOPNODES]].tolist())
+    field = field_tuple([], [], np.zeros(0, np.int64), cstart, citems, ncx, ncy, Lx, 100.0)
+    work = Work(cap)
+    work.ntx[:n], work.nty[:n] = w.ntx[:n], w.nty[:n]
+    m, full = K._reconnect_all((xs, ys, ps, gs), n, prm, meta, (lx, ly, lp, loff), field,
+                               work.f, work.i)
+    assert full and meta[C.M_NLOOPS] == 1
+    assert m + meta[C.M_NLOOPNODES] == n - 1     # one reconnection, counted in the node count
+    held = set(ps[:m].tolist()) | set(lp[: meta[C.M_NLOOPNODES]].tolist())
     assert {5, 6} <= held                         # both tips still held, by the line or the loop
 
 
@@ -667,5 +678,31 @@ def test_relaxation_never_tunnels(seed, small_loops):
 
     name, steps = relaxer.relax(state, tau, state.area(), protocol, chunk=5, on_chunk=check)
     assert name == "flowing"
-    assert state.meta[K.M_CAPTURES] > 20 and state.n_loops > 10
+    assert state.meta[C.M_CAPTURES] > 20 and state.n_loops > 10
     assert max(checks) > 20
+
+
+# --- the contract --------------------------------------------------------------------------------
+
+def test_pack_parameters_refuses_missing_and_unknown_fields():
+    full = {name: 1 for name in C.PARAMETER_DTYPE.names}
+    assert C.pack_parameters(full).refresh == 1
+    short = dict(full)
+    del short["tau"]
+    with pytest.raises(ValueError, match="missing \\['tau'\\]"):
+        C.pack_parameters(short)
+    with pytest.raises(ValueError, match="unknown \\['taus'\\]"):
+        C.pack_parameters(dict(full, taus=0.0))
+    with pytest.raises(ValueError, match="images must be an integer"):
+        C.pack_parameters(dict(full, images=1.5))
+
+
+def test_kernels_take_at_most_ten_arguments():
+    # grouped arguments (dlsim.contract): no kernel signature is a list of two dozen arrays
+    import inspect
+    from numba.core.registry import CPUDispatcher
+    kernels = [obj for obj in vars(K).values()
+               if isinstance(obj, CPUDispatcher) and obj.py_func.__module__ == K.__name__]
+    assert len(kernels) > 30
+    widest = max(kernels, key=lambda k: len(inspect.signature(k.py_func).parameters))
+    assert len(inspect.signature(widest.py_func).parameters) <= 10, widest.py_func.__name__

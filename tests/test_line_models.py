@@ -10,6 +10,7 @@ from __future__ import annotations
 import copy
 import json
 
+import numba
 import numpy as np
 import pytest
 
@@ -204,10 +205,14 @@ def test_random_discs_screw_lines_need_more_stress_than_edge_lines():
     # field of impenetrable obstacles.  Paired comparison on two fields of 16 discs
     # (ρ = 0.08 L_s, box 4 L_s: a small box, so no absolute value is checked).  Measured ratios
     # 1.17 (seed 1) and 1.17 (seed 2); the row of discs gives 1.3-1.35 at the same D̄.
-    # in this process, one after another: pool workers loading these kernels from numba's
-    # on-disk cache crashed in a clean CI run (cause not found; closing note of issue 5)
-    screw1, edge1, screw2, edge2 = (random_discs_crss((seed, c)) for seed in (1, 2)
-                                    for c in (0.0, 90.0))
+    # two worker processes, which load the kernels from numba's on-disk cache (tests/test_jit.py),
+    # one numba thread each like sweep workers (two threads each would oversubscribe the cores)
+    import concurrent.futures as cf
+    import multiprocessing as mp
+    jobs = [(seed, c) for seed in (1, 2) for c in (0.0, 90.0)]
+    with cf.ProcessPoolExecutor(2, mp_context=mp.get_context("spawn"),
+                                initializer=numba.set_num_threads, initargs=(1,)) as pool:
+        screw1, edge1, screw2, edge2 = pool.map(random_discs_crss, jobs)
     for screw, edge in ((screw1, edge1), (screw2, edge2)):
         assert screw / edge > 1.05
 
