@@ -43,6 +43,10 @@ FORMS = {
     "L^-2": lambda L: L ** -2.0,
     "1/ln L": lambda L: 1.0 / np.log(L),
 }
+#: No box size gets more than this many times the realizations of the largest box: the optimal
+#: allocation for the intercept alone would pile runs into the cheap small boxes, whose values
+#: depend most on the form fitted (a choice of dlsim).
+MAX_SHARE_OF_LARGEST = 4
 #: Two-sided 95 % quantile of the normal distribution.
 NORMAL_95 = 1.959963984540054
 CONVERGE_JSON = "converge.json"
@@ -124,6 +128,8 @@ def size_case(case: Case, side: float) -> Case:
         line.pop(k, None)
     line["length"] = line["height"] = float(side)
     d["statistics"]["realizations"] = 1
+    if "flow_distance" not in (case.raw.get("loading") or {}):   # the default follows the box
+        d["loading"].pop("flow_distance", None)
     return load_case(d, base_dir=Path(case.source).parent if not case.source.startswith("<")
                      else None)
 
@@ -160,6 +166,10 @@ def _next_size(sizes: list[SizeRuns], fit: Fit) -> int:
     cov = np.linalg.inv(X.T @ (w[:, None] * X))
     c = (cov @ (X * w[:, None]).T)[0]
     gain = c ** 2 * var / (n * (n + 1)) / np.array([s.n_obstacles for s in sizes])
+    # never lean on the small boxes alone: their values depend most on the fitted form
+    gain[n >= MAX_SHARE_OF_LARGEST * n[-1]] = -np.inf
+    if not np.isfinite(gain).any():
+        return len(sizes) - 1
     return int(np.argmax(gain))
 
 
