@@ -417,7 +417,9 @@ def _realization_record(case: Case, real: Realization) -> dict:
     """One realization of ``result.json`` ``realizations``."""
     mpa = lambda tau: float(case.units.stress_MPa(tau))  # noqa: E731
     s = real.search
-    return {"realization": real.index, "seed": real.seed, "status": _search_status(s),
+    # populations draw realization r from SeedSequence(seed, spawn_key=(r, population))
+    stream = {} if case.obstacles is not None else {"spawn_key": [real.index]}
+    return {"realization": real.index, "seed": real.seed, **stream, "status": _search_status(s),
             "message": s.message, "crss_MPa": mpa(s.crss), "crss_bracket_MPa": [mpa(s.lo),
                                                                                  mpa(s.hi)],
             "crss_per_pass_MPa": [mpa(p[1].crss) for p in real.passes],
@@ -760,7 +762,9 @@ def format_summary(result: RunResult) -> str:
                      f"interval [{_fmt(lo)}, {_fmt(hi)}] MPa (Student t)")
         for rec in s["realizations"]:
             rlo, rhi = rec["crss_bracket_MPa"]
-            lines.append(f"  realization {rec['realization']} (seed {rec['seed']}): "
+            seed = (f"seed {rec['seed']}" if "spawn_key" not in rec else
+                    f"seed {rec['seed']}, stream {rec['spawn_key'][0]}")
+            lines.append(f"  realization {rec['realization']} ({seed}): "
                          f"{_fmt(rec['crss_MPa'])} MPa, bracket [{_fmt(rlo)}, {_fmt(rhi)}] "
                          f"MPa, {rec['status']}")
     ratio = s["crss_over_orowan"]

@@ -106,6 +106,7 @@ def int_range(lo: int, hi: int) -> Check:
 
 
 NON_EMPTY = Check(lambda v: v.strip() != "", "a non-empty path")
+NON_EMPTY_NAME = Check(lambda v: v.strip() != "", "a non-empty name")
 #: Caps of single keys: beyond them no case makes sense and the arithmetic would overflow.
 MAX_LENGTH_NM = 1e8          # 10 cm
 MIN_LENGTH_NM = 1e-3         # far below any interatomic distance
@@ -320,7 +321,7 @@ _NM_COLUMN = Check(lambda v: v.strip().endswith("_nm"), "a column name ending in
 _MEASURED_OPTIONS = ("size_kind", "sizes_column", "sections_as", "unfold_classes")
 ARRAY_SCHEMA: dict[str, Section] = {
     "populations": Section("one particle population (an alternative to [obstacles])", {
-        "name": Key(str, "a unique name of the population", REQUIRED, NON_EMPTY),
+        "name": Key(str, "a unique name of the population", REQUIRED, NON_EMPTY_NAME),
         "volume_fraction": Key(float, "the volume fraction f", None, between(0, 1, closed=False)),
         "number_density_per_um3": Key(float, "the particles per µm³", None,
                                       between(1e-6, MAX_DENSITY_PER_UM3, closed=True)),
@@ -390,10 +391,16 @@ class LineSpec:
     node_spacing_nm: float
     length_spacings: float
     height_spacings: float
+    #: The height was not given: it is the width, and follows it when a sweep changes the width
+    #: (so the resolved case leaves it out).
+    height_is_length: bool = False
 
     def to_dict(self) -> dict:
-        return {"tension_alpha": self.tension_alpha, "length": self.length_spacings,
-                "height": self.height_spacings, "node_spacing_nm": self.node_spacing_nm}
+        d = {"tension_alpha": self.tension_alpha, "length": self.length_spacings,
+             "height": self.height_spacings, "node_spacing_nm": self.node_spacing_nm}
+        if self.height_is_length:
+            d.pop("height")
+        return d
 
 
 @dataclass(frozen=True)
@@ -525,6 +532,15 @@ class LoadingSpec:
     flow_distance: float
     bisections: int
     max_steps: int
+    #: The flow distance was not given: it is the box height, and follows the box when a sweep or
+    #: a convergence study changes it (so the resolved case leaves it out).
+    flow_distance_is_height: bool = False
+
+    def to_dict(self) -> dict:
+        d = dataclasses.asdict(self)
+        if d.pop("flow_distance_is_height"):
+            d.pop("flow_distance")
+        return d
 
 
 @dataclass(frozen=True)
@@ -606,7 +622,7 @@ class Case:
             "material": _drop_none(dataclasses.asdict(self.material)),
             "line": self.line.to_dict(),
             "friction": dataclasses.asdict(self.friction),
-            "loading": dataclasses.asdict(self.loading),
+            "loading": self.loading.to_dict(),
             "statistics": dataclasses.asdict(self.statistics),
             "strength": dataclasses.asdict(self.strength),
             "elasticity": dataclasses.asdict(self.elasticity),
@@ -816,7 +832,8 @@ def _resolve_line(source: str, line: dict, s: float, square: bool) -> LineSpec:
                      else ("node_spacing", f"{limit:g} spacings"))
         raise CaseError(source, f"line.{key}", f"got {_show(line[key])}; must be at most {most}, "
                                                f"1/{MIN_SEGMENTS} of the box width")
-    return LineSpec(line["tension_alpha"], width * s, height * s, node, width, height)
+    return LineSpec(line["tension_alpha"], width * s, height * s, node, width, height,
+                    not has_height)
 
 
 def _refuse(source: str, key: str, value: Any, why: str) -> None:
@@ -1038,6 +1055,7 @@ def load_case(source: str | os.PathLike | dict | Case, base_dir: str | os.PathLi
     loading = table("loading")
     if loading["flow_distance"] is None:
         loading["flow_distance"] = line.height_spacings
+        loading["flow_distance_is_height"] = True
     spacing = (obstacles.spacing_nm if obstacles is not None
                else P.mean_square_spacing(sum(p.areal_density_per_nm2 for p in populations)))
     elasticity = _resolve_elasticity(name, table("elasticity"), material, spacing)

@@ -490,3 +490,16 @@ def test_apply_overrides_rejects_unknown_array_keys(key):
     raw = {"seed": 1, "populations": [{"name": "a"}, {"name": "b"}]}
     with pytest.raises(CaseError, match=re.escape(f"`{key}`")):
         apply_overrides(raw, {key: 1.0})
+
+
+def test_default_flow_distance_follows_the_box_through_to_dict():
+    # A box-size sweep resolves its base case through to_dict: a flow distance that was never
+    # given must stay "the box height" there, not freeze at the base case's height.
+    case = load_case(with_(line={"length": 20}))
+    assert case.loading.flow_distance == 20 and "flow_distance" not in case.to_dict()["loading"]
+    bigger = apply_overrides(case.to_dict(), {"line.length": 40})
+    assert load_case(bigger).loading.flow_distance == 40
+    given = load_case(with_(line={"length": 20}, loading={"flow_distance": 5}))
+    assert load_case(apply_overrides(given.to_dict(), {"line.length": 40})).loading.flow_distance == 5
+    # the height too follows the width unless it was given
+    assert load_case(bigger).line.height_spacings == 40
