@@ -1,0 +1,2767 @@
+"""Exact quasi-static arc construction for point obstacles (Foreman & Makin, Phil. Mag. 14, 911, 1966).
+
+Under a constant line tension Γ and a uniform resolved shear stress τ, every free segment of the
+line between two pinning points is a circular arc of radius R = Γ/(τ b) (the line-tension relation;
+Hirth & Lothe, *Theory of Dislocations*, 1982, ch. 7).  The line is therefore a periodic chain of
+arcs between pinned point obstacles, and its monotonic quasi-static loading can be followed
+geometrically, event by event, without time steps.  This module builds that construction and finds
+the critical resolved shear stress (CRSS) exactly: the stress is raised to the next *event stress*
+(the smallest stress at which some arc or pin of the current stable configuration becomes
+unstable), the avalanche that follows runs at that fixed stress, and the CRSS is the event stress
+at which the line glides the flow distance without being held.
+
+Reduced units throughout (lengths in b, stress in G, Γ in G b²).  Inside the kernels the stress
+is carried as ``s = τ/(2Γ) = 1/(2R)`` (the half curvature of the arcs).
+
+The construction, its event types, the avalanche order and its limits are described in
+DEVELOPERS.md ("The arc solver").  :func:`find_crss_arcs` is the public entry point;
+:func:`arc_limitations` says whether a field and line model are within its reach.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+from numba import njit
+
+from dlsim import kernels as K
+from dlsim.fields import ObstacleField
+from dlsim.jit import JIT
+from dlsim.line import LineState
+from dlsim.solver import CrssResult, LineModel, Protocol, Relaxation
+
+# --- numerical knobs -----------------------------------------------------------------------------
+#: Events whose stress lies within this relative distance above the current stress happen at the
+#: current stress (ties of degenerate geometry, e.g. every pin of a square array at once).  Far
+#: above rounding (1e-16) and far below any physical spread of event stresses.
+STRESS_TIE = 1e-12
+#: Rotation angles (rad) within this of each other, or of zero, count as equal: a roll that meets an
+#: obstacle lying on its starting circle (to rounding) meets it at once.
+ANGLE_TIE = 1e-12
+#: Points closer than this fraction of R are the same point (shared ends of arcs, contact points).
+POINT_TIE = 1e-9
+#: Largest centre offset of an arc considered when looking for contacts near zero stress, in units
+#: of the size of the pair (a contact at a radius above 10^6 times the pair's size would need two
+#: nearly straight arcs already touching).
+TANGENT_CAP = 1e6
+#: Images of an obstacle above the lowest image not yet passed that can be marked passed exactly
+#: (a bit mask per obstacle); the line would have to span 62 box heights to exceed it.
+IMAGE_BITS = 62
+#: Safety bound on elementary events per obstacle of the field and per box height of glide
+#: (measured: about 3 per obstacle for impenetrable and 6 for weak random points).
+EVENTS_PER_OBSTACLE = 400
+#: A history row is written when the stress has risen by this fraction since the last one (and at
+#: the end), so that large fields do not give one row per avalanche.
+HISTORY_STRESS_BIN = 0.01
+#: Rows of the history buffer between returns to Python.
+HISTORY_CHUNK = 4096
+#: Candidate hits of a roll found invalid (lying beyond the line's crossing of its old position)
+#: that are remembered while looking for the next one.
+MAX_EXCLUDED = 32
+
+# --- state layout: rows of the pin arrays --------------------------------------------------------
+PX, PY, PAL = 0, 1, 2                 # float rows: position (b), chord angle α (rad, continuous)
+N_PF = 3
+(PK, PIY, PPREV, PNEXT, PSH, PVER, PAVER, PGEN, PST, PJST, PAEP, PSAME, PLNK) = range(13)
+N_PI = 13
+# PK obstacle, PIY y-image, PPREV/PNEXT line order, PSH periods to add to the next pin's x,
+# PVER arms version, PAVER right-arc version, PGEN allocation count, PST state (0 free, 1 on the
+# line, 2 left the line in the current avalanche), PJST journal epoch, PAEP allocation epoch,
+# PSAME next pin on the same obstacle, PLNK free/deferred list link.
+ST_FREE, ST_LINE, ST_DEFERRED = 0, 1, 2
+
+# event payload rows (per element e: arc of slot i is e = 2i, pin of slot i is e = 2i + 1)
+EKIND, EVER, EA, EB, EC, ED, EE = range(7)
+N_EP = 7
+EV_NONE, EV_CAPTURE, EV_INSTABLE, EV_TANGENT, EV_SWEEP, EV_RELEASE = range(6)
+
+# scalar slots
+(F_S, F_DA, F_AGAP, F_SLO, F_SROW, F_AROW, F_AREF, F_BX0, F_BX1, F_BY0, F_BY1,
+ F_YTOP) = range(12)
+N_SF = 12
+(I_NPINS, I_FREE, I_NFREE, I_DEFER, I_HN, I_EPOCH, I_JN, I_ANCHOR, I_EVENTS, I_CAPT, I_REL,
+ I_BYP, I_LOOPS, I_NGAP, I_APN, I_NLOOP, I_NLARC, I_LTRUNC, I_NHIST, I_STAMP, I_DBEHIND,
+ I_DFOLD, I_DXMISS, I_TRANSL, I_UNRES, I_NTOUCH, I_NEX, I_NEXTSNAP, I_SNAPEVERY, I_MAXEV,
+ I_ROWEV, I_LOOPSPIN, I_LARCPIN, I_NCX, I_NCY, I_ANCX, I_ANCY, I_LASTPIN, I_PINSROW,
+ I_DINVALID, I_TSTAMP, I_SWEPT, I_JON) = range(43)
+N_SI = 43
+(R_LX, R_LY, R_FLOW, R_SMAX, R_OCWX, R_OCWY, R_ACW, R_ACH, R_H) = range(9)
+N_PR = 9
+
+# roll state
+RP, RMP, RN, RMN = range(4)                      # ints: pivot, its period offset, target, offset
+RCX, RCY, RPHI0, RUNX, RUNY, RPHIN = range(6)    # floats: start centre, pivot angle, target arm
+# candidate of a roll
+CK_NONE, CK_OBST, CK_TARGET, CK_PIN, CK_ARC = range(5)
+
+# kernel return codes
+S_FLOW, S_GIVEUP, S_MAXEV, S_SNAP, S_HIST, S_GROW, S_FATAL = range(7)
+STATUS_NAMES = ("flowing", "no flow", "event limit", "snapshot", "history", "grow", "capacity")
+
+# tuple indices of the work arrays
+(W_PF, W_PI, W_EK, W_EP, W_HP, W_OB, W_OI, W_CS, W_CI, W_AH, W_AP, W_GP, W_LS, W_LSK, W_LR,
+ W_LRK, W_LO, W_JI, W_JF, W_HR, W_SF, W_SI, W_PR, W_TL, W_ST, W_QB, W_RI, W_RF, W_CB, W_CBI,
+ W_EX, W_TS, W_JO) = range(33)
+# history row fields
+H_S, H_AREA, H_SWEPT, H_PINS, H_EVENTS, H_NODES, H_FLOW = range(7)
+N_HR = 7
+
+
+# --- plane geometry (all arcs have the radius R of the current stress) ---------------------------
+@njit(**JIT)
+def _pang(c, s):
+    """Pseudo-angle in [0, 4) of the direction (c, s), monotone in its polar angle (diamond angle;
+    no transcendental call, linear near 0 so small rotations keep their resolution)."""
+    if s >= 0.0:
+        if c > 0.0:
+            return s / (c + s)
+        return 1.0 - c / (s - c)
+    if c < 0.0:
+        return 2.0 - s / (-c - s)
+    return 3.0 + c / (c - s)
+
+
+@njit(**JIT)
+def _cw_p(ux, uy, vx, vy):
+    """Clockwise pseudo-angle from direction u to direction v."""
+    return _pang(ux * vx + uy * vy, uy * vx - ux * vy)
+
+
+@njit(**JIT)
+def _center(px, py, qx, qy, R):
+    """Centre of the arc of radius R from P to Q bulging to the left of P→Q (the forward side).
+
+    The centre lies on the perpendicular bisector, at h = sqrt(R² - c²/4) to the right of the
+    chord; a chord longer than 2R (an unstable arc) gets h = 0, the semicircle.
+    """
+    dx, dy = qx - px, qy - py
+    c = math.sqrt(dx * dx + dy * dy)
+    h2 = R * R - 0.25 * c * c
+    h = math.sqrt(h2) if h2 > 0.0 else 0.0
+    return 0.5 * (px + qx) + h * dy / c, 0.5 * (py + qy) - h * dx / c
+
+
+@njit(**JIT)
+def _on_arc(cx, cy, ax, ay, bx, by, zx, zy):
+    """Whether Z (on the circle) lies on the arc from A clockwise to B about C (ends included)."""
+    ux, uy = ax - cx, ay - cy
+    pz = _cw_p(ux, uy, zx - cx, zy - cy)
+    pb = _cw_p(ux, uy, bx - cx, by - cy)
+    if pz > 4.0 - POINT_TIE:
+        pz -= 4.0
+    return -POINT_TIE <= pz <= pb + POINT_TIE
+
+
+@njit(**JIT)
+def _arc_integral(ax, ay, bx, by, R):
+    """∫ y dx along the arc from A to B (radius R, bulging to the left of A→B), b².
+
+    The chord's trapezoid plus the circular segment R² asin(c/2R) - (c/2) sqrt(R² - c²/4); the sum
+    over the arcs of one period is the area between the line and y = 0.
+    """
+    dx, dy = bx - ax, by - ay
+    c = math.sqrt(dx * dx + dy * dy)
+    trap = 0.5 * dx * (ay + by)
+    if R == np.inf or c == 0.0:
+        return trap
+    u = min(1.0, 0.5 * c / R)
+    return trap + R * R * math.asin(u) - 0.5 * c * R * math.sqrt(max(0.0, 1.0 - u * u))
+
+
+@njit(**JIT)
+def _arc_length(c, R):
+    """Length 2R asin(c/2R) of the arc of chord c (b)."""
+    if R == np.inf:
+        return c
+    return 2.0 * R * math.asin(min(1.0, 0.5 * c / R))
+
+
+@njit(**JIT)
+def release_stress(alpha, phic, a, b):
+    """Stress s = τ/(2Γ) at which a pin's arm angle falls to its critical angle.
+
+    The arm angle is φ = α - asin(a s) - asin(b s) (α the angle between the chords a, b of its two
+    arms, each arm tilted from its chord by half the arc's central angle).  asin(a s) + asin(b s)
+    = A (A = α - φc) is the triangle of sides a, b and circumradius R = 1/(2s) whose angle between
+    a and b is π - A: by the law of cosines its third side is d² = a² + b² + 2ab cos A and
+    s = sin A/d.  Written with the half angle, d² = (a - b)² + 4ab cos²(A/2) and sin A =
+    2 sin(A/2) cos(A/2), which stays exact where a = b and A → π (the square array at φc = 0).
+    The root is the asin branch only while both triangle angles at the pin's neighbours are acute,
+    b + a cos A >= 0 and a + b cos A >= 0; beyond that the longer arm becomes a semicircle (and
+    unstable) first and the pin never releases with these arms: +inf.  A <= 0: released at once.
+    """
+    A = alpha - phic
+    if A <= 0.0:
+        return 0.0
+    if A >= math.pi:
+        return np.inf
+    C = math.cos(0.5 * A)
+    S = math.sin(0.5 * A)
+    if (a - b) + 2.0 * b * C * C < 0.0 or (b - a) + 2.0 * a * C * C < 0.0:
+        return np.inf
+    den = math.sqrt((a - b) * (a - b) + 4.0 * a * b * C * C)
+    return 2.0 * S * C / den
+
+
+@njit(**JIT)
+def _phi(alpha, a, b, s):
+    """Arm angle φ = α - asin(a s) - asin(b s) of a pin at stress s."""
+    return alpha - math.asin(min(1.0, a * s)) - math.asin(min(1.0, b * s))
+
+
+@njit(**JIT)
+def _dist(ax, ay, bx, by):
+    return math.sqrt((bx - ax) * (bx - ax) + (by - ay) * (by - ay))
+
+
+@njit(**JIT)
+def _span(lo, hi, period, ncell):
+    """First cell, its image index and the number of cells of a periodic axis covering [lo, hi]."""
+    img = int(math.floor(lo / period))
+    first = int((lo - img * period) * ncell / period)
+    if first >= ncell:
+        first -= ncell
+        img += 1
+    last = int(math.floor((hi - img * period) * ncell / period))
+    return first, img, max(0, last - first + 1)
+
+
+# --- obstacles passed by the line ----------------------------------------------------------------
+# An obstacle image (k, iy) (y-image iy, any x-image: the line is periodic in x) is "behind" once the
+# line has passed it: every image below front[k], and those above marked in a bit mask.
+@njit(**JIT)
+def _behind(W, k, iy):
+    OI = W[W_OI]
+    off = iy - OI[0, k]
+    if off < 0:
+        return True
+    if off >= IMAGE_BITS:
+        return False
+    return (OI[1, k] >> off) & 1 == 1
+
+
+@njit(**JIT)
+def _set_behind(W, k, iy):
+    OI, SI = W[W_OI], W[W_SI]
+    off = iy - OI[0, k]
+    if off < 0:
+        return
+    if OI[5, k] != SI[I_EPOCH]:         # journal: the flags as the avalanche found them
+        JO = W[W_JO]
+        n = SI[I_JON]
+        JO[0, n], JO[1, n], JO[2, n] = k, OI[0, k], OI[1, k]
+        SI[I_JON] = n + 1
+        OI[5, k] = SI[I_EPOCH]
+    if off >= IMAGE_BITS:              # the line spans more than IMAGE_BITS box heights
+        W[W_SI][I_DFOLD] += 1
+        OI[0, k] = iy - IMAGE_BITS + 1
+        OI[1, k] = 0
+        off = IMAGE_BITS - 1
+    OI[1, k] |= 1 << off
+    while OI[1, k] & 1 == 1:
+        OI[1, k] >>= 1
+        OI[0, k] += 1
+
+
+@njit(**JIT)
+def _find_pin(W, k, iy):
+    """Slot of the pin held by obstacle image (k, iy), -1 if it holds none."""
+    PI = W[W_PI]
+    i = W[W_OI][2, k]
+    while i >= 0:
+        if PI[PIY, i] == iy:
+            return i
+        i = PI[PSAME, i]
+    return -1
+
+
+# --- pins ----------------------------------------------------------------------------------------
+@njit(**JIT)
+def _journal(W, i):
+    """Remember slot i as it was when the current avalanche began (once per avalanche), so that
+    the pinned configuration can be restored if the avalanche turns out to be the flow."""
+    PI, SI = W[W_PI], W[W_SI]
+    ep = SI[I_EPOCH]
+    if PI[PJST, i] == ep or PI[PAEP, i] == ep:
+        return
+    JI = W[W_JI]
+    n = SI[I_JN]
+    JI[0, n], JI[1, n], JI[2, n] = i, PI[PPREV, i], PI[PNEXT, i]
+    JI[3, n], JI[4, n] = PI[PSH, i], PI[PST, i]
+    W[W_JF][n] = W[W_PF][PAL, i]
+    SI[I_JN] = n + 1
+    PI[PJST, i] = ep
+
+
+@njit(**JIT)
+def _extend_box(W, x, y):
+    """Grow the box of what the current roll changed (pins made or taken off; stored x)."""
+    SF = W[W_SF]
+    SF[F_BX0], SF[F_BX1] = min(SF[F_BX0], x), max(SF[F_BX1], x)
+    SF[F_BY0], SF[F_BY1] = min(SF[F_BY0], y), max(SF[F_BY1], y)
+
+
+@njit(**JIT)
+def _alloc(W, k, iy):
+    """A new pin at obstacle image (k, iy); -1 when no slot is left."""
+    PF, PI, SI, OB, OI = W[W_PF], W[W_PI], W[W_SI], W[W_OB], W[W_OI]
+    i = SI[I_FREE]
+    if i < 0:
+        return -1
+    SI[I_FREE] = PI[PLNK, i]
+    SI[I_NFREE] -= 1
+    PI[PK, i], PI[PIY, i], PI[PST, i] = k, iy, ST_LINE
+    PI[PGEN, i] += 1
+    PI[PVER, i] += 1
+    PI[PAVER, i] += 1
+    PI[PAEP, i] = SI[I_EPOCH]
+    PF[PX, i] = OB[0, k]
+    PF[PY, i] = OB[1, k] + iy * W[W_PR][R_LY]
+    PI[PSAME, i] = OI[2, k]
+    OI[2, k] = i
+    off = iy - OI[4, k]
+    if 0 <= off < IMAGE_BITS:           # for the checks: images the line has ever touched
+        OI[3, k] |= 1 << off
+    _extend_box(W, PF[PX, i], PF[PY, i])
+    W[W_SF][F_YTOP] = max(W[W_SF][F_YTOP], PF[PY, i])
+    SI[I_NPINS] += 1
+    SI[I_LASTPIN] = i
+    return i
+
+
+@njit(**JIT)
+def _hremove(W, e):
+    HP = W[W_HP]
+    SI = W[W_SI]
+    p = HP[1, e]
+    if p < 0:
+        return
+    n = SI[I_HN] - 1
+    last = HP[0, n]
+    SI[I_HN] = n
+    HP[1, e] = -1
+    if last != e:
+        HP[0, p] = last
+        HP[1, last] = p
+        _hdown(W, p)
+        _hup(W, HP[1, last])
+
+
+@njit(**JIT)
+def _drop(W, i):
+    """Take pin i off the line (released, bypassed or left in a loop); its events go."""
+    PI, SI, OI = W[W_PI], W[W_SI], W[W_OI]
+    _journal(W, i)
+    k = PI[PK, i]
+    if OI[2, k] == i:
+        OI[2, k] = PI[PSAME, i]
+    else:
+        j = OI[2, k]
+        while PI[PSAME, j] != i:
+            j = PI[PSAME, j]
+        PI[PSAME, j] = PI[PSAME, i]
+    _hremove(W, 2 * i)
+    _hremove(W, 2 * i + 1)
+    _extend_box(W, W[W_PF][PX, i], W[W_PF][PY, i])
+    PI[PVER, i] += 1
+    PI[PAVER, i] += 1
+    SI[I_NPINS] -= 1
+    if PI[PAEP, i] == SI[I_EPOCH]:     # made in this avalanche: nothing to restore, reuse it
+        PI[PST, i] = ST_FREE
+        PI[PLNK, i] = SI[I_FREE]
+        SI[I_FREE] = i
+        SI[I_NFREE] += 1
+    else:                              # kept until the avalanche ends pinned
+        PI[PST, i] = ST_DEFERRED
+        PI[PLNK, i] = SI[I_DEFER]
+        SI[I_DEFER] = i
+
+
+@njit(**JIT)
+def _link(W, i, j, shift):
+    """Make j the next pin after i (j's x plus shift periods is its position in i's frame)."""
+    PI = W[W_PI]
+    _journal(W, i)
+    _journal(W, j)
+    PI[PNEXT, i] = j
+    PI[PSH, i] = shift
+    PI[PAVER, i] += 1
+    PI[PVER, i] += 1
+    PI[PPREV, j] = i
+    PI[PVER, j] += 1
+    W[W_SI][I_LASTPIN] = i
+
+
+@njit(**JIT)
+def _set_alpha(W, i, alpha):
+    _journal(W, i)
+    W[W_PF][PAL, i] = alpha
+    W[W_PI][PVER, i] += 1
+
+
+@njit(**JIT)
+def _touch(W, i):
+    """Queue pin i (and its right arc) for new events when the current event is done."""
+    SI, TS = W[W_SI], W[W_TS]
+    if TS[i] == SI[I_TSTAMP]:
+        return
+    TS[i] = SI[I_TSTAMP]
+    W[W_TL][SI[I_NTOUCH]] = i
+    SI[I_NTOUCH] += 1
+
+
+@njit(**JIT)
+def _next_pos(W, i):
+    """Position of the pin after i, in i's frame."""
+    PF, PI = W[W_PF], W[W_PI]
+    j = PI[PNEXT, i]
+    return PF[PX, j] + PI[PSH, i] * W[W_PR][R_LX], PF[PY, j]
+
+
+@njit(**JIT)
+def _prev_pos(W, i):
+    """Position of the pin before i, in i's frame."""
+    PF, PI = W[W_PF], W[W_PI]
+    j = PI[PPREV, i]
+    return PF[PX, j] - PI[PSH, j] * W[W_PR][R_LX], PF[PY, j]
+
+
+@njit(**JIT)
+def _pin_phi(W, i, s):
+    """Arm angle of pin i at stress s from its chord angle and its two chords."""
+    PF = W[W_PF]
+    x, y = PF[PX, i], PF[PY, i]
+    ax, ay = _prev_pos(W, i)
+    bx, by = _next_pos(W, i)
+    return _phi(PF[PAL, i], _dist(x, y, ax, ay), _dist(x, y, bx, by), s)
+
+
+@njit(**JIT)
+def _chord_alpha(ax, ay, px, py, bx, by):
+    """Counter-clockwise angle in (0, 2π] from the chord P→B (right arm) to P→A (left arm)."""
+    ux, uy, vx, vy = bx - px, by - py, ax - px, ay - py
+    a = math.atan2(ux * vy - uy * vx, ux * vx + uy * vy)
+    return a if a > 0.0 else a + 2.0 * math.pi
+
+
+# --- indexed binary heap of element events, ordered by (stress, element) --------------------------
+@njit(**JIT)
+def _hless(EK, a, b):
+    return EK[a] < EK[b] or (EK[a] == EK[b] and a < b)
+
+
+@njit(**JIT)
+def _hup(W, p):
+    HP, EK = W[W_HP], W[W_EK]
+    e = HP[0, p]
+    while p > 0:
+        q = (p - 1) // 2
+        f = HP[0, q]
+        if not _hless(EK, e, f):
+            break
+        HP[0, p] = f
+        HP[1, f] = p
+        p = q
+    HP[0, p] = e
+    HP[1, e] = p
+
+
+@njit(**JIT)
+def _hdown(W, p):
+    HP, EK = W[W_HP], W[W_EK]
+    n = W[W_SI][I_HN]
+    e = HP[0, p]
+    while True:
+        q = 2 * p + 1
+        if q >= n:
+            break
+        if q + 1 < n and _hless(EK, HP[0, q + 1], HP[0, q]):
+            q += 1
+        f = HP[0, q]
+        if not _hless(EK, f, e):
+            break
+        HP[0, p] = f
+        HP[1, f] = p
+        p = q
+    HP[0, p] = e
+    HP[1, e] = p
+
+
+@njit(**JIT)
+def _hset(W, e, key):
+    HP, EK, SI = W[W_HP], W[W_EK], W[W_SI]
+    EK[e] = key
+    p = HP[1, e]
+    if p < 0:
+        p = SI[I_HN]
+        SI[I_HN] = p + 1
+        HP[0, p] = e
+        HP[1, e] = p
+        _hup(W, p)
+    else:
+        _hup(W, p)
+        _hdown(W, HP[1, e])
+
+
+# --- periodic cell list of the line's arcs (x periodic, y hashed on a power-of-two grid) ----------
+@njit(**JIT)
+def _arc_box(W, i, m):
+    """Bounding box of the disc on the chord of arc i (which holds the arc at every stress it
+    can have), with i's frame shifted by m periods."""
+    PF = W[W_PF]
+    px, py = PF[PX, i] + m * W[W_PR][R_LX], PF[PY, i]
+    qx, qy = _next_pos(W, i)
+    qx += m * W[W_PR][R_LX]
+    mx, my = 0.5 * (px + qx), 0.5 * (py + qy)
+    q = 0.5 * _dist(px, py, qx, qy)
+    return mx - q, mx + q, my - q, my + q
+
+
+@njit(**JIT)
+def _register(W, i):
+    """Enter arc i (pin i to its next pin) in every cell its disc covers; False when the pool is
+    full even after dropping stale entries."""
+    AH, AP, SI, PR = W[W_AH], W[W_AP], W[W_SI], W[W_PR]
+    x0, x1, y0, y1 = _arc_box(W, i, 0)
+    ncx, ncy = SI[I_ANCX], SI[I_ANCY]
+    cx0 = int(math.floor(x0 / PR[R_ACW]))
+    cx1 = int(math.floor(x1 / PR[R_ACW]))
+    cy0 = int(math.floor(y0 / PR[R_ACH]))
+    cy1 = int(math.floor(y1 / PR[R_ACH]))
+    nxc = min(cx1 - cx0 + 1, ncx)
+    nyc = min(cy1 - cy0 + 1, ncy)
+    if SI[I_APN] + nxc * nyc > AP.shape[1]:
+        _compact(W)
+        if SI[I_APN] + nxc * nyc > AP.shape[1]:
+            return False
+    ver = W[W_PI][PAVER, i]
+    for a in range(nxc):
+        kx = (cx0 + a) % ncx
+        for b in range(nyc):
+            cell = kx + ncx * ((cy0 + b) & (ncy - 1))
+            n = SI[I_APN]
+            AP[0, n], AP[1, n], AP[2, n] = i, ver, AH[cell]
+            AH[cell] = n
+            SI[I_APN] = n + 1
+    return True
+
+
+@njit(**JIT)
+def _compact(W):
+    """Rebuild the arc cell lists keeping only entries of arcs still on the line."""
+    AH, AP, SI, PI = W[W_AH], W[W_AP], W[W_SI], W[W_PI]
+    n = 0
+    for cell in range(AH.shape[0]):
+        e = AH[cell]
+        AH[cell] = -1
+        tail = -1
+        while e >= 0:
+            i, ver, nxt = AP[0, e], AP[1, e], AP[2, e]
+            if PI[PST, i] == ST_LINE and PI[PAVER, i] == ver:
+                AP[0, n], AP[1, n], AP[2, n] = i, ver, -1
+                if tail < 0:
+                    AH[cell] = n
+                else:
+                    AP[2, tail] = n
+                tail = n
+                n += 1
+            e = nxt
+    SI[I_APN] = n
+
+
+@njit(**JIT)
+def _gather_arcs(W, x0, x1, y0, y1):
+    """Slots of the arcs on the line whose cells meet the box (each once) into W_QB; their count."""
+    AH, AP, SI, PR, PI = W[W_AH], W[W_AP], W[W_SI], W[W_PR], W[W_PI]
+    ST, QB = W[W_ST], W[W_QB]
+    SI[I_STAMP] += 1
+    stamp = SI[I_STAMP]
+    ncx, ncy = SI[I_ANCX], SI[I_ANCY]
+    cx0 = int(math.floor(x0 / PR[R_ACW]))
+    cx1 = int(math.floor(x1 / PR[R_ACW]))
+    cy0 = int(math.floor(y0 / PR[R_ACH]))
+    cy1 = int(math.floor(y1 / PR[R_ACH]))
+    nxc = min(cx1 - cx0 + 1, ncx)
+    nyc = min(cy1 - cy0 + 1, ncy)
+    count = 0
+    for a in range(nxc):
+        kx = (cx0 + a) % ncx
+        for b in range(nyc):
+            e = AH[kx + ncx * ((cy0 + b) & (ncy - 1))]
+            while e >= 0:
+                i = AP[0, e]
+                if (ST[i] != stamp and PI[PST, i] == ST_LINE and PI[PAVER, i] == AP[1, e]
+                        and i != SI[I_UNRES]):
+                    ST[i] = stamp
+                    if count < QB.shape[0]:
+                        QB[count] = i
+                        count += 1
+                e = AP[2, e]
+    return count
+
+
+# --- events of a stable configuration ------------------------------------------------------------
+@njit(**JIT)
+def _lens_capture(W, px, py, qx, qy, s):
+    """First free obstacle met by the arc P→Q as the stress rises from s.
+
+    The arc sweeps the half disc on its chord (forward side); it meets an obstacle X of that half
+    disc when its radius is the circumradius of P, X, Q, i.e. at s_X = 1/(2R_PXQ) = 2K/(|PX||XQ|c)
+    (K the area of the triangle, c = |PQ|; a closed form).  Returns (s_X, k, ix, iy) of the
+    smallest, (inf, -1, 0, 0) if the half disc holds none.  Obstacles of the half disc already
+    behind the arc (s_X < s) would have been met before; they are counted as a diagnostic.
+    """
+    SI, PR, OB, CS, CI = W[W_SI], W[W_PR], W[W_OB], W[W_CS], W[W_CI]
+    Lx, Ly = PR[R_LX], PR[R_LY]
+    dx, dy = qx - px, qy - py
+    c = math.sqrt(dx * dx + dy * dy)
+    mx, my, q = 0.5 * (px + qx), 0.5 * (py + qy), 0.5 * c
+    nx, ny = -dy / c, dx / c
+    best, bk, bix, biy = np.inf, -1, 0, 0
+    ncx, ncy = SI[I_NCX], SI[I_NCY]
+    kx, ix, nkx = _span(mx - q, mx + q, Lx, ncx)
+    ky0, iy0, nky = _span(my - q, my + q, Ly, ncy)
+    for _a in range(nkx):
+        ky, iy = ky0, iy0
+        for _b in range(nky):
+            cell = kx + ncx * ky
+            for e in range(CS[cell], CS[cell + 1]):
+                k = CI[e]
+                x, y = OB[0, k] + ix * Lx, OB[1, k] + iy * Ly
+                rx, ry = x - mx, y - my
+                if rx * rx + ry * ry >= q * q or rx * nx + ry * ny <= 0.0:
+                    continue
+                if _behind(W, k, iy) or _find_pin(W, k, iy) >= 0:
+                    continue
+                ax, ay = x - px, y - py
+                cross = dx * ay - dy * ax
+                sx = cross / (math.sqrt(ax * ax + ay * ay)
+                              * math.sqrt((qx - x) * (qx - x) + (qy - y) * (qy - y)) * c)
+                if sx < s * (1.0 - STRESS_TIE):
+                    SI[I_DBEHIND] += 1
+                    continue
+                if sx < best or (sx == best and (k < bk or (k == bk and iy < biy))):
+                    best, bk, bix, biy = sx, k, ix, iy
+            ky += 1
+            if ky == ncy:
+                ky, iy = 0, iy + 1
+        kx += 1
+        if kx == ncx:
+            kx, ix = 0, ix + 1
+    return best, bk, bix, biy
+
+
+@njit(**JIT)
+def _peval(c, deg, t):
+    v = c[deg]
+    for j in range(deg - 1, -1, -1):
+        v = v * t + c[j]
+    return v
+
+
+@njit(**JIT)
+def _bisect(c, deg, a, b, fa):
+    """Root of the polynomial c (degree deg) in [a, b] where it changes sign (fa = value at a)."""
+    for _ in range(200):
+        m = 0.5 * (a + b)
+        if m <= a or m >= b:
+            break
+        fm = _peval(c, deg, m)
+        if fm == 0.0:
+            return m
+        if (fm < 0.0) == (fa < 0.0):
+            a, fa = m, fm
+        else:
+            b = m
+    return 0.5 * (a + b)
+
+
+@njit(**JIT)
+def poly_roots(coef, lo, hi, out):
+    """Real roots in [lo, hi] of a polynomial of degree <= 4 (coef[j] multiplies t^j), ascending.
+
+    Exact to rounding, no transcendental call: the roots of each derivative split [lo, hi] into
+    pieces where the polynomial one degree up is monotone, and each piece holding a sign change is
+    bisected to machine precision (working up from the linear derivative to the quartic).
+    """
+    D = np.zeros((5, 5))
+    for j in range(5):
+        D[4, j] = coef[j]
+    for d in range(3, 0, -1):
+        for j in range(d + 1):
+            D[d, j] = (j + 1) * D[d + 1, j + 1]
+    br = np.empty(6)
+    nb = 0
+    if D[1, 1] != 0.0:
+        r = -D[1, 0] / D[1, 1]
+        if lo < r < hi:
+            br[0] = r
+            nb = 1
+    pts = np.empty(8)
+    for d in range(2, 5):
+        pts[0] = lo
+        for j in range(nb):
+            pts[j + 1] = br[j]
+        pts[nb + 1] = hi
+        nr = 0
+        fa = _peval(D[d], d, pts[0])
+        if fa == 0.0:
+            br[nr] = pts[0]
+            nr += 1
+        for j in range(nb + 1):
+            a, b = pts[j], pts[j + 1]
+            fb = _peval(D[d], d, b)
+            if fb == 0.0:
+                if nr == 0 or br[nr - 1] < b:
+                    br[nr] = b
+                    nr += 1
+            elif fa != 0.0 and (fa < 0.0) != (fb < 0.0):
+                br[nr] = _bisect(D[d], d, a, b, fa)
+                nr += 1
+            fa = fb
+        nb = nr
+    for j in range(nb):
+        out[j] = br[j]
+    return nb
+
+
+@njit(**JIT)
+def tangency(pax, pay, nax, nay, pbx, pby, nbx, nby, s0, s1):
+    """First stress s in [s0, s1] at which two arcs P_a→N_a and P_b→N_b touch at interior points.
+
+    At radius R the arcs' centres are O = M - n t (M the chord's midpoint, n its forward normal,
+    t = sqrt(R² - q²), q the half chord).  They touch when |O_a - O_b| = 2R with the point of
+    contact (O_a + O_b)/2 on both arcs.  With t = t_a and t_b² = t² + q_a² - q_b², the condition
+    F(t) + t_b H(t) = 0 (F = E - 2t² - 2At, H = 2B - 2Gt; A = D·n_a, B = D·n_b, G = n_a·n_b,
+    D = M_a - M_b, E = |D|² + q_a² - q_b² - 4q_a²) squares to a quartic in t, whose roots in the
+    range of t are isolated exactly (:func:`poly_roots`); a root counts if the unsquared equation
+    holds and the contact point lies on both arcs.  Returns (s, zx, zy), s = inf if none.
+    """
+    dxa, dya = nax - pax, nay - pay
+    dxb, dyb = nbx - pbx, nby - pby
+    ca, cb = math.sqrt(dxa * dxa + dya * dya), math.sqrt(dxb * dxb + dyb * dyb)
+    qa, qb = 0.5 * ca, 0.5 * cb
+    max_, may = 0.5 * (pax + nax), 0.5 * (pay + nay)
+    mbx, mby = 0.5 * (pbx + nbx), 0.5 * (pby + nby)
+    nxa, nya = -dya / ca, dxa / ca
+    nxb, nyb = -dyb / cb, dxb / cb
+    Dx, Dy = max_ - mbx, may - mby
+    A, B, G = Dx * nxa + Dy * nya, Dx * nxb + Dy * nyb, nxa * nxb + nya * nyb
+    dl = qa * qa - qb * qb
+    E = Dx * Dx + Dy * Dy + dl - 4.0 * qa * qa
+    coef = np.empty(5)
+    coef[4] = 1.0 - G * G
+    coef[3] = 2.0 * A + 2.0 * G * B
+    coef[2] = A * A - E - B * B - G * G * dl
+    coef[1] = -A * E + 2.0 * G * B * dl
+    coef[0] = 0.25 * E * E - B * B * dl
+    scale = math.sqrt(Dx * Dx + Dy * Dy) + qa + qb
+    R0 = np.inf if s0 <= 0.0 else 0.5 / s0
+    R1 = 0.5 / s1
+    t_hi = min(math.sqrt(max(0.0, R0 * R0 - qa * qa)), TANGENT_CAP * scale)
+    t_lo = math.sqrt(max(0.0, R1 * R1 - qa * qa))
+    t_lo = max(t_lo, math.sqrt(max(0.0, -dl)))
+    if not t_lo < t_hi:
+        return np.inf, 0.0, 0.0
+    roots = np.empty(6)
+    nr = poly_roots(coef, t_lo, t_hi, roots)
+    for j in range(nr - 1, -1, -1):       # largest t first: the smallest stress
+        t = roots[j]
+        tb = math.sqrt(max(0.0, t * t + dl))
+        F = E - 2.0 * t * t - 2.0 * A * t
+        H = 2.0 * B - 2.0 * G * t
+        if abs(F + tb * H) > 1e-7 * (abs(F) + abs(tb * H) + scale * scale):
+            continue
+        R = math.sqrt(qa * qa + t * t)
+        oax, oay = max_ - nxa * t, may - nya * t
+        obx, oby = mbx - nxb * tb, mby - nyb * tb
+        zx, zy = 0.5 * (oax + obx), 0.5 * (oay + oby)
+        if (_on_arc(oax, oay, pax, pay, nax, nay, zx, zy)
+                and _on_arc(obx, oby, pbx, pby, nbx, nby, zx, zy)):
+            return 0.5 / R, zx, zy
+    return np.inf, 0.0, 0.0
+
+
+@njit(**JIT)
+def _sweep_stress(px, py, qx, qy, x, y, s):
+    """Stress at which the arc P→Q passes the point X (inf when X is not in its half disc ahead)."""
+    dx, dy = qx - px, qy - py
+    c = math.sqrt(dx * dx + dy * dy)
+    mx, my = 0.5 * (px + qx), 0.5 * (py + qy)
+    rx, ry = x - mx, y - my
+    if rx * rx + ry * ry >= 0.25 * c * c or -dy * rx + dx * ry <= 0.0:
+        return np.inf
+    ax, ay = x - px, y - py
+    sx = (dx * ay - dy * ax) / (math.sqrt(ax * ax + ay * ay)
+                                * math.sqrt((qx - x) * (qx - x) + (qy - y) * (qy - y)) * c)
+    return sx if sx >= s * (1.0 - STRESS_TIE) else np.inf
+
+
+@njit(**JIT)
+def _halfdiscs_meet(pax, pay, nax, nay, pbx, pby, nbx, nby):
+    """Cheap necessary test that the half discs on two chords (forward sides) overlap."""
+    ca = _dist(pax, pay, nax, nay)
+    cb = _dist(pbx, pby, nbx, nby)
+    max_, may = 0.5 * (pax + nax), 0.5 * (pay + nay)
+    mbx, mby = 0.5 * (pbx + nbx), 0.5 * (pby + nby)
+    tol = POINT_TIE * (ca + cb)
+    if _dist(max_, may, mbx, mby) > 0.5 * (ca + cb) + tol:
+        return False
+    # the other half disc must reach the forward side of each chord
+    if ((mbx - pax) * -(nay - pay) + (mby - pay) * (nax - pax)) / ca + 0.5 * cb < -tol:
+        return False
+    if ((max_ - pbx) * -(nby - pby) + (may - pby) * (nbx - pbx)) / cb + 0.5 * ca < -tol:
+        return False
+    return True
+
+
+@njit(**JIT)
+def _arc_event(W, i):
+    """Next event of arc i (pin i to its next pin) as the stress rises: capture, instability or
+    contact with another arc of the line, whichever comes first; entered in the heap."""
+    PF, PI, EP, SI = W[W_PF], W[W_PI], W[W_EP], W[W_SI]
+    Lx = W[W_PR][R_LX]
+    s = W[W_SF][F_S]
+    e = 2 * i
+    px, py = PF[PX, i], PF[PY, i]
+    qx, qy = _next_pos(W, i)
+    c = _dist(px, py, qx, qy)
+    best, kind = 1.0 / c, EV_INSTABLE
+    sx, k, ix, iy = _lens_capture(W, px, py, qx, qy, s)
+    if sx <= best:
+        best, kind = sx, EV_CAPTURE
+        EP[EA, e], EP[EB, e], EP[EC, e] = k, iy, ix
+    x0, x1, y0, y1 = _arc_box(W, i, 0)
+    n = _gather_arcs(W, x0, x1, y0, y1)
+    QB = W[W_QB]
+    for a in range(n):
+        j = QB[a]
+        for m in range(-2, 3):
+            if j == i or (PI[PNEXT, i] == j and PI[PSH, i] == m) or (
+                    PI[PNEXT, j] == i and PI[PSH, j] + m == 0):
+                continue
+            u0, u1, v0, v1 = _arc_box(W, j, m)
+            if u1 < x0 or u0 > x1 or v1 < y0 or v0 > y1:
+                continue
+            bx, by = PF[PX, j] + m * Lx, PF[PY, j]
+            cx_, cy_ = _next_pos(W, j)
+            cx_ += m * Lx
+            if not _halfdiscs_meet(px, py, qx, qy, bx, by, cx_, cy_):
+                continue
+            smax = min(1.0 / c, 1.0 / _dist(bx, by, cx_, cy_))
+            st, _zx, _zy = tangency(px, py, qx, qy, bx, by, cx_, cy_, s, smax)
+            if st < best:
+                best, kind = st, EV_TANGENT
+                EP[EA, e], EP[EB, e], EP[EC, e] = j, PI[PAVER, j], m
+            # one arc passing over an end pin of the other
+            for end in range(2):
+                d = j if end == 0 else PI[PNEXT, j]
+                ex, ey = (bx, by) if end == 0 else (cx_, cy_)
+                sw = _sweep_stress(px, py, qx, qy, ex, ey, s)
+                if sw < best:
+                    best, kind = sw, EV_SWEEP
+                    EP[EA, e], EP[EB, e], EP[EC, e] = i, PI[PAVER, i], d
+                    EP[ED, e], EP[EE, e] = PI[PGEN, d], m + (0 if end == 0 else PI[PSH, j])
+                d = i if end == 0 else PI[PNEXT, i]
+                ex, ey = (px, py) if end == 0 else (qx, qy)
+                sw = _sweep_stress(bx, by, cx_, cy_, ex, ey, s)
+                if sw < best:
+                    best, kind = sw, EV_SWEEP
+                    EP[EA, e], EP[EB, e], EP[EC, e] = j, PI[PAVER, j], d
+                    EP[ED, e], EP[EE, e] = PI[PGEN, d], (0 if end == 0 else PI[PSH, i]) - m
+    EP[EKIND, e], EP[EVER, e] = kind, PI[PAVER, i]
+    _hset(W, e, best)
+
+
+@njit(**JIT)
+def _pin_event(W, i):
+    """Release stress of pin i (closed form, :func:`release_stress`), entered in the heap."""
+    PF, PI, EP = W[W_PF], W[W_PI], W[W_EP]
+    e = 2 * i + 1
+    x, y = PF[PX, i], PF[PY, i]
+    ax, ay = _prev_pos(W, i)
+    bx, by = _next_pos(W, i)
+    sr = release_stress(PF[PAL, i], W[W_OB][2, PI[PK, i]], _dist(x, y, ax, ay),
+                        _dist(x, y, bx, by))
+    EP[EKIND, e], EP[EVER, e] = EV_RELEASE, PI[PVER, i]
+    if sr == np.inf:
+        _hremove(W, e)
+    else:
+        _hset(W, e, sr)
+
+
+@njit(**JIT)
+def _event_valid(W, e):
+    """Whether the stored event of element e still describes the line (else it is recomputed)."""
+    PI, EP = W[W_PI], W[W_EP]
+    i = e // 2
+    if PI[PST, i] != ST_LINE:
+        return False
+    if e % 2 == 1:
+        return PI[PVER, i] == EP[EVER, e]
+    if PI[PAVER, i] != EP[EVER, e]:
+        return False
+    kind = EP[EKIND, e]
+    if kind == EV_CAPTURE:
+        return not _behind(W, EP[EA, e], EP[EB, e]) and _find_pin(W, EP[EA, e], EP[EB, e]) < 0
+    if kind == EV_TANGENT:
+        j = EP[EA, e]
+        return PI[PST, j] == ST_LINE and PI[PAVER, j] == EP[EB, e]
+    if kind == EV_SWEEP:
+        x, d = EP[EA, e], EP[EC, e]
+        return (PI[PST, x] == ST_LINE and PI[PAVER, x] == EP[EB, e]
+                and PI[PST, d] == ST_LINE and PI[PGEN, d] == EP[ED, e])
+    return True
+
+
+@njit(**JIT)
+def _refresh_touched(W):
+    """New events for every pin touched by the last event, and for its right arc."""
+    SI, PI, TL = W[W_SI], W[W_PI], W[W_TL]
+    for a in range(SI[I_NTOUCH]):
+        i = TL[a]
+        if PI[PST, i] == ST_LINE:
+            _arc_event(W, i)
+            _pin_event(W, i)
+    SI[I_NTOUCH] = 0
+    SI[I_TSTAMP] += 1
+
+
+# --- loops cut off the line -----------------------------------------------------------------------
+@njit(**JIT)
+def _ls_add(W, n, cx, cy, x0, y0, x1, y1, k):
+    """Append an arc (centre, start, end; clockwise) to the loop being built; its new size."""
+    LS = W[W_LS]
+    if n >= LS.shape[1]:
+        return n
+    LS[0, n], LS[1, n], LS[2, n], LS[3, n], LS[4, n], LS[5, n] = cx, cy, x0, y0, x1, y1
+    W[W_LSK][n] = k
+    return n + 1
+
+
+@njit(**JIT)
+def _roll_pos(W, i, m):
+    PF = W[W_PF]
+    return PF[PX, i] + m * W[W_PR][R_LX], PF[PY, i]
+
+
+@njit(**JIT)
+def _ls_chain(W, a, ma, b, n, R):
+    """Append the arcs of the line from pin a (period offset ma) forward to pin b; returns the new
+    size and the arcs' ∫ y dx (their share of the area under the line)."""
+    PI = W[W_PI]
+    i, m, area = a, ma, 0.0
+    for _ in range(W[W_SI][I_NPINS] + 1):
+        if i == b:
+            break
+        j, mj = PI[PNEXT, i], m + PI[PSH, i]
+        px, py = _roll_pos(W, i, m)
+        qx, qy = _roll_pos(W, j, mj)
+        cx, cy = _center(px, py, qx, qy, R)
+        n = _ls_add(W, n, cx, cy, px, py, qx, qy, PI[PK, i])
+        area += _arc_integral(px, py, qx, qy, R)
+        i, m = j, mj
+    return n, area
+
+
+@njit(**JIT)
+def _drop_chain(W, a, b):
+    """Take the pins from a forward to b (both included) off the line; they stay behind."""
+    PI = W[W_PI]
+    i = a
+    for _ in range(W[W_SI][I_NPINS] + 1):
+        nxt = PI[PNEXT, i]
+        _set_behind(W, PI[PK, i], PI[PIY, i])
+        _drop(W, i)
+        if i == b:
+            break
+        i = nxt
+
+
+@njit(**JIT)
+def _in_loop(W, n, qx, qy, R):
+    """Whether Q lies inside the closed curve of the n loop arcs: crossings of a ray towards +x,
+    counted on the y-monotone pieces of each arc (split at the circle's top and bottom), each
+    piece counted when its ends lie on either side of the ray (so shared ends count once)."""
+    LS = W[W_LS]
+    inside = False
+    pp = np.empty(4)
+    yy = np.empty(4)
+    for a in range(n):
+        cx, cy, x0, y0, x1, y1 = LS[0, a], LS[1, a], LS[2, a], LS[3, a], LS[4, a], LS[5, a]
+        dy = qy - cy
+        if (x0 == x1 and y0 == y1) or abs(dy) >= R:
+            continue
+        ux, uy = x0 - cx, y0 - cy
+        pend = _cw_p(ux, uy, x1 - cx, y1 - cy)
+        pp[0], yy[0] = 0.0, y0
+        m = 1
+        for sy in (1.0, -1.0):
+            p = _cw_p(ux, uy, 0.0, sy)
+            if 0.0 < p < pend:
+                pp[m], yy[m] = p, cy + sy * R
+                m += 1
+        if m == 3 and pp[2] < pp[1]:
+            pp[1], pp[2] = pp[2], pp[1]
+            yy[1], yy[2] = yy[2], yy[1]
+        pp[m], yy[m] = pend, y1
+        w = math.sqrt(R * R - dy * dy)
+        for b in range(m):
+            ya, yb = yy[b], yy[b + 1]
+            if (ya > qy) != (yb > qy):
+                xc = cx + w if yb < ya else cx - w   # clockwise: downwards on the right half
+                if xc > qx:
+                    inside = not inside
+    return inside
+
+
+@njit(**JIT)
+def _loop_finish(W, n, R):
+    """A loop of n arcs (in the loop scratch) was cut off: every free obstacle inside it is now
+    behind the line; the loop is recorded for the output (while the record buffers last)."""
+    LS, SI, PR, OB, CS, CI = W[W_LS], W[W_SI], W[W_PR], W[W_OB], W[W_CS], W[W_CI]
+    Lx, Ly = PR[R_LX], PR[R_LY]
+    x0, x1, y0, y1 = np.inf, -np.inf, np.inf, -np.inf
+    for a in range(n):
+        if LS[2, a] == LS[4, a] and LS[3, a] == LS[5, a]:
+            x0, x1 = min(x0, LS[2, a]), max(x1, LS[2, a])
+            y0, y1 = min(y0, LS[3, a]), max(y1, LS[3, a])
+        else:
+            x0, x1 = min(x0, LS[0, a] - R), max(x1, LS[0, a] + R)
+            y0, y1 = min(y0, LS[1, a] - R), max(y1, LS[1, a] + R)
+    ncx, ncy = SI[I_NCX], SI[I_NCY]
+    if n > 1:
+        kx, ix, nkx = _span(x0, x1, Lx, ncx)
+        ky0, iy0, nky = _span(y0, y1, Ly, ncy)
+        for _a in range(nkx):
+            ky, iy = ky0, iy0
+            for _b in range(nky):
+                cell = kx + ncx * ky
+                for e in range(CS[cell], CS[cell + 1]):
+                    k = CI[e]
+                    x, y = OB[0, k] + ix * Lx, OB[1, k] + iy * Ly
+                    if x < x0 or x > x1 or y < y0 or y > y1:
+                        continue
+                    if _behind(W, k, iy) or _find_pin(W, k, iy) >= 0:
+                        continue
+                    if _in_loop(W, n, x, y, R):
+                        _set_behind(W, k, iy)
+                ky += 1
+                if ky == ncy:
+                    ky, iy = 0, iy + 1
+            kx += 1
+            if kx == ncx:
+                kx, ix = 0, ix + 1
+    if n > 1:
+        SI[I_LOOPS] += 1
+    LR, LRK, LO = W[W_LR], W[W_LRK], W[W_LO]
+    nl, na = SI[I_NLOOP], SI[I_NLARC]
+    if nl + 2 <= LO.shape[0] and na + n <= LR.shape[1]:
+        for a in range(n):
+            for r in range(6):
+                LR[r, na + a] = LS[r, a]
+            LRK[na + a] = W[W_LSK][a]
+        LO[nl + 1] = na + n
+        SI[I_NLOOP], SI[I_NLARC] = nl + 1, na + n
+    else:
+        SI[I_LTRUNC] += 1
+
+
+@njit(**JIT)
+def _point_loop(W, x, y, k):
+    """An impenetrable point bypassed by its two arms meeting at it: an Orowan loop of zero size
+    holding obstacle k."""
+    n = _ls_add(W, 0, x, y, x, y, x, y, k)
+    _loop_finish(W, n, 1.0)
+    W[W_SI][I_BYP] += 1
+
+
+@njit(**JIT)
+def _leave(W, i, x, y):
+    """Pin i is released (sheared, or bypassed when impenetrable): it is behind the line now."""
+    PI, SI = W[W_PI], W[W_SI]
+    k = PI[PK, i]
+    _set_behind(W, k, PI[PIY, i])
+    if W[W_OB][2, k] == 0.0:
+        _point_loop(W, x, y, k)
+    else:
+        SI[I_REL] += 1
+
+
+# --- the gap: the old line between the pivot of a roll and its target ------------------------------
+@njit(**JIT)
+def _gap_put(W, front, cx, cy, x0, y0, x1, y1, R):
+    """Add an arc of the old line to the gap, at its front (pivot side) or back (target side)."""
+    GP, SI = W[W_GP], W[W_SI]
+    n = SI[I_NGAP]
+    if n >= GP.shape[1]:
+        return False
+    if front:
+        for a in range(n, 0, -1):
+            for r in range(6):
+                GP[r, a] = GP[r, a - 1]
+        a = 0
+    else:
+        a = n
+    GP[0, a], GP[1, a], GP[2, a], GP[3, a], GP[4, a], GP[5, a] = cx, cy, x0, y0, x1, y1
+    SI[I_NGAP] = n + 1
+    W[W_SF][F_AGAP] += _arc_integral(x0, y0, x1, y1, R)
+    return True
+
+
+@njit(**JIT)
+def _gap_clear(W):
+    W[W_SI][I_NGAP] = 0
+    W[W_SF][F_AGAP] = 0.0
+
+
+@njit(**JIT)
+def _gap_trim(W, g, xx, xy, R):
+    """The rolling circle has passed the gap up to X on gap arc g: drop what lies before X."""
+    GP, SI, SF = W[W_GP], W[W_SI], W[W_SF]
+    n = SI[I_NGAP]
+    for a in range(g):
+        SF[F_AGAP] -= _arc_integral(GP[2, a], GP[3, a], GP[4, a], GP[5, a], R)
+    SF[F_AGAP] -= _arc_integral(GP[2, g], GP[3, g], GP[4, g], GP[5, g], R)
+    SF[F_AGAP] += _arc_integral(xx, xy, GP[4, g], GP[5, g], R)
+    GP[2, g], GP[3, g] = xx, xy
+    for a in range(g, n):
+        for r in range(6):
+            GP[r, a - g] = GP[r, a]
+    SI[I_NGAP] = n - g
+
+
+@njit(**JIT)
+def _gap_lead(W, ocx, ocy, fx, fy, R):
+    """The line now follows the circle about O from F until it meets the old line (the gap): that
+    piece replaces the part of the gap it has passed.  False (gap unchanged) if it meets none."""
+    g, xx, xy = _gap_cross(W, ocx, ocy, fx, fy, R)
+    if g < 0:
+        return False
+    _gap_trim(W, g, xx, xy, R)
+    return _gap_put(W, True, ocx, ocy, fx, fy, xx, xy, R)
+
+
+@njit(**JIT)
+def _circle_cuts(ocx, ocy, gcx, gcy, R):
+    """Intersections of two circles of radius R (count, x1, y1, x2, y2); same circle: 0."""
+    dx, dy = gcx - ocx, gcy - ocy
+    dd = math.sqrt(dx * dx + dy * dy)
+    if dd < POINT_TIE * R or dd >= 2.0 * R:
+        return 0, 0.0, 0.0, 0.0, 0.0
+    hh = math.sqrt(R * R - 0.25 * dd * dd)
+    mx, my = 0.5 * (ocx + gcx), 0.5 * (ocy + gcy)
+    wx, wy = -dy / dd * hh, dx / dd * hh
+    return 2, mx + wx, my + wy, mx - wx, my - wy
+
+
+@njit(**JIT)
+def _crosses_gap(W, ocx, ocy, px, py, zx, zy, R):
+    """Whether the arc from P clockwise to Z about O crosses the old line (the gap) before Z: then
+    Z lies beyond where the rolling arc meets the old line and is not reached."""
+    GP = W[W_GP]
+    tol = POINT_TIE * R
+    ux, uy = px - ocx, py - ocy
+    pz = _cw_p(ux, uy, zx - ocx, zy - ocy)
+    for g in range(W[W_SI][I_NGAP]):
+        nc, ax, ay, bx, by = _circle_cuts(ocx, ocy, GP[0, g], GP[1, g], R)
+        for c in range(nc):
+            ix, iy = (ax, ay) if c == 0 else (bx, by)
+            if _dist(ix, iy, px, py) < tol or _dist(ix, iy, zx, zy) < tol:
+                continue
+            if not _on_arc(GP[0, g], GP[1, g], GP[2, g], GP[3, g], GP[4, g], GP[5, g], ix, iy):
+                continue
+            if _cw_p(ux, uy, ix - ocx, iy - ocy) < pz:
+                return True
+    return False
+
+
+@njit(**JIT)
+def _gap_cross(W, ocx, ocy, zx, zy, R):
+    """First point after Z (clockwise about O) where the circle meets the gap: (arc, x, y), arc -1
+    if it does not."""
+    GP = W[W_GP]
+    tol = POINT_TIE * R
+    ux, uy = zx - ocx, zy - ocy
+    best, bg, bx_, by_ = np.inf, -1, 0.0, 0.0
+    for g in range(W[W_SI][I_NGAP]):
+        nc, ax, ay, bx, by = _circle_cuts(ocx, ocy, GP[0, g], GP[1, g], R)
+        for c in range(nc):
+            ix, iy = (ax, ay) if c == 0 else (bx, by)
+            if _dist(ix, iy, zx, zy) < tol:
+                continue
+            if not _on_arc(GP[0, g], GP[1, g], GP[2, g], GP[3, g], GP[4, g], GP[5, g], ix, iy):
+                continue
+            p = _cw_p(ux, uy, ix - ocx, iy - ocy)
+            if p < best:
+                best, bg, bx_, by_ = p, g, ix, iy
+    return bg, bx_, by_
+
+
+@njit(**JIT)
+def _loop_gap_part(W, n, ocx, ocy, zx, zy, R):
+    """Append to the loop the rolling circle from Z to where it meets the gap, and the gap from
+    there to its end (the part of the old line the loop takes with it)."""
+    GP = W[W_GP]
+    g, xx, xy = _gap_cross(W, ocx, ocy, zx, zy, R)
+    if g < 0:
+        W[W_SI][I_DXMISS] += 1
+        return n
+    n = _ls_add(W, n, ocx, ocy, zx, zy, xx, xy, -1)
+    n = _ls_add(W, n, GP[0, g], GP[1, g], xx, xy, GP[4, g], GP[5, g], -1)
+    for a in range(g + 1, W[W_SI][I_NGAP]):
+        n = _ls_add(W, n, GP[0, a], GP[1, a], GP[2, a], GP[3, a], GP[4, a], GP[5, a], -1)
+    return n
+
+
+# --- the roll ------------------------------------------------------------------------------------
+@njit(**JIT)
+def _excluded(W, kind, a, b, c):
+    EX = W[W_EX]
+    for j in range(W[W_SI][I_NEX]):
+        if EX[0, j] == kind and EX[1, j] == a and EX[2, j] == b and EX[3, j] == c:
+            return True
+    return False
+
+
+@njit(**JIT)
+def _better(p, d2, kind, a, b, c, CB, CBI):
+    """Lexicographic order of roll candidates: rotation (ties at zero snapped), distance from the
+    pivot along the circle, kind, then ids."""
+    bp, bd2 = CB[0], CB[1]
+    if p != bp:
+        return p < bp
+    if d2 != bd2:
+        return d2 < bd2
+    if kind != CBI[0]:
+        return kind < CBI[0]
+    if a != CBI[1]:
+        return a < CBI[1]
+    if b != CBI[2]:
+        return b < CBI[2]
+    return c < CBI[3]
+
+
+@njit(**JIT)
+def _take(CB, CBI, p, d2, ocx, ocy, zx, zy, kind, a, b, c):
+    CB[0], CB[1], CB[2], CB[3], CB[4], CB[5] = p, d2, ocx, ocy, zx, zy
+    CBI[0], CBI[1], CBI[2], CBI[3] = kind, a, b, c
+
+
+@njit(**JIT)
+def _rot(v0x, v0y, vx, vy):
+    """Pseudo-angle of the rotation from the start centre direction v0 to v (counter-clockwise),
+    rotations within ANGLE_TIE of zero (either side) snapped to zero."""
+    p = _pang(v0x * vx + v0y * vy, v0x * vy - v0y * vx)
+    if p > 4.0 - ANGLE_TIE or p < ANGLE_TIE:
+        return 0.0
+    return p
+
+
+@njit(**JIT)
+def _scan(W, R):
+    """The first thing the rolling circle meets as it turns about the pivot (counter-clockwise,
+    sweeping forward), within the rotation at which the pivot would be released.
+
+    The circle of radius R through the pivot P turns about P from its start centre; points are
+    met on its advancing half (clockwise from P up to the opposite point).  Candidates: a free
+    obstacle (centre of the circle through P and X, on the right of P→X), the target pin (only
+    while its chord is shorter than 2R), another pin of the line, or an arc of the line touched
+    from outside (centre at 2R from the arc's centre: the intersection of two circles).  The
+    best goes to the candidate buffers; returns its kind (CK_NONE: the pivot is released first).
+    """
+    PF, PI, SI, PR, OB, CS, CI = W[W_PF], W[W_PI], W[W_SI], W[W_PR], W[W_OB], W[W_CS], W[W_CI]
+    RI, RF, CB, CBI = W[W_RI], W[W_RF], W[W_CB], W[W_CBI]
+    Lx, Ly = PR[R_LX], PR[R_LY]
+    P, mP, N, mN = RI[RP], RI[RMP], RI[RN], RI[RMN]
+    px, py = _roll_pos(W, P, mP)
+    v0x, v0y = RF[RCX] - px, RF[RCY] - py
+    thmax = RF[RPHI0] - OB[2, PI[PK, P]]
+    CB[0], CB[1] = np.inf, np.inf
+    CBI[0] = CK_NONE
+    if thmax < -ANGLE_TIE:
+        return CK_NONE
+    if thmax <= 0.0:
+        pmax = 0.0
+    elif thmax >= 2.0 * math.pi:
+        pmax = 4.0
+    else:
+        pmax = _pang(math.cos(thmax), math.sin(thmax))
+    R2 = R * R
+    reach2 = 4.0 * R2 * (1.0 + 1e-14)
+    target2 = 4.0 * R2 / ((1.0 + STRESS_TIE) * (1.0 + STRESS_TIE))
+    ncx, ncy = SI[I_NCX], SI[I_NCY]
+    kx, ix, nkx = _span(px - 2.0 * R, px + 2.0 * R, Lx, ncx)
+    ky0, iy0, nky = _span(py - 2.0 * R, py + 2.0 * R, Ly, ncy)
+    for _a in range(nkx):
+        ky, iy = ky0, iy0
+        for _b in range(nky):
+            cell = kx + ncx * ky
+            for e in range(CS[cell], CS[cell + 1]):
+                k = CI[e]
+                x, y = OB[0, k] + ix * Lx, OB[1, k] + iy * Ly
+                dx, dy = x - px, y - py
+                d2 = dx * dx + dy * dy
+                if d2 >= reach2 or d2 == 0.0 or _behind(W, k, iy):
+                    continue
+                D = _find_pin(W, k, iy)
+                kind, a, b, c = CK_OBST, k, ix, iy
+                if D >= 0:
+                    if D == P and ix == mP:
+                        continue
+                    if D == N and ix == mN:
+                        if d2 >= target2:
+                            continue
+                        kind = CK_TARGET
+                    else:
+                        kind = CK_PIN
+                    a, b, c = D, ix, 0
+                d = math.sqrt(d2)
+                h = math.sqrt(max(R2 - 0.25 * d2, 0.0))
+                ox, oy = px + 0.5 * dx + h * dy / d, py + 0.5 * dy - h * dx / d
+                p = _rot(v0x, v0y, ox - px, oy - py)
+                if p > pmax + ANGLE_TIE:
+                    continue
+                if _better(p, d2, kind, a, b, c, CB, CBI) and not _excluded(W, kind, a, b, c):
+                    _take(CB, CBI, p, d2, ox, oy, x, y, kind, a, b, c)
+            ky += 1
+            if ky == ncy:
+                ky, iy = 0, iy + 1
+        kx += 1
+        if kx == ncx:
+            kx, ix = 0, ix + 1
+    _scan_arcs(W, R, px, py, v0x, v0y, pmax)
+    return CBI[0]
+
+
+@njit(**JIT)
+def _scan_arcs(W, R, px, py, v0x, v0y, pmax):
+    """Arcs of the line the rolling circle touches from outside (see :func:`_scan`)."""
+    PF, PI, RI, CB, CBI = W[W_PF], W[W_PI], W[W_RI], W[W_CB], W[W_CBI]
+    Lx = W[W_PR][R_LX]
+    P, mP = RI[RP], RI[RMP]
+    x0, x1, y0, y1 = px - 2.0 * R, px + 2.0 * R, py - 2.0 * R, py + 2.0 * R
+    n = _gather_arcs(W, x0, x1, y0, y1)
+    QB = W[W_QB]
+    for q in range(n):
+        j = QB[q]
+        for m in range(mP - 2, mP + 3):
+            u0, u1, v0, v1 = _arc_box(W, j, m)
+            if u1 < x0 or u0 > x1 or v1 < y0 or v0 > y1:
+                continue
+            if PI[PNEXT, j] == P and m + PI[PSH, j] == mP:
+                continue                   # the pivot's own left arm
+            ex0, ey0 = PF[PX, j] + m * Lx, PF[PY, j]
+            ex1, ey1 = _next_pos(W, j)
+            ex1 += m * Lx
+            ecx, ecy = _center(ex0, ey0, ex1, ey1, R)
+            D = _dist(px, py, ecx, ecy)
+            if D < R * (1.0 - 1e-12) or D > 3.0 * R:
+                continue
+            a = (D * D - 3.0 * R * R) / (2.0 * D)
+            h = math.sqrt(max(R * R - a * a, 0.0))
+            ux, uy = (ecx - px) / D, (ecy - py) / D
+            for sg in (-1.0, 1.0):
+                ox, oy = px + a * ux - sg * h * uy, py + a * uy + sg * h * ux
+                p = _rot(v0x, v0y, ox - px, oy - py)
+                if p > pmax + ANGLE_TIE:
+                    continue
+                zx, zy = 0.5 * (ox + ecx), 0.5 * (oy + ecy)
+                if not _on_arc(ecx, ecy, ex0, ey0, ex1, ey1, zx, zy):
+                    continue
+                if _cw_p(px - ox, py - oy, zx - ox, zy - oy) > 2.0 + POINT_TIE:
+                    continue
+                d2 = (zx - px) * (zx - px) + (zy - py) * (zy - py)
+                if _better(p, d2, CK_ARC, j, m, 0, CB, CBI) and not _excluded(W, CK_ARC, j, m, 0):
+                    _take(CB, CBI, p, d2, ox, oy, zx, zy, CK_ARC, j, m, 0)
+
+
+ROLL_DONE = -1      # a roll (or one of its steps) ended with the line connected again
+ROLL_ON = -2        # the roll goes on
+SENTINEL = -(1 << 60)
+
+
+@njit(**JIT)
+def _walk_offset(W, start, m0, target, stop):
+    """Period offset of pin target reached walking forward from start (offset m0) before stop."""
+    PI = W[W_PI]
+    i, m = start, m0
+    for _ in range(W[W_SI][I_NPINS] + 1):
+        if i == target:
+            return m
+        if i == stop:
+            return SENTINEL
+        m += PI[PSH, i]
+        i = PI[PNEXT, i]
+    return SENTINEL
+
+
+@njit(**JIT)
+def _turn(ux, uy, vx, vy):
+    """Angle (rad) from direction u to direction v, counter-clockwise, in [-π/2, 3π/2): an arm
+    turns forward by less than three quarters of a turn in one step, and back by less than one."""
+    a = math.atan2(ux * vy - uy * vx, ux * vx + uy * vy)
+    return a + 2.0 * math.pi if a < -0.5 * math.pi else a
+
+
+@njit(**JIT)
+def _rotation(W, ocx, ocy, px, py):
+    """Real rotation angle (rad) of the rolling circle from its start centre to centre O."""
+    RF = W[W_RF]
+    v0x, v0y = RF[RCX] - px, RF[RCY] - py
+    vx, vy = ocx - px, ocy - py
+    if _rot(v0x, v0y, vx, vy) == 0.0:
+        return 0.0
+    th = math.atan2(v0x * vy - v0y * vx, v0x * vx + v0y * vy)
+    return th if th > 0.0 else th + 2.0 * math.pi
+
+
+@njit(**JIT)
+def _fix_pivot(W, theta, c_new, s):
+    """The pivot's right arm stops after turning by theta, on a chord of length c_new."""
+    PF, PI, RI, RF = W[W_PF], W[W_PI], W[W_RI], W[W_RF]
+    P = RI[RP]
+    phi = RF[RPHI0] - theta
+    if P == RI[RN]:                    # single pin: it is also the target, whose angle is carried
+        RF[RPHIN] = phi
+        return
+    ax, ay = _prev_pos(W, P)
+    cl = _dist(PF[PX, P], PF[PY, P], ax, ay)
+    _set_alpha(W, P, phi + math.asin(min(1.0, cl * s)) + math.asin(min(1.0, c_new * s)))
+
+
+@njit(**JIT)
+def _left_tangent(W, i, m, R):
+    """Unit direction from pin i (offset m) back along its left arm."""
+    x, y = _roll_pos(W, i, m)
+    ax, ay = _prev_pos(W, i)
+    ax += m * W[W_PR][R_LX]
+    cx, cy = _center(ax, ay, x, y, R)
+    return -(y - cy) / R, (x - cx) / R
+
+
+@njit(**JIT)
+def _hit_obstacle(W, k, ix, iy, ocx, ocy, theta, s, R):
+    """The rolling circle meets a free obstacle: it becomes a pin and the next pivot."""
+    RI, RF, SI = W[W_RI], W[W_RF], W[W_SI]
+    P, mP, N, mN = RI[RP], RI[RMP], RI[RN], RI[RMN]
+    q = _alloc(W, k, iy)
+    if q < 0:
+        return S_FATAL
+    px, py = _roll_pos(W, P, mP)
+    qx, qy = _roll_pos(W, q, ix)
+    _fix_pivot(W, theta, _dist(px, py, qx, qy), s)
+    _link(W, P, q, ix - mP)
+    _link(W, q, N, mN - ix)
+    SI[I_UNRES] = q
+    if not _gap_lead(W, ocx, ocy, qx, qy, R):
+        SI[I_DXMISS] += 1
+    if not _register(W, P):
+        return S_FATAL
+    W[W_SF][F_DA] += _arc_integral(px, py, qx, qy, R)
+    _touch(W, P)
+    _touch(W, q)
+    SI[I_CAPT] += 1
+    RI[RP], RI[RMP] = q, ix
+    RF[RCX], RF[RCY], RF[RPHI0] = ocx, ocy, math.pi
+    return ROLL_ON
+
+
+@njit(**JIT)
+def _release_target(W, ocx, ocy, theta, s, R):
+    """The target pin cannot hold with its new left arm: released, the roll goes on about the same
+    pivot towards the pin after it."""
+    PF, PI, RI, RF = W[W_PF], W[W_PI], W[W_RI], W[W_RF]
+    P, mP, N, mN = RI[RP], RI[RMP], RI[RN], RI[RMN]
+    nx, ny = _roll_pos(W, N, mN)
+    N2, mN2 = PI[PNEXT, N], mN + PI[PSH, N]
+    x2, y2 = _roll_pos(W, N2, mN2)
+    cx, cy = _center(nx, ny, x2, y2, R)
+    px, py = _roll_pos(W, P, mP)
+    _gap_clear(W)
+    _gap_put(W, False, ocx, ocy, px, py, nx, ny, R)
+    if not _gap_put(W, False, cx, cy, nx, ny, x2, y2, R):
+        return S_FATAL
+    W[W_SF][F_DA] -= _arc_integral(nx, ny, x2, y2, R)
+    phi2 = RF[RPHI0] - theta if N2 == P else _pin_phi(W, N2, s)
+    _leave(W, N, nx, ny)
+    _link(W, P, N2, mN2 - mP)
+    _drop(W, N)
+    RI[RN], RI[RMN] = N2, mN2
+    RF[RUNX], RF[RUNY], RF[RPHIN] = -(y2 - cy) / R, (x2 - cx) / R, phi2
+    RF[RCX], RF[RCY] = ocx, ocy
+    RF[RPHI0] -= theta
+    return ROLL_ON
+
+
+@njit(**JIT)
+def _hit_target(W, ocx, ocy, theta, s, R):
+    """The rolling circle reaches the target pin: connect, unless the target's new arm angle is
+    below its critical angle (then it is released and the roll goes on)."""
+    PF, PI, RI, RF, SI = W[W_PF], W[W_PI], W[W_RI], W[W_RF], W[W_SI]
+    P, mP, N, mN = RI[RP], RI[RMP], RI[RN], RI[RMN]
+    px, py = _roll_pos(W, P, mP)
+    nx, ny = _roll_pos(W, N, mN)
+    c = _dist(px, py, nx, ny)
+    phic = W[W_OB][2, PI[PK, N]]
+    if N == P:
+        alpha, cr = math.pi, c
+    else:
+        unx, uny = -(ny - ocy) / R, (nx - ocx) / R
+        phin = RF[RPHIN] - _turn(unx, uny, RF[RUNX], RF[RUNY])
+        bx, by = _next_pos(W, N)
+        cr = _dist(PF[PX, N], PF[PY, N], bx, by)
+        alpha = phin + math.asin(min(1.0, c * s)) + math.asin(min(1.0, cr * s))
+    if release_stress(alpha, phic, c, cr) <= s * (1.0 + STRESS_TIE):
+        if N == P:
+            RF[RCX], RF[RCY] = ocx, ocy
+            RF[RPHI0] -= theta
+            return _pivot_release(W, s, R)
+        return _release_target(W, ocx, ocy, theta, s, R)
+    if N != P:
+        _fix_pivot(W, theta, c, s)
+    _link(W, P, N, mN - mP)
+    _set_alpha(W, N, alpha)
+    SI[I_UNRES] = -1
+    if not _register(W, P):
+        return S_FATAL
+    W[W_SF][F_DA] += _arc_integral(px, py, nx, ny, R)
+    _touch(W, P)
+    _touch(W, N)
+    return ROLL_DONE
+
+
+@njit(**JIT)
+def _pivot_release(W, s, R):
+    """The pivot's arm angle reached its critical angle before the circle met anything: the pivot
+    is released and the roll goes on about the pin before it, from the circle of its arc."""
+    PI, RI, RF, SI = W[W_PI], W[W_RI], W[W_RF], W[W_SI]
+    P, mP, N, mN = RI[RP], RI[RMP], RI[RN], RI[RMN]
+    px, py = _roll_pos(W, P, mP)
+    _leave(W, P, px, py)
+    th = max(0.0, RF[RPHI0] - W[W_OB][2, PI[PK, P]])
+    v0x, v0y = RF[RCX] - px, RF[RCY] - py
+    ct, st = math.cos(th), math.sin(th)
+    _gap_lead(W, px + ct * v0x - st * v0y, py + st * v0x + ct * v0y, px, py, R)
+    if SI[I_NPINS] == 1:
+        _drop(W, P)
+        SI[I_UNRES] = -1
+        return _free_line(W, s, R)
+    O = PI[PPREV, P]
+    mO = mP - PI[PSH, O]
+    ox, oy = _roll_pos(W, O, mO)
+    cx, cy = _center(ox, oy, px, py, R)
+    if not _gap_put(W, True, cx, cy, ox, oy, px, py, R):
+        return S_FATAL
+    W[W_SF][F_DA] -= _arc_integral(ox, oy, px, py, R)
+    phi0 = RF[RPHIN] if O == N else _pin_phi(W, O, s)
+    _link(W, O, N, mN - mO)
+    SI[I_UNRES] = O
+    _drop(W, P)
+    RI[RP], RI[RMP] = O, mO
+    RF[RCX], RF[RCY], RF[RPHI0] = cx, cy, phi0
+    return ROLL_ON
+
+
+@njit(**JIT)
+def _hit_pin(W, D, ix, ocx, ocy, theta, s, R):
+    """The rolling circle touches another pin of the line: the part of the line between is cut off
+    as a loop.  Ahead of the target (right part): the circle reaches that pin, which becomes the
+    target.  Behind the pivot (left part): that pin becomes the pivot."""
+    PF, PI, RI, RF, SI = W[W_PF], W[W_PI], W[W_RI], W[W_RF], W[W_SI]
+    P, mP, N, mN = RI[RP], RI[RMP], RI[RN], RI[RMN]
+    mD = _walk_offset(W, N, mN, D, P)
+    px, py = _roll_pos(W, P, mP)
+    dx, dy = _roll_pos(W, D, ix)
+    if mD != SENTINEL and ix == mD:
+        n = _loop_gap_part(W, 0, ocx, ocy, dx, dy, R)
+        n, area = _ls_chain(W, N, mN, D, n, R)
+        W[W_SF][F_DA] -= area
+        _loop_finish(W, n, R)
+        unx, uny = _left_tangent(W, D, ix, R)
+        phid = _pin_phi(W, D, s)
+        _drop_chain(W, N, PI[PPREV, D])
+        _gap_clear(W)
+        _gap_put(W, False, ocx, ocy, px, py, dx, dy, R)
+        _link(W, P, D, ix - mP)
+        RI[RN], RI[RMN] = D, ix
+        RF[RUNX], RF[RUNY], RF[RPHIN] = unx, uny, phid
+        return _hit_target(W, ocx, ocy, theta, s, R)
+    if mD != SENTINEL and ix == mD - 1:
+        n, area = _ls_chain(W, D, ix, P, 0, R)
+        n = _ls_add(W, n, ocx, ocy, px, py, dx, dy, PI[PK, P])
+        W[W_SF][F_DA] -= area
+        _loop_finish(W, n, R)
+        bx, by = _next_pos(W, D)
+        bx += ix * W[W_PR][R_LX]
+        ccx, ccy = _center(dx, dy, bx, by, R)
+        told_x, told_y = -(ccy - dy) / R, (ccx - dx) / R
+        tnew_x, tnew_y = -(ocy - dy) / R, (ocx - dx) / R
+        phid = (RF[RPHIN] if D == N else _pin_phi(W, D, s)) - _turn(told_x, told_y, tnew_x, tnew_y)
+        if D == N:
+            RF[RPHIN] = phid
+        _drop_chain(W, PI[PNEXT, D], P)
+        _gap_lead(W, ocx, ocy, dx, dy, R)
+        _link(W, D, N, mN - ix)
+        SI[I_UNRES] = D
+        _touch(W, D)
+        RI[RP], RI[RMP] = D, ix
+        RF[RCX], RF[RCY], RF[RPHI0] = ocx, ocy, phid
+        return ROLL_ON
+    return SENTINEL
+
+
+@njit(**JIT)
+def _hit_arc(W, j, m, ocx, ocy, zx, zy, theta, s, R):
+    """The rolling circle touches an arc E (pin j to the next) of the line from outside: the part
+    of the line between is cut off as a loop.  E ahead of the target: the roll goes on about the
+    same pivot towards E's far end.  E behind the pivot: E's near end becomes the pivot."""
+    PF, PI, RI, RF, SI = W[W_PF], W[W_PI], W[W_RI], W[W_RF], W[W_SI]
+    P, mP, N, mN = RI[RP], RI[RMP], RI[RN], RI[RMN]
+    me = _walk_offset(W, N, mN, j, P)
+    if me == SENTINEL or (m != me and m != me - 1):
+        return SENTINEL
+    px, py = _roll_pos(W, P, mP)
+    e1x, e1y = _roll_pos(W, j, m)
+    j2, m2 = PI[PNEXT, j], m + PI[PSH, j]
+    e2x, e2y = _roll_pos(W, j2, m2)
+    ecx, ecy = _center(e1x, e1y, e2x, e2y, R)
+    ie = _arc_integral(e1x, e1y, e2x, e2y, R)
+    if m == me:
+        n = _loop_gap_part(W, 0, ocx, ocy, zx, zy, R)
+        n, area = _ls_chain(W, N, mN, j, n, R)
+        n = _ls_add(W, n, ecx, ecy, e1x, e1y, zx, zy, PI[PK, j])
+        W[W_SF][F_DA] -= area + ie
+        _loop_finish(W, n, R)
+        phi2 = RF[RPHI0] - theta if j2 == P else _pin_phi(W, j2, s)
+        _drop_chain(W, N, j)
+        _gap_clear(W)
+        _gap_put(W, False, ocx, ocy, px, py, zx, zy, R)
+        _gap_put(W, False, ecx, ecy, zx, zy, e2x, e2y, R)
+        _link(W, P, j2, m2 - mP)
+        RI[RN], RI[RMN] = j2, m2
+        RF[RUNX], RF[RUNY], RF[RPHIN] = -(e2y - ecy) / R, (e2x - ecx) / R, phi2
+        RF[RCX], RF[RCY] = ocx, ocy
+        RF[RPHI0] -= theta
+        return ROLL_ON
+    n = _ls_add(W, 0, ecx, ecy, zx, zy, e2x, e2y, -1)
+    n, area = _ls_chain(W, j2, m2, P, n, R)
+    n = _ls_add(W, n, ocx, ocy, px, py, zx, zy, PI[PK, P])
+    W[W_SF][F_DA] -= area + ie
+    _loop_finish(W, n, R)
+    phi0 = RF[RPHIN] if j == N else _pin_phi(W, j, s)
+    _gap_lead(W, ocx, ocy, zx, zy, R)
+    if not _gap_put(W, True, ecx, ecy, e1x, e1y, zx, zy, R):
+        return S_FATAL
+    _drop_chain(W, j2, P)
+    _link(W, j, N, mN - m)
+    SI[I_UNRES] = j
+    _touch(W, j)
+    RI[RP], RI[RMP] = j, m
+    RF[RCX], RF[RCY], RF[RPHI0] = ecx, ecy, phi0
+    return ROLL_ON
+
+
+@njit(**JIT)
+def _translate(W, R):
+    """A line freed of every pin glides on rigidly (keeping its last shape, the gap) until it
+    touches a free obstacle: the smallest upward shift d between the gap arcs and an obstacle
+    directly above them.  Returns (d, k, ix, iy, arc); arc -1 if the field holds no obstacle."""
+    GP, SI, PR, OB, CS, CI = W[W_GP], W[W_SI], W[W_PR], W[W_OB], W[W_CS], W[W_CI]
+    Lx, Ly = PR[R_LX], PR[R_LY]
+    ncx, ncy = SI[I_NCX], SI[I_NCY]
+    ng = SI[I_NGAP]
+    ylo, yhi = np.inf, -np.inf
+    for g in range(ng):
+        ylo = min(ylo, GP[1, g] - R)
+        yhi = max(yhi, GP[1, g] + R)
+    H = 2.0 * PR[R_OCWY]
+    while True:
+        best, bk, bix, biy, bg = np.inf, -1, 0, 0, -1
+        for g in range(ng):
+            cx, cy, ax, ay, bx, by = GP[0, g], GP[1, g], GP[2, g], GP[3, g], GP[4, g], GP[5, g]
+            gx0 = cx - R if _on_arc(cx, cy, ax, ay, bx, by, cx - R, cy) else min(ax, bx)
+            gx1 = cx + R if _on_arc(cx, cy, ax, ay, bx, by, cx + R, cy) else max(ax, bx)
+            gy0 = cy - R if _on_arc(cx, cy, ax, ay, bx, by, cx, cy - R) else min(ay, by)
+            gy1 = cy + R if _on_arc(cx, cy, ax, ay, bx, by, cx, cy + R) else max(ay, by)
+            kx, ix, nkx = _span(gx0, gx1, Lx, ncx)
+            ky0, iy0, nky = _span(gy0, gy1 + H, Ly, ncy)
+            for _a in range(nkx):
+                ky, iy = ky0, iy0
+                for _b in range(nky):
+                    cell = kx + ncx * ky
+                    for e in range(CS[cell], CS[cell + 1]):
+                        k = CI[e]
+                        x, y = OB[0, k] + ix * Lx, OB[1, k] + iy * Ly
+                        dx = x - cx
+                        if x < gx0 or x > gx1 or abs(dx) > R or _behind(W, k, iy):
+                            continue
+                        w = math.sqrt(R * R - dx * dx)
+                        for yy in (cy + w, cy - w):
+                            d = y - yy
+                            if d < -POINT_TIE * R or not _on_arc(cx, cy, ax, ay, bx, by, x, yy):
+                                continue
+                            d = max(d, 0.0)
+                            if d < best or (d == best and (k < bk or (k == bk and iy < biy))):
+                                best, bk, bix, biy, bg = d, k, ix, iy, g
+                    ky += 1
+                    if ky == ncy:
+                        ky, iy = 0, iy + 1
+                kx += 1
+                if kx == ncx:
+                    kx, ix = 0, ix + 1
+        if best <= H:
+            return best, bk, bix, biy, bg
+        if H > 2.0 * Ly + (yhi - ylo) + 4.0 * R:
+            return np.inf, -1, 0, 0, -1
+        H *= 2.0
+
+
+@njit(**JIT)
+def _gap_rotate(W, g, qx, qy, R):
+    """Reorder the gap (one period of line) to run from Q, on gap arc g, round to Q one period on:
+    the rest of arc g, the arcs after it, the arcs before it one period on, arc g up to Q."""
+    GP, SI = W[W_GP], W[W_SI]
+    Lx = W[W_PR][R_LX]
+    n = SI[I_NGAP]
+    if n + 1 > GP.shape[1]:
+        return
+    old = GP[:, :n].copy()
+    k = 0
+    for a in range(g, n + g + 1):
+        b = a % n
+        for r in range(6):
+            GP[r, k] = old[r, b]
+        if a >= n:
+            GP[0, k] += Lx
+            GP[2, k] += Lx
+            GP[4, k] += Lx
+        k += 1
+    GP[2, 0], GP[3, 0] = qx, qy                 # arc g from Q on
+    GP[4, n], GP[5, n] = qx + Lx, qy            # arc g up to Q, a period on
+    SI[I_NGAP] = n + 1
+    SF = W[W_SF]
+    SF[F_AGAP] = 0.0
+    for a in range(n + 1):
+        SF[F_AGAP] += _arc_integral(GP[2, a], GP[3, a], GP[4, a], GP[5, a], R)
+
+
+@njit(**JIT)
+def _free_line(W, s, R):
+    """Every pin is gone: the line glides on at the same stress (:func:`_translate`) and is caught
+    again by the first obstacle it touches, which starts a new roll with itself as the target
+    one period on."""
+    GP, SI, RI, RF = W[W_GP], W[W_SI], W[W_RI], W[W_RF]
+    d, k, ix, iy, g = _translate(W, R)
+    if g < 0:
+        return S_FLOW                   # nothing can ever hold the line
+    ng = SI[I_NGAP]
+    span = 0.0
+    for a in range(ng):
+        GP[1, a] += d
+        GP[3, a] += d
+        GP[5, a] += d
+        span += GP[4, a] - GP[2, a]
+    W[W_SF][F_AGAP] += d * span
+    SI[I_TRANSL] += 1
+    q = _alloc(W, k, iy)
+    if q < 0:
+        return S_FATAL
+    _link(W, q, q, 1)
+    SI[I_UNRES] = q
+    SI[I_CAPT] += 1
+    _touch(W, q)
+    qx, qy = _roll_pos(W, q, ix)
+    gin, gout = g, g
+    tol = POINT_TIE * R
+    for a in range(ng):                 # at a cusp of the gap: the arcs on either side
+        if _dist(qx, qy, GP[4, a], GP[5, a]) < tol and _dist(qx, qy, GP[2, g], GP[3, g]) < tol:
+            gin = a
+        if _dist(qx, qy, GP[2, a], GP[3, a]) < tol and _dist(qx, qy, GP[4, g], GP[5, g]) < tol:
+            gout = a
+    unx, uny = -(qy - GP[1, gin]) / R, (qx - GP[0, gin]) / R
+    trx, try_ = -(GP[1, gout] - qy) / R, (GP[0, gout] - qx) / R
+    ocx, ocy = GP[0, gout], GP[1, gout]
+    _gap_rotate(W, gout, qx, qy, R)
+    phi = math.atan2(trx * uny - try_ * unx, trx * unx + try_ * uny)
+    if phi < -ANGLE_TIE:                # bent backwards; arms along each other (a cusp of
+        phi += 2.0 * math.pi            # tangent arcs) is φ = 0
+    phi = max(phi, 0.0)
+    RI[RP], RI[RMP], RI[RN], RI[RMN] = q, ix, q, ix + 1
+    RF[RCX], RF[RCY], RF[RPHI0] = ocx, ocy, phi
+    RF[RUNX], RF[RUNY], RF[RPHIN] = unx, uny, phi
+    return ROLL_ON
+
+
+@njit(**JIT)
+def _roll(W):
+    """Run a roll to its end (the line connected again), the flow, or a capacity failure.
+
+    Each step turns the circle through the pivot forward to the first thing it meets
+    (:func:`_scan`): a candidate lying beyond where the rolling arc crosses the old line (the
+    gap) is not reached and is skipped (:func:`_crosses_gap`).  Returns ROLL_DONE or a status.
+    """
+    SI, SF, PR, CB, CBI = W[W_SI], W[W_SF], W[W_PR], W[W_CB], W[W_CBI]
+    s = SF[F_S]
+    R = 0.5 / s
+    SI[I_NEX] = 0
+    while True:
+        SI[I_EVENTS] += 1
+        if SI[I_EVENTS] > SI[I_MAXEV]:
+            return S_MAXEV
+        if (SF[F_DA] + SF[F_AGAP]) / PR[R_LX] >= PR[R_FLOW]:
+            return S_FLOW
+        if SI[I_NFREE] < 2:
+            return S_FATAL
+        kind = _scan(W, R)
+        RI = W[W_RI]
+        px, py = _roll_pos(W, RI[RP], RI[RMP])
+        if kind == CK_NONE:
+            r = _pivot_release(W, s, R)
+        else:
+            ocx, ocy, zx, zy = CB[2], CB[3], CB[4], CB[5]
+            a, b, c = CBI[1], CBI[2], CBI[3]
+            if _crosses_gap(W, ocx, ocy, px, py, zx, zy, R):
+                r = SENTINEL
+            else:
+                theta = _rotation(W, ocx, ocy, px, py)
+                if kind == CK_OBST:
+                    r = _hit_obstacle(W, a, b, c, ocx, ocy, theta, s, R)
+                elif kind == CK_TARGET:
+                    r = _hit_target(W, ocx, ocy, theta, s, R)
+                elif kind == CK_PIN:
+                    r = _hit_pin(W, a, b, ocx, ocy, theta, s, R)
+                else:
+                    r = _hit_arc(W, a, b, ocx, ocy, zx, zy, theta, s, R)
+            if r == SENTINEL:           # not reached after all: look again without it
+                SI[I_DINVALID] += 1
+                if SI[I_NEX] < MAX_EXCLUDED:
+                    EX = W[W_EX]
+                    n = SI[I_NEX]
+                    EX[0, n], EX[1, n], EX[2, n], EX[3, n] = kind, a, b, c
+                    SI[I_NEX] = n + 1
+                    SI[I_EVENTS] -= 1
+                    continue
+                r = _pivot_release(W, s, R)
+        SI[I_NEX] = 0
+        if r == ROLL_DONE:
+            return ROLL_DONE
+        if r != ROLL_ON:
+            return r
+
+
+# --- events of the stable configuration ----------------------------------------------------------
+@njit(**JIT)
+def _behind_line(W, x, y, R):
+    """Whether (x, y) lies behind the line (stable arcs on the line): the signed number of its
+    arcs crossed by the vertical ray upwards from it is one (the line runs +x overall, forward side
+    up).  Each arc is cut into pieces monotone in x at its circle's leftmost and rightmost points;
+    a piece crosses when its ends lie on either side of the ray (so a ray through a pin counts
+    the pin once, or not at all where the line only touches it), +1 running towards +x (the
+    upper half of the circle, clockwise) and -1 towards -x."""
+    PF = W[W_PF]
+    Lx = W[W_PR][R_LX]
+    top = W[W_SF][F_YTOP] + 2.0 * R
+    n = _gather_arcs(W, x, x, y, max(y, top))
+    QB = W[W_QB]
+    px = np.empty(4)
+    count = 0
+    for q in range(n):
+        j = QB[q]
+        for m in range(-2, 3):
+            u0, u1, v0, v1 = _arc_box(W, j, m)
+            if x < u0 or x > u1 or v1 < y:
+                continue
+            ax, ay = PF[PX, j] + m * Lx, PF[PY, j]
+            bx, by = _next_pos(W, j)
+            bx += m * Lx
+            cx, cy = _center(ax, ay, bx, by, R)
+            dx = x - cx
+            if abs(dx) >= R:
+                continue
+            ux, uy = ax - cx, ay - cy
+            pend = _cw_p(ux, uy, bx - cx, by - cy)
+            pl = _cw_p(ux, uy, -1.0, 0.0)
+            pr = _cw_p(ux, uy, 1.0, 0.0)
+            px[0] = ax
+            k = 1
+            first, second = (pl, pr) if pl < pr else (pr, pl)
+            for pc in (first, second):
+                if 0.0 < pc < pend:
+                    px[k] = cx - R if pc == pl else cx + R
+                    k += 1
+            px[k] = bx
+            w = math.sqrt(R * R - dx * dx)
+            for a in range(k):
+                xa, xb = px[a], px[a + 1]
+                if (xa > x) != (xb > x):
+                    yy = cy + w if xb > xa else cy - w
+                    if yy > y:
+                        count += 1 if xb > xa else -1
+    return count == 1
+
+
+@njit(**JIT)
+def _flag_swept(W, R):
+    """After a roll: every free obstacle of the region it changed that now lies behind the line
+    was carried over without being met (the line advanced past it); it is behind from now on."""
+    SF, SI, PR, OB, CS, CI = W[W_SF], W[W_SI], W[W_PR], W[W_OB], W[W_CS], W[W_CI]
+    Lx, Ly = PR[R_LX], PR[R_LY]
+    if not SF[F_BX0] <= SF[F_BX1]:
+        return
+    x0, x1, y0, y1 = SF[F_BX0] - R, SF[F_BX1] + R, SF[F_BY0] - R, SF[F_BY1] + R
+    if x1 - x0 > Lx:
+        x0, x1 = 0.0, Lx
+    ncx, ncy = SI[I_NCX], SI[I_NCY]
+    kx, ix, nkx = _span(x0, x1, Lx, ncx)
+    ky0, iy0, nky = _span(y0, y1, Ly, ncy)
+    for _a in range(nkx):
+        ky, iy = ky0, iy0
+        for _b in range(nky):
+            cell = kx + ncx * ky
+            for e in range(CS[cell], CS[cell + 1]):
+                k = CI[e]
+                x, y = OB[0, k] + ix * Lx, OB[1, k] + iy * Ly
+                if x < x0 or x > x1 or y < y0 or y > y1:
+                    continue
+                if _behind(W, k, iy) or _find_pin(W, k, iy) >= 0:
+                    continue
+                if _behind_line(W, x, y, R):
+                    _set_behind(W, k, iy)
+                    SI[I_SWEPT] += 1
+            ky += 1
+            if ky == ncy:
+                ky, iy = 0, iy + 1
+        kx += 1
+        if kx == ncx:
+            kx, ix = 0, ix + 1
+
+
+@njit(**JIT)
+def _start_roll(W, P, mP, ocx, ocy, phi0, N, mN, s, R):
+    """Set up a roll about pivot P (period offset mP in the roll frame) towards target N, the
+    target's current left arm and angle taken from the line; then run it."""
+    RI, RF = W[W_RI], W[W_RF]
+    if N == P:
+        unx, uny, phin = 0.0, 0.0, phi0
+    else:
+        unx, uny = _left_tangent(W, N, mN, R)
+        phin = _pin_phi(W, N, s)
+    _link(W, P, N, mN - mP)
+    W[W_SI][I_UNRES] = P
+    RI[RP], RI[RMP], RI[RN], RI[RMN] = P, mP, N, mN
+    RF[RCX], RF[RCY], RF[RPHI0] = ocx, ocy, phi0
+    RF[RUNX], RF[RUNY], RF[RPHIN] = unx, uny, phin
+    return _run_roll(W, R)
+
+
+@njit(**JIT)
+def _run_roll(W, R):
+    """Run the roll set up in the roll state; afterwards mark what it carried the line over."""
+    SF = W[W_SF]
+    r = _roll(W)
+    W[W_SI][I_UNRES] = -1
+    if r == ROLL_DONE:
+        _flag_swept(W, R)
+    SF[F_BX0], SF[F_BY0], SF[F_BX1], SF[F_BY1] = np.inf, np.inf, -np.inf, -np.inf
+    return r
+
+
+@njit(**JIT)
+def _do_capture(W, i, k, ix, iy, s, R):
+    """Arc i meets a free obstacle as it bows: the obstacle becomes a pin on the same circle
+    (arm angle π; the neighbours' tangents do not move, only their chords)."""
+    PF, PI, SI = W[W_PF], W[W_PI], W[W_SI]
+    j, sh = PI[PNEXT, i], PI[PSH, i]
+    px, py = PF[PX, i], PF[PY, i]
+    nx, ny = _next_pos(W, i)
+    q = _alloc(W, k, iy)
+    if q < 0:
+        return S_FATAL
+    qx, qy = _roll_pos(W, q, ix)
+    cpn, cpq, cqn = _dist(px, py, nx, ny), _dist(px, py, qx, qy), _dist(qx, qy, nx, ny)
+    apn, apq, aqn = (math.asin(min(1.0, cpn * s)), math.asin(min(1.0, cpq * s)),
+                     math.asin(min(1.0, cqn * s)))
+    _set_alpha(W, i, PF[PAL, i] - apn + apq)
+    _set_alpha(W, j, PF[PAL, j] - apn + aqn)
+    _set_alpha(W, q, math.pi + apq + aqn)
+    W[W_SF][F_DA] += (_arc_integral(px, py, qx, qy, R) + _arc_integral(qx, qy, nx, ny, R)
+                      - _arc_integral(px, py, nx, ny, R))
+    _link(W, i, q, ix)
+    _link(W, q, j, sh - ix)
+    if not (_register(W, i) and _register(W, q)):
+        return S_FATAL
+    _touch(W, i)
+    _touch(W, q)
+    _touch(W, j)
+    SI[I_CAPT] += 1
+    return ROLL_DONE
+
+
+@njit(**JIT)
+def _do_release(W, b, s, R):
+    """Pin b releases (its arm angle fell below its critical angle): the roll starts about the pin
+    before it, from the circle of that pin's arc, towards the pin after it."""
+    PI, SI = W[W_PI], W[W_SI]
+    a, c = PI[PPREV, b], PI[PNEXT, b]
+    mb = PI[PSH, a]
+    mc = mb + PI[PSH, b]
+    ax, ay = _roll_pos(W, a, 0)
+    bx, by = _roll_pos(W, b, mb)
+    cx, cy = _roll_pos(W, c, mc)
+    c1x, c1y = _center(ax, ay, bx, by, R)
+    c2x, c2y = _center(bx, by, cx, cy, R)
+    SI[I_NGAP] = 0
+    W[W_SF][F_AGAP] = 0.0
+    _gap_put(W, False, c1x, c1y, ax, ay, bx, by, R)
+    _gap_put(W, False, c2x, c2y, bx, by, cx, cy, R)
+    W[W_SF][F_DA] -= (_arc_integral(ax, ay, bx, by, R) + _arc_integral(bx, by, cx, cy, R))
+    _leave(W, b, bx, by)
+    if SI[I_NPINS] == 1:
+        SI[I_NGAP] = 1
+        W[W_SF][F_AGAP] = _arc_integral(ax, ay, bx, by, R)
+        W[W_SF][F_DA] += _arc_integral(bx, by, cx, cy, R)
+        _drop(W, b)
+        r = _free_line(W, s, R)
+        if r != ROLL_ON:
+            return r
+        return _run_roll(W, R)
+    phi0 = _pin_phi(W, a, s)            # two pins (a == c): the target is a one period on
+    _drop(W, b)
+    return _start_roll(W, a, 0, c1x, c1y, phi0, c, mc, s, R)
+
+
+@njit(**JIT)
+def _do_instability(W, i, s, R):
+    """Arc i can no longer span its chord (chord >= 2R): it rolls on about its left pin from the
+    semicircle on the chord, towards its right pin."""
+    PI, SI = W[W_PI], W[W_SI]
+    j, mj = PI[PNEXT, i], PI[PSH, i]
+    px, py = _roll_pos(W, i, 0)
+    qx, qy = _roll_pos(W, j, mj)
+    cx, cy = _center(px, py, qx, qy, R)
+    SI[I_NGAP] = 0
+    W[W_SF][F_AGAP] = 0.0
+    _gap_put(W, False, cx, cy, px, py, qx, qy, R)
+    W[W_SF][F_DA] -= _arc_integral(px, py, qx, qy, R)
+    return _start_roll(W, i, 0, cx, cy, _pin_phi(W, i, s), j, mj, s, R)
+
+
+@njit(**JIT)
+def _do_tangent(W, i, j, m, s, R):
+    """Arcs i and j (period offset m) touch as they bow: the part of the line between them is cut
+    off as a loop, and the line rolls on from the first arc's left pin to the second's right pin."""
+    PI, SI = W[W_PI], W[W_SI]
+    if j == i:
+        return ROLL_DONE
+    mj = _walk_offset(W, PI[PNEXT, i], PI[PSH, i], j, i)
+    if mj == m:
+        f, mf, g, mg = i, 0, j, m
+    elif mj == m + 1:
+        f, mf, g, mg = j, m, i, 0
+    else:
+        SI[I_DINVALID] += 1
+        return ROLL_DONE
+    f2, mf2 = PI[PNEXT, f], mf + PI[PSH, f]
+    g2, mg2 = PI[PNEXT, g], mg + PI[PSH, g]
+    ax, ay = _roll_pos(W, f, mf)
+    bx, by = _roll_pos(W, f2, mf2)
+    cx, cy = _roll_pos(W, g, mg)
+    dx, dy = _roll_pos(W, g2, mg2)
+    st, zx, zy = tangency(ax, ay, bx, by, cx, cy, dx, dy, s * (1.0 - STRESS_TIE),
+                          s * (1.0 + STRESS_TIE))
+    if st == np.inf:
+        SI[I_DINVALID] += 1
+        return ROLL_DONE
+    c1x, c1y = _center(ax, ay, bx, by, R)
+    c2x, c2y = _center(cx, cy, dx, dy, R)
+    n = _ls_add(W, 0, c1x, c1y, zx, zy, bx, by, -1)
+    n, area = _ls_chain(W, f2, mf2, g, n, R)
+    n = _ls_add(W, n, c2x, c2y, cx, cy, zx, zy, PI[PK, g])
+    _loop_finish(W, n, R)
+    i1, i2 = _arc_integral(ax, ay, bx, by, R), _arc_integral(cx, cy, dx, dy, R)
+    W[W_SF][F_DA] -= i1 + i2 + area
+    _gap_clear(W)
+    _gap_put(W, False, c1x, c1y, ax, ay, zx, zy, R)
+    _gap_put(W, False, c2x, c2y, zx, zy, dx, dy, R)
+    phi0 = _pin_phi(W, f, s)
+    _drop_chain(W, f2, g)
+    return _start_roll(W, f, mf, c1x, c1y, phi0, g2, mg2, s, R)
+
+
+@njit(**JIT)
+def _do_sweep(W, x, d, m, s, R):
+    """Arc x bows over pin d of the line (period offset m): the part of the line between the arc
+    and the pin is cut off as a loop, and the arc ends at d instead (same circle)."""
+    PF, PI, SI = W[W_PF], W[W_PI], W[W_SI]
+    x2, mx2 = PI[PNEXT, x], PI[PSH, x]
+    md = _walk_offset(W, x2, mx2, d, x)
+    px, py = _roll_pos(W, x, 0)
+    qx, qy = _roll_pos(W, x2, mx2)
+    dx, dy = _roll_pos(W, d, m)
+    ccx, ccy = _center(px, py, qx, qy, R)
+    ix_ = _arc_integral(px, py, qx, qy, R)
+    if md == m:                         # d ahead of the arc: x now ends at d
+        n = _ls_add(W, 0, ccx, ccy, dx, dy, qx, qy, -1)
+        n, area = _ls_chain(W, x2, mx2, d, n, R)
+        _loop_finish(W, n, R)
+        unx, uny = _left_tangent(W, d, m, R)
+        tnx, tny = -(dy - ccy) / R, (dx - ccx) / R
+        phid = _pin_phi(W, d, s) - _turn(tnx, tny, unx, uny)
+        bx, by = _next_pos(W, d)
+        cr = _dist(PF[PX, d], PF[PY, d], bx, by)
+        cnew = _dist(px, py, dx, dy)
+        cold = _dist(px, py, qx, qy)
+        _drop_chain(W, x2, PI[PPREV, d])
+        _set_alpha(W, x, PF[PAL, x] - math.asin(min(1.0, cold * s))
+                   + math.asin(min(1.0, cnew * s)))
+        _link(W, x, d, m)
+        _set_alpha(W, d, phid + math.asin(min(1.0, cnew * s)) + math.asin(min(1.0, cr * s)))
+        W[W_SF][F_DA] += _arc_integral(px, py, dx, dy, R) - ix_ - area
+    elif md == m + 1:                   # d behind the arc: the arc now starts at d
+        n, area = _ls_chain(W, d, m, x, 0, R)
+        n = _ls_add(W, n, ccx, ccy, px, py, dx, dy, PI[PK, x])
+        _loop_finish(W, n, R)
+        bx, by = _next_pos(W, d)
+        bx += m * W[W_PR][R_LX]
+        c0x, c0y = _center(dx, dy, bx, by, R)
+        told_x, told_y = -(c0y - dy) / R, (c0x - dx) / R
+        tnew_x, tnew_y = -(ccy - dy) / R, (ccx - dx) / R
+        phid = _pin_phi(W, d, s) - _turn(told_x, told_y, tnew_x, tnew_y)
+        ax, ay = _prev_pos(W, d)
+        cl = _dist(PF[PX, d], PF[PY, d], ax, ay)
+        cnew = _dist(dx, dy, qx, qy)
+        cold = _dist(px, py, qx, qy)
+        _set_alpha(W, x2, PF[PAL, x2] - math.asin(min(1.0, cold * s))
+                   + math.asin(min(1.0, cnew * s)))
+        _drop_chain(W, PI[PNEXT, d], x)
+        _link(W, d, x2, mx2 - m)
+        _set_alpha(W, d, phid + math.asin(min(1.0, cl * s)) + math.asin(min(1.0, cnew * s)))
+        W[W_SF][F_DA] += _arc_integral(dx, dy, qx, qy, R) - ix_ - area
+        x = d
+    else:
+        SI[I_DINVALID] += 1
+        return ROLL_DONE
+    if not _register(W, x):
+        return S_FATAL
+    _touch(W, x)
+    _touch(W, PI[PNEXT, x])
+    _touch(W, PI[PPREV, x])
+    return ROLL_DONE
+
+
+@njit(**JIT)
+def _process(W, e, se, s, R):
+    """Carry out the event of element e at stress s; ROLL_DONE or a status."""
+    EP = W[W_EP]
+    i = e // 2
+    if e % 2 == 1:
+        return _do_release(W, i, s, R)
+    kind = EP[EKIND, e]
+    if kind == EV_CAPTURE:
+        return _do_capture(W, i, EP[EA, e], EP[EC, e], EP[EB, e], s, R)
+    if kind == EV_INSTABLE:
+        return _do_instability(W, i, s, R)
+    if kind == EV_TANGENT:
+        return _do_tangent(W, i, EP[EA, e], EP[EC, e], min(se, s), R)
+    if kind == EV_SWEEP:
+        return _do_sweep(W, EP[EA, e], EP[EC, e], EP[EE, e], s, R)
+    return ROLL_DONE
+
+
+# --- loading -------------------------------------------------------------------------------------
+@njit(**JIT)
+def _init(W, y0):
+    """The straight line along y = y0 glides (at any stress above zero) to the first obstacles it
+    meets; those at that height within rounding pin it.  Returns the number of pins."""
+    PF, PI, SI, PR, OB, OI = W[W_PF], W[W_PI], W[W_SI], W[W_PR], W[W_OB], W[W_OI]
+    Lx, Ly = PR[R_LX], PR[R_LY]
+    m = OB.shape[1]
+    if m == 0:
+        return 0
+    ymin = np.inf
+    for k in range(m):
+        iy = int(math.ceil((y0 - OB[1, k]) / Ly))
+        if OB[1, k] + iy * Ly < y0:
+            iy += 1
+        OI[0, k], OI[1, k], OI[2, k], OI[3, k], OI[4, k] = iy, 0, -1, 0, iy
+        ymin = min(ymin, OB[1, k] + iy * Ly)
+    tol = POINT_TIE * max(Lx, Ly)
+    sel = np.empty(m, np.int64)
+    n = 0
+    for k in range(m):
+        if OB[1, k] + OI[0, k] * Ly <= ymin + tol:
+            sel[n] = k
+            n += 1
+    xs = np.empty(n)
+    for a in range(n):
+        xs[a] = OB[0, sel[a]]
+    order = np.argsort(xs, kind="mergesort")
+    slots = np.empty(n, np.int64)
+    for a in range(n):
+        k = sel[order[a]]
+        slots[a] = _alloc(W, k, OI[0, k])
+    for a in range(n):
+        _link(W, slots[a], slots[(a + 1) % n], 1 if a == n - 1 else 0)
+    for a in range(n):
+        i = slots[a]
+        ax, ay = _prev_pos(W, i)
+        bx, by = _next_pos(W, i)
+        PF[PAL, i] = _chord_alpha(ax, ay, PF[PX, i], PF[PY, i], bx, by)
+    W[W_SF][F_S] = 0.0
+    for a in range(n):
+        _register(W, slots[a])
+    for a in range(n):
+        _arc_event(W, slots[a])
+        _pin_event(W, slots[a])
+    SI[I_ANCHOR] = slots[0]
+    return n
+
+
+@njit(**JIT)
+def _line_area(W, s):
+    """Area under the line (b²), its node count when sampled at spacing h, over one period."""
+    PF, PI, SI = W[W_PF], W[W_PI], W[W_SI]
+    h = W[W_PR][R_H]
+    R = np.inf if s <= 0.0 else 0.5 / s
+    i = SI[I_ANCHOR]
+    area, nodes = 0.0, 0
+    for _ in range(SI[I_NPINS] + 2):
+        px, py = PF[PX, i], PF[PY, i]
+        qx, qy = _next_pos(W, i)
+        area += _arc_integral(px, py, qx, qy, R)
+        nodes += max(1, int(math.ceil(_arc_length(_dist(px, py, qx, qy), R) / h)))
+        i = PI[PNEXT, i]
+        if i == SI[I_ANCHOR]:
+            break
+    return area, nodes
+
+
+@njit(**JIT)
+def _count_pins(W):
+    PI, SI = W[W_PI], W[W_SI]
+    i, n = SI[I_ANCHOR], 0
+    for _ in range(PI.shape[1] + 1):
+        n += 1
+        i = PI[PNEXT, i]
+        if i == SI[I_ANCHOR]:
+            break
+    return n
+
+
+@njit(**JIT)
+def _row(W, s, area, flowing):
+    SI, SF, HR = W[W_SI], W[W_SF], W[W_HR]
+    r = SI[I_NHIST]
+    _, nodes = _line_area(W, s)
+    HR[H_S, r], HR[H_AREA, r], HR[H_SWEPT, r] = s, area, area - SF[F_AROW]
+    HR[H_PINS, r], HR[H_EVENTS, r] = _count_pins(W), SI[I_EVENTS] - SI[I_ROWEV]
+    HR[H_NODES, r], HR[H_FLOW, r] = nodes, flowing
+    SI[I_NHIST] = r + 1
+    SI[I_ROWEV] = SI[I_EVENTS]
+    SF[F_SROW], SF[F_AROW] = s, area
+
+
+@njit(**JIT)
+def _end_avalanche(W):
+    """The line is stable at the current stress: a pinned configuration.  Slots left in the
+    avalanche become free, the journal restarts, and the configuration is the new reference."""
+    PI, SI, SF = W[W_PI], W[W_SI], W[W_SF]
+    i = SI[I_DEFER]
+    while i >= 0:
+        nxt = PI[PLNK, i]
+        PI[PST, i] = ST_FREE
+        PI[PLNK, i] = SI[I_FREE]
+        SI[I_FREE] = i
+        SI[I_NFREE] += 1
+        i = nxt
+    SI[I_DEFER] = -1
+    SI[I_JN] = 0
+    SI[I_JON] = 0
+    SF[F_SLO] = SF[F_S]
+    SI[I_LOOPSPIN], SI[I_LARCPIN] = SI[I_NLOOP], SI[I_NLARC]
+    a = SI[I_LASTPIN]
+    if a < 0 or PI[PST, a] != ST_LINE:
+        for j in range(PI.shape[1]):
+            if PI[PST, j] == ST_LINE:
+                a = j
+                break
+    SI[I_ANCHOR] = a
+
+
+@njit(**JIT)
+def _restore(W):
+    """Undo the current avalanche (it was the flow): back to the last pinned configuration."""
+    PF, PI, SI, JI, JF = W[W_PF], W[W_PI], W[W_SI], W[W_JI], W[W_JF]
+    for n in range(SI[I_JN] - 1, -1, -1):
+        i = JI[0, n]
+        PI[PPREV, i], PI[PNEXT, i], PI[PSH, i], PI[PST, i] = JI[1, n], JI[2, n], JI[3, n], JI[4, n]
+        PF[PAL, i] = JF[n]
+    SI[I_JN] = 0
+    JO, OI = W[W_JO], W[W_OI]
+    for n in range(SI[I_JON] - 1, -1, -1):
+        OI[0, JO[0, n]], OI[1, JO[0, n]] = JO[1, n], JO[2, n]
+    SI[I_JON] = 0
+    SI[I_NPINS] = _count_pins(W)
+
+
+@njit(**JIT)
+def advance(W):
+    """Raise the stress event by event until the line flows or a return condition; returns the
+    status (S_*).  Resumable: every return happens between two events."""
+    SI, SF, PR, HP, EK, PI = W[W_SI], W[W_SF], W[W_PR], W[W_HP], W[W_EK], W[W_PI]
+    Lx = PR[R_LX]
+    while True:
+        if SI[I_EVENTS] >= SI[I_MAXEV]:
+            return S_MAXEV
+        if SI[I_APN] > W[W_AP].shape[1] // 2:
+            _compact(W)
+        C = W[W_PF].shape[1]
+        if (SI[I_NFREE] < SI[I_NPINS] + 64 or SI[I_APN] > W[W_AP].shape[1] // 2
+                or SI[I_NLARC] + C > W[W_LR].shape[1] or SI[I_NLOOP] + C > W[W_LO].shape[0] - 2):
+            return S_GROW
+        if SI[I_NHIST] + 2 > W[W_HR].shape[1]:
+            return S_HIST
+        if SI[I_SNAPEVERY] > 0 and SI[I_EVENTS] >= SI[I_NEXTSNAP]:
+            SI[I_NEXTSNAP] += SI[I_SNAPEVERY]
+            return S_SNAP
+        if SI[I_HN] == 0:
+            return S_GIVEUP
+        e = HP[0, 0]
+        se = EK[e]
+        s = SF[F_S]
+        if se > s * (1.0 + STRESS_TIE) or (s == 0.0 and se > 0.0):
+            _end_avalanche(W)
+            if se > PR[R_SMAX]:
+                if SF[F_SROW] < s:
+                    _row(W, s, _line_area(W, s)[0], 0)
+                return S_GIVEUP
+            if s >= SF[F_SROW] * (1.0 + HISTORY_STRESS_BIN) and s > 0.0:
+                _row(W, s, _line_area(W, s)[0], 0)
+            SF[F_S] = se
+            SI[I_EPOCH] += 1
+            SF[F_DA], SF[F_AGAP] = 0.0, 0.0
+            continue
+        _hremove(W, e)
+        if not _event_valid(W, e):
+            i = e // 2
+            if PI[PST, i] == ST_LINE:
+                if e % 2 == 0:
+                    _arc_event(W, i)
+                else:
+                    _pin_event(W, i)
+            continue
+        R = np.inf if s <= 0.0 else 0.5 / s
+        SF[F_BX0], SF[F_BY0], SF[F_BX1], SF[F_BY1] = np.inf, np.inf, -np.inf, -np.inf
+        r = _process(W, e, se, s, R)
+        SI[I_EVENTS] += 1
+        if r == ROLL_DONE:
+            _refresh_touched(W)
+            if (SF[F_DA] + SF[F_AGAP]) / Lx < PR[R_FLOW]:
+                continue
+            r = S_FLOW
+        if r == S_FLOW:
+            area = SF[F_DA] + SF[F_AGAP]
+            _restore(W)
+            _row(W, s, _line_area(W, s)[0] + area, 1)
+        return r
+
+
+# --- Python driver -------------------------------------------------------------------------------
+#: Pin slots allocated per box width in obstacle spacings (a line holds about 1.5 pins per
+#: spacing at its CRSS, more in an avalanche); grown by doubling when short.
+PINS_PER_SPACING = 8
+#: Least pin capacity.
+MIN_PINS = 256
+#: Entries of the arc cell pool per pin slot (an arc covers a few cells); grown when short.
+POOL_PER_PIN = 16
+
+
+def arc_limitations(obstacles: ObstacleField, model: LineModel) -> str | None:
+    """None when the exact arc construction applies to this field and line model, else why not.
+
+    It needs point obstacles (every radius 0: finite particles are rings of points whose arcs the
+    construction does not resolve) and a constant line tension (the arcs are circles only then).
+    """
+    if model.elasticity.model != "constant":
+        return (f"the arc construction needs a constant line tension, not the "
+                f"{model.elasticity.model!r} line model")
+    if obstacles.n and np.any(np.asarray(obstacles.radius) != 0.0):
+        return "the arc construction needs point obstacles (radius 0); this field has discs"
+    return None
+
+
+def critical_angles(obstacles: ObstacleField, tension: float) -> np.ndarray:
+    """(m,) critical angle φc = 2 acos(F_c/(2Γ)) of every obstacle (rad); 0 when impenetrable."""
+    ratio = np.clip(np.asarray(obstacles.fc, dtype=float) / (2.0 * tension), 0.0, 1.0)
+    return 2.0 * np.arccos(ratio)
+
+
+def _pow2_at_least(n: int) -> int:
+    p = 1
+    while p < n:
+        p *= 2
+    return p
+
+
+class _Run:
+    """The work arrays of one construction, in the order of the ``W_*`` tuple slots."""
+
+    def __init__(self, obstacles: ObstacleField, model: LineModel, protocol: Protocol,
+                 y0: float, capacity: int, snapshot_every: int):
+        m = obstacles.n
+        self.field, self.model, self.protocol, self.y0 = obstacles, model, protocol, float(y0)
+        Lx, Ly = float(obstacles.Lx), float(obstacles.Ly)
+        cstart, citems, ncx, ncy = obstacles.cell_list()
+        size = float(obstacles.spacing)
+        ancx = max(1, int(Lx / size))
+        ancy = _pow2_at_least(max(1, int(Ly / size)))
+        C = capacity
+        self.W = [None] * 33
+        W = self.W
+        W[W_PF] = np.zeros((N_PF, C))
+        W[W_PI] = np.zeros((N_PI, C), np.int64)
+        W[W_PI][PPREV:PNEXT + 1] = -1
+        W[W_PI][PLNK] = np.append(np.arange(1, C), -1)
+        W[W_EK] = np.full(2 * C, np.inf)
+        W[W_EP] = np.zeros((N_EP, 2 * C), np.int64)
+        W[W_HP] = np.full((2, 2 * C), -1, np.int64)
+        W[W_OB] = np.ascontiguousarray(np.vstack([
+            np.asarray(obstacles.x, float).reshape(1, -1), np.asarray(obstacles.y, float).reshape(1, -1),
+            critical_angles(obstacles, model.tension).reshape(1, -1)]))
+        W[W_OI] = np.zeros((6, m), np.int64)
+        W[W_CS], W[W_CI] = cstart.astype(np.int64), citems.astype(np.int64)
+        W[W_AH] = np.full(ancx * ancy, -1, np.int64)
+        W[W_AP] = np.zeros((3, max(4 * ancx * ancy, POOL_PER_PIN * C)), np.int64)
+        W[W_GP] = np.zeros((6, C))
+        W[W_LS] = np.zeros((6, C + 8))
+        W[W_LSK] = np.zeros(C + 8, np.int64)
+        W[W_LR] = np.zeros((6, 4 * C))
+        W[W_LRK] = np.zeros(4 * C, np.int64)
+        W[W_LO] = np.zeros(4 * C + 1, np.int64)
+        W[W_JI] = np.zeros((5, C), np.int64)
+        W[W_JF] = np.zeros(C)
+        W[W_HR] = np.zeros((N_HR, HISTORY_CHUNK))
+        W[W_SF] = np.zeros(N_SF)
+        W[W_SF][[F_BX0, F_BY0]] = np.inf
+        W[W_SF][[F_BX1, F_BY1]] = -np.inf
+        W[W_SF][F_YTOP] = -np.inf
+        si = np.zeros(N_SI, np.int64)
+        si[I_FREE], si[I_NFREE], si[I_DEFER], si[I_EPOCH] = 0, C, -1, 1
+        si[I_UNRES], si[I_LASTPIN], si[I_ANCHOR] = -1, -1, -1
+        si[I_NCX], si[I_NCY], si[I_ANCX], si[I_ANCY] = ncx, ncy, ancx, ancy
+        si[I_SNAPEVERY] = max(0, int(snapshot_every))
+        si[I_NEXTSNAP] = si[I_SNAPEVERY]
+        heights = 1 + int(np.ceil(protocol.flow_distance / Ly))
+        si[I_MAXEV] = EVENTS_PER_OBSTACLE * (m + 16) * heights
+        W[W_SI] = si
+        pr = np.zeros(N_PR)
+        pr[R_LX], pr[R_LY] = Lx, Ly
+        pr[R_FLOW] = protocol.flow_distance
+        pr[R_SMAX] = (protocol.max_stress - model.friction) / (2.0 * model.tension)
+        pr[R_OCWX], pr[R_OCWY] = Lx / ncx, Ly / ncy
+        pr[R_ACW], pr[R_ACH] = Lx / ancx, size
+        pr[R_H] = model.node_spacing
+        W[W_PR] = pr
+        W[W_TL] = np.zeros(C, np.int64)
+        W[W_ST] = np.zeros(C, np.int64)
+        W[W_QB] = np.zeros(C, np.int64)
+        W[W_RI] = np.zeros(4, np.int64)
+        W[W_RF] = np.zeros(6)
+        W[W_CB] = np.zeros(6)
+        W[W_CBI] = np.zeros(4, np.int64)
+        W[W_EX] = np.zeros((4, MAX_EXCLUDED), np.int64)
+        W[W_TS] = np.full(C, -1, np.int64)
+        W[W_JO] = np.zeros((3, m + 1), np.int64)
+
+    @property
+    def capacity(self) -> int:
+        return self.W[W_PF].shape[1]
+
+    def tuple(self):
+        return tuple(self.W)
+
+    def grow(self) -> None:
+        """Double the pin capacity (and what is sized by it) keeping the state; grow the arc pool
+        and the loop record when they run short."""
+        W, C = self.W, self.capacity
+        si = W[W_SI]
+
+        def wider(a, fill, n):
+            out = np.full(a.shape[:-1] + (n,), fill, dtype=a.dtype)
+            out[..., : a.shape[-1]] = a
+            return out
+
+        if si[I_NFREE] < si[I_NPINS] + 64 + C // 4:
+            C2 = 2 * C
+            W[W_PF] = wider(W[W_PF], 0.0, C2)
+            pi = wider(W[W_PI], 0, C2)
+            pi[PPREV:PNEXT + 1, C:] = -1
+            pi[PLNK, C:] = np.append(np.arange(C + 1, C2), si[I_FREE])
+            W[W_PI] = pi
+            si[I_FREE] = C
+            si[I_NFREE] += C
+            W[W_EK] = wider(W[W_EK], np.inf, 2 * C2)
+            W[W_EP] = wider(W[W_EP], 0, 2 * C2)
+            W[W_HP] = wider(W[W_HP], -1, 2 * C2)
+            for slot, fill, n in ((W_GP, 0.0, C2), (W_LS, 0.0, C2 + 8), (W_LSK, 0, C2 + 8),
+                                  (W_JI, 0, C2), (W_JF, 0.0, C2), (W_TL, 0, C2), (W_TS, -1, C2),
+                                  (W_ST, 0, C2), (W_QB, 0, C2)):
+                W[slot] = wider(W[slot], fill, n)
+        if si[I_APN] > W[W_AP].shape[1] // 4:
+            W[W_AP] = wider(W[W_AP], 0, 2 * W[W_AP].shape[1])
+        if si[I_NLARC] + 2 * self.capacity > W[W_LR].shape[1] or \
+                si[I_NLOOP] + self.capacity > W[W_LO].shape[0] - 2:
+            n = 2 * W[W_LR].shape[1] + 2 * self.capacity
+            W[W_LR] = wider(W[W_LR], 0.0, n)
+            W[W_LRK] = wider(W[W_LRK], 0, n)
+            W[W_LO] = wider(W[W_LO], 0, n + 1)
+
+    def needs_room(self) -> bool:
+        W, si = self.W, self.W[W_SI]
+        return (si[I_NFREE] < si[I_NPINS] + 64 or si[I_APN] > W[W_AP].shape[1] // 2
+                or si[I_NLARC] + self.capacity > W[W_LR].shape[1]
+                or si[I_NLOOP] + self.capacity > W[W_LO].shape[0] - 2)
+
+
+def _sample_arc(px, py, qx, qy, R, h):
+    """Points from P (included) to Q (excluded) along the arc of radius R, at most h apart."""
+    c = math.hypot(qx - px, qy - py)
+    length = c if not np.isfinite(R) else 2.0 * R * math.asin(min(1.0, 0.5 * c / R))
+    n = max(1, int(math.ceil(length / h)))
+    if not np.isfinite(R) or c == 0.0:
+        u = np.arange(n) / n
+        return px + u * (qx - px), py + u * (qy - py)
+    cx, cy = _center(px, py, qx, qy, R)
+    a0 = math.atan2(py - cy, px - cx)
+    sweep = 2.0 * math.asin(min(1.0, 0.5 * c / R))
+    a = a0 - sweep * np.arange(n) / n
+    return cx + R * np.cos(a), cy + R * np.sin(a)
+
+
+def _pins_in_order(W) -> list[tuple[int, float, float]]:
+    """The line's pins from the anchor, one period: (slot, x, y) with x unwrapped."""
+    PF, PI, SI = W[W_PF], W[W_PI], W[W_SI]
+    Lx = W[W_PR][R_LX]
+    i = int(SI[I_ANCHOR])
+    if i < 0:
+        return []
+    out, shift = [], 0
+    for _ in range(PI.shape[1] + 1):
+        out.append((i, PF[PX, i] + shift * Lx, PF[PY, i]))
+        shift += PI[PSH, i]
+        i = int(PI[PNEXT, i])
+        if i == SI[I_ANCHOR]:
+            break
+    return out
+
+
+def _line_state(run: _Run, s: float, y_free: float | None = None) -> LineState:
+    """The configuration at stress s sampled along its arcs (pins marked), with its loops."""
+    W = run.W
+    Lx, h = float(W[W_PR][R_LX]), run.model.node_spacing
+    R = np.inf if s <= 0.0 else 0.5 / s
+    pins = _pins_in_order(W)
+    xs, ys, ps = [], [], []
+    if not pins:                               # a free straight line (no obstacle at all)
+        n = max(K.MIN_NODES, int(math.ceil(Lx / h)))
+        xs, ys, ps = [(np.arange(n) + 0.5) * Lx / n], [np.full(n, y_free)], [np.full(n, -1)]
+    for a, (i, x, y) in enumerate(pins):
+        nx_, ny_ = (pins[a + 1][1], pins[a + 1][2]) if a + 1 < len(pins) else (
+            pins[0][1] + Lx, pins[0][2])
+        px_, py_ = _sample_arc(x, y, nx_, ny_, R, h)
+        pin = np.full(px_.shape[0], -1, np.int64)
+        pin[0] = W[W_PI][PK, i]
+        xs.append(px_)
+        ys.append(py_)
+        ps.append(pin)
+    x, y, pin = np.concatenate(xs), np.concatenate(ys), np.concatenate(ps).astype(np.int64)
+    lx, ly, lp, off = _loop_nodes(W, int(W[W_SI][I_LOOPSPIN]), R, h)
+    meta = np.zeros(K.N_META, np.int64)
+    meta[K.M_N], meta[K.M_NLOOPS], meta[K.M_NLOOPNODES] = x.shape[0], off.shape[0] - 1, lx.shape[0]
+    si = W[W_SI]
+    meta[K.M_STEPS] = si[I_EVENTS]
+    meta[K.M_RELEASES], meta[K.M_CAPTURES] = si[I_REL] + si[I_BYP], si[I_CAPT]
+    meta[K.M_RECONNECT] = si[I_LOOPS]
+    cap = max(x.shape[0], 4)
+    grow = lambda a, fill: np.concatenate([a, np.full(cap - a.shape[0], fill, a.dtype)])
+    lcap = max(lx.shape[0], 4)
+    lgrow = lambda a, fill: np.concatenate([a, np.full(lcap - a.shape[0], fill, a.dtype)])
+    return LineState(grow(x, 0.0), grow(y, 0.0), grow(pin, -1), np.full(cap, -1, np.int64), meta,
+                     lgrow(lx, 0.0), lgrow(ly, 0.0), lgrow(lp, -1),
+                     np.concatenate([off, np.zeros(max(0, lcap + 1 - off.shape[0]), np.int64)]),
+                     Lx)
+
+
+def _loop_nodes(W, nloops: int, R: float, h: float):
+    """The first nloops recorded loops sampled along their arcs (CSR: x, y, pin, offsets)."""
+    LR, LRK, LO = W[W_LR], W[W_LRK], W[W_LO]
+    xs, ys, ps, off = [], [], [], [0]
+    for k in range(nloops):
+        for a in range(LO[k], LO[k + 1]):
+            cx, cy, x0, y0, x1, y1 = LR[:, a]
+            if x0 == x1 and y0 == y1:
+                px_, py_ = np.array([x0]), np.array([y0])
+            else:
+                c = math.hypot(x1 - x0, y1 - y0)
+                a0 = math.atan2(y0 - cy, x0 - cx)
+                sweep = _cw_angle(x0 - cx, y0 - cy, x1 - cx, y1 - cy)
+                n = max(1, int(math.ceil(R * sweep / h))) if np.isfinite(R) else 1
+                ang = a0 - sweep * np.arange(n) / n
+                px_, py_ = cx + R * np.cos(ang), cy + R * np.sin(ang)
+                if not np.isfinite(R) or c == 0.0:
+                    px_, py_ = np.array([x0]), np.array([y0])
+            pin = np.full(px_.shape[0], -1, np.int64)
+            pin[0] = LRK[a]
+            xs.append(px_)
+            ys.append(py_)
+            ps.append(pin)
+        off.append(sum(p.shape[0] for p in xs))
+    if not xs:
+        return np.zeros(0), np.zeros(0), np.zeros(0, np.int64), np.zeros(1, np.int64)
+    return (np.concatenate(xs), np.concatenate(ys), np.concatenate(ps),
+            np.asarray(off, np.int64))
+
+
+def _cw_angle(ux, uy, vx, vy) -> float:
+    """Clockwise angle (rad, [0, 2π)) from direction u to direction v."""
+    a = math.atan2(uy * vx - ux * vy, ux * vx + uy * vy)
+    return a if a >= 0.0 else a + 2.0 * math.pi
+
+
+def _counters(W) -> dict:
+    si = W[W_SI]
+    return {"captures": int(si[I_CAPT]), "releases": int(si[I_REL]),
+            "bypasses": int(si[I_BYP]), "loops": int(si[I_LOOPS]),
+            "reconnections": int(si[I_LOOPS]), "free_glides": int(si[I_TRANSL]),
+            "events": int(si[I_EVENTS]), "loops_not_recorded": int(si[I_LTRUNC]),
+            "diag_behind_in_lens": int(si[I_DBEHIND]), "diag_skipped_hits": int(si[I_DINVALID]),
+            "diag_loops_without_gap": int(si[I_DXMISS]), "diag_tall_line": int(si[I_DFOLD]),
+            "carried_over": int(si[I_SWEPT])}
+
+
+@dataclass
+class ArcRun:
+    """Everything a construction produced (reduced units), for tests and diagnostics."""
+
+    status: str
+    s: float                   # stress τ/(2Γ) when it stopped (G/(G b²) · b⁻¹ = b⁻¹)
+    s_lo: float                # stress of the last pinned configuration
+    rows: list
+    run: _Run
+
+
+def run_arcs(obstacles: ObstacleField, model: LineModel, protocol: Protocol, y0: float = 0.0,
+             snapshot_every: int = 0,
+             on_snapshot: Callable[[LineState, float, int], None] | None = None,
+             on_row: Callable[[np.ndarray], None] | None = None) -> ArcRun:
+    """Run the construction to the flow (or to giving up) and keep its state (:class:`ArcRun`)."""
+    reason = arc_limitations(obstacles, model)
+    if reason is not None:
+        raise ValueError(reason)
+    spacing = float(obstacles.spacing)
+    capacity = max(MIN_PINS, PINS_PER_SPACING * int(math.ceil(obstacles.Lx / spacing)))
+    while True:
+        run = _Run(obstacles, model, protocol, y0, capacity, snapshot_every)
+        rows = []
+        if _init(run.tuple(), float(y0)) == 0:
+            return ArcRun("flowing", 0.0, 0.0, rows, run)
+        while True:
+            status = advance(run.tuple())
+            if status in (S_HIST, S_FLOW, S_GIVEUP, S_MAXEV):
+                si = run.W[W_SI]
+                for r in range(int(si[I_NHIST])):
+                    rows.append(run.W[W_HR][:, r].copy())
+                    if on_row is not None:
+                        on_row(rows[-1])
+                si[I_NHIST] = 0
+            if status == S_GROW:
+                run.grow()
+            elif status == S_SNAP:
+                if on_snapshot is not None:
+                    s = float(run.W[W_SF][F_S])
+                    on_snapshot(_line_state(run, s), 2.0 * model.tension * s + model.friction,
+                                int(run.W[W_SI][I_EVENTS]))
+            elif status != S_HIST:
+                break
+        if status != S_FATAL:
+            return ArcRun(STATUS_NAMES[status], float(run.W[W_SF][F_S]),
+                          float(run.W[W_SF][F_SLO]), rows, run)
+        capacity *= 4
+
+
+def find_crss_arcs(obstacles: ObstacleField, model: LineModel, protocol: Protocol,
+                   y0: float = 0.0, snapshot_every: int = 0,
+                   on_snapshot: Callable[[LineState, float, int], None] | None = None,
+                   on_relaxation: Callable[[Relaxation], None] | None = None) -> CrssResult:
+    """CRSS of a line that starts straight along y = ``y0``, by the exact arc construction.
+
+    Parameters
+    ----------
+    obstacles : ObstacleField
+        Point obstacles (radius 0), each with its own critical force ``fc`` (G b²; inf =
+        impenetrable).
+    model : LineModel
+        ``tension`` Γ (G b², constant line tension), ``friction`` τ_f (G; added as an offset, see
+        below), ``node_spacing`` (b: the largest spacing of the sampled output line).
+    protocol : Protocol
+        ``flow_distance`` (b) and ``max_stress`` (G) are used; ``stress_step``, ``tolerance``
+        and ``bisections`` are not (the construction is exact, event by event), nor is
+        ``max_steps`` (the events are bounded by ``EVENTS_PER_OBSTACLE`` per obstacle and box
+        height of glide instead).
+    y0 : float
+        Height of the straight starting line (b).
+    snapshot_every : int
+        Call ``on_snapshot(state, tau, events)`` every so many elementary events (0: only at
+        the end).
+    on_relaxation : callable
+        Receives each history row as it is made.
+
+    Returns
+    -------
+    CrssResult
+        ``crss = hi``, the event stress at which the line flowed (it is pinned at every lower
+        stress: the CRSS exactly); ``lo`` the stress at which the last pinned configuration was
+        established (it stays pinned up to ``hi``); ``line`` that configuration sampled at the
+        CRSS, with the loops cut off before it; ``history`` one row per batch of events within
+        HISTORY_STRESS_BIN of stress, and the flow; ``counters`` the elementary events.
+
+    Friction enters as an offset: under monotonic quasi-static loading the configuration at τ
+    with friction τ_f is the frictionless one at τ - τ_f (the friction threshold only subtracts
+    from the driving stress), so every stress reported is τ_f plus the frictionless one.
+
+    Raises
+    ------
+    ValueError
+        When :func:`arc_limitations` gives a reason (discs, or a line model other than a
+        constant line tension).
+    """
+    gamma, tf = model.tension, model.friction
+    Lx = float(obstacles.Lx)
+    history: list[Relaxation] = []
+
+    def row(r: np.ndarray) -> None:
+        rel = Relaxation("arcs", 2.0 * gamma * r[H_S] + tf, "flowing" if r[H_FLOW] else "pinned",
+                         r[H_AREA] / Lx - y0, r[H_SWEPT], int(r[H_PINS]), int(r[H_EVENTS]),
+                         int(r[H_NODES]))
+        history.append(rel)
+        if on_relaxation is not None:
+            on_relaxation(rel)
+
+    out = run_arcs(obstacles, model, protocol, y0, snapshot_every, on_snapshot, row)
+    W = out.run.W
+    tau = 2.0 * gamma * out.s + tf
+    lo = 2.0 * gamma * out.s_lo + tf
+    state = _line_state(out.run, out.s, y_free=y0)
+    if on_snapshot is not None:
+        on_snapshot(state, tau, int(W[W_SI][I_EVENTS]))
+    name = "exact quasi-static arc construction"
+    if out.status == "flowing":
+        msg = (f"{name}: flowed at the event stress hi (pinned at every lower stress); lo is "
+               "where the last pinned configuration was established")
+        return CrssResult(tau, lo, tau, True, msg, history, state, _counters(W))
+    msg = (f"{name}: no flow up to {protocol.max_stress:.4g} G" if out.status == "no flow" else
+           f"{name}: stopped at the event limit ({int(W[W_SI][I_MAXEV])} events)")
+    return CrssResult(np.nan, lo, np.nan, False, msg, history, state, _counters(W))
