@@ -81,12 +81,21 @@ EV_NONE, EV_CAPTURE, EV_INSTABLE, EV_TANGENT, EV_SWEEP, EV_RELEASE = range(6)
 (F_S, F_DA, F_AGAP, F_SLO, F_SROW, F_AROW, F_AREF, F_BX0, F_BX1, F_BY0, F_BY1,
  F_YTOP) = range(12)
 N_SF = 12
+FPR = N_SF                      # W_FS: scalars, then parameters, roll state, roll candidate
+FRF = FPR + 9
+FCB = FRF + 6
+N_FS = FCB + 6
 (I_NPINS, I_FREE, I_NFREE, I_DEFER, I_HN, I_EPOCH, I_JN, I_ANCHOR, I_EVENTS, I_CAPT, I_REL,
  I_BYP, I_LOOPS, I_NGAP, I_APN, I_NLOOP, I_NLARC, I_LTRUNC, I_NHIST, I_STAMP, I_DBEHIND,
  I_DFOLD, I_DXMISS, I_TRANSL, I_UNRES, I_NTOUCH, I_NEX, I_NEXTSNAP, I_SNAPEVERY, I_MAXEV,
  I_ROWEV, I_LOOPSPIN, I_LARCPIN, I_NCX, I_NCY, I_ANCX, I_ANCY, I_LASTPIN, I_PINSROW,
- I_DINVALID, I_TSTAMP, I_SWEPT, I_JON) = range(43)
-N_SI = 43
+ I_DINVALID, I_TSTAMP, I_SWEPT, I_JON, I_WLENS, I_WSCAN, I_WFLAG, I_WTRANS, I_WARCS,
+ I_WPAIRS, I_WHY, I_MAXGAP, I_MAXLOOP, I_GHEAD, I_GROLL, I_GEN, I_GLIN, I_GSTAMP) = range(57)
+N_SI = 57
+IRI = N_SI                      # W_IS: scalars, then roll state, roll candidate, exclusions
+ICBI = IRI + 4
+IEX = ICBI + 4
+N_IS = IEX + 4 * MAX_EXCLUDED
 (R_LX, R_LY, R_FLOW, R_SMAX, R_OCWX, R_OCWY, R_ACW, R_ACH, R_H) = range(9)
 N_PR = 9
 
@@ -100,13 +109,31 @@ CK_NONE, CK_OBST, CK_TARGET, CK_PIN, CK_ARC = range(5)
 S_FLOW, S_GIVEUP, S_MAXEV, S_SNAP, S_HIST, S_GROW, S_FATAL = range(7)
 STATUS_NAMES = ("flowing", "no flow", "event limit", "snapshot", "history", "grow", "capacity")
 
-# tuple indices of the work arrays
-(W_PF, W_PI, W_EK, W_EP, W_HP, W_OB, W_OI, W_CS, W_CI, W_AH, W_AP, W_GP, W_LS, W_LSK, W_LR,
- W_LRK, W_LO, W_JI, W_JF, W_HR, W_SF, W_SI, W_PR, W_TL, W_ST, W_QB, W_RI, W_RF, W_CB, W_CBI,
- W_EX, W_TS, W_JO) = range(33)
+# The work arrays, few of them: numba's compile time grows with the length of the tuple every
+# kernel takes (measured: 0.4 s a function for 36 arrays, 0.1 s for 4).  Related arrays share a
+# 2-D array; the names the kernels use are row views of it (offsets below).
+(W_FP, W_EK, W_OB, W_LS, W_LR, W_HR, W_FS, W_IP, W_EH, W_OJ, W_CSI, W_AG, W_AP, W_GE, W_LO,
+ W_IS) = range(16)
+N_W = 16
+FJ, FG = 3, 4                   # W_FP: pin rows PX, PY, PAL, journal α, then 6 gap-arc rows
+N_FP = FG + 6
+IJ, ITL, IST, IQB, ITS, IGV = 13, 18, 19, 20, 21, 22   # W_IP: pin rows, journal (5), lists
+N_IP = 23
+EHP = 7                         # W_EH: event payload rows, then the heap (2 rows)
+N_EH = EHP + 2
+OJO = 6                         # W_OJ: obstacle rows (6), then the flags journal (3 rows)
+N_OJ = OJO + 3
+LSK = 6                         # W_LS, W_LR: arc rows (6) and the pin at the arc's start
+N_LA = 7
 # history row fields
 H_S, H_AREA, H_SWEPT, H_PINS, H_EVENTS, H_NODES, H_FLOW = range(7)
 N_HR = 7
+
+
+@njit(**JIT)
+def _citems(W):
+    """Obstacles of the cell list (W_CSI holds the cell starts, then the items)."""
+    return W[W_CSI][W[W_IS][I_NCX] * W[W_IS][I_NCY] + 1:]
 
 
 # --- plane geometry (all arcs have the radius R of the current stress) ---------------------------
@@ -233,7 +260,7 @@ def _span(lo, hi, period, ncell):
 # line has passed it: every image below front[k], and those above marked in a bit mask.
 @njit(**JIT)
 def _behind(W, k, iy):
-    OI = W[W_OI]
+    OI = W[W_OJ]
     off = iy - OI[0, k]
     if off < 0:
         return True
@@ -244,18 +271,18 @@ def _behind(W, k, iy):
 
 @njit(**JIT)
 def _set_behind(W, k, iy):
-    OI, SI = W[W_OI], W[W_SI]
+    OI, SI = W[W_OJ], W[W_IS]
     off = iy - OI[0, k]
     if off < 0:
         return
     if OI[5, k] != SI[I_EPOCH]:         # journal: the flags as the avalanche found them
-        JO = W[W_JO]
+        JO = W[W_OJ][OJO:]
         n = SI[I_JON]
         JO[0, n], JO[1, n], JO[2, n] = k, OI[0, k], OI[1, k]
         SI[I_JON] = n + 1
         OI[5, k] = SI[I_EPOCH]
     if off >= IMAGE_BITS:              # the line spans more than IMAGE_BITS box heights
-        W[W_SI][I_DFOLD] += 1
+        W[W_IS][I_DFOLD] += 1
         OI[0, k] = iy - IMAGE_BITS + 1
         OI[1, k] = 0
         off = IMAGE_BITS - 1
@@ -268,8 +295,8 @@ def _set_behind(W, k, iy):
 @njit(**JIT)
 def _find_pin(W, k, iy):
     """Slot of the pin held by obstacle image (k, iy), -1 if it holds none."""
-    PI = W[W_PI]
-    i = W[W_OI][2, k]
+    PI = W[W_IP]
+    i = W[W_OJ][2, k]
     while i >= 0:
         if PI[PIY, i] == iy:
             return i
@@ -282,15 +309,15 @@ def _find_pin(W, k, iy):
 def _journal(W, i):
     """Remember slot i as it was when the current avalanche began (once per avalanche), so that
     the pinned configuration can be restored if the avalanche turns out to be the flow."""
-    PI, SI = W[W_PI], W[W_SI]
+    PI, SI = W[W_IP], W[W_IS]
     ep = SI[I_EPOCH]
     if PI[PJST, i] == ep or PI[PAEP, i] == ep:
         return
-    JI = W[W_JI]
+    JI = W[W_IP][IJ:IJ + 5]
     n = SI[I_JN]
     JI[0, n], JI[1, n], JI[2, n] = i, PI[PPREV, i], PI[PNEXT, i]
     JI[3, n], JI[4, n] = PI[PSH, i], PI[PST, i]
-    W[W_JF][n] = W[W_PF][PAL, i]
+    W[W_FP][FJ][n] = W[W_FP][PAL, i]
     SI[I_JN] = n + 1
     PI[PJST, i] = ep
 
@@ -298,7 +325,7 @@ def _journal(W, i):
 @njit(**JIT)
 def _extend_box(W, x, y):
     """Grow the box of what the current roll changed (pins made or taken off; stored x)."""
-    SF = W[W_SF]
+    SF = W[W_FS]
     SF[F_BX0], SF[F_BX1] = min(SF[F_BX0], x), max(SF[F_BX1], x)
     SF[F_BY0], SF[F_BY1] = min(SF[F_BY0], y), max(SF[F_BY1], y)
 
@@ -306,7 +333,7 @@ def _extend_box(W, x, y):
 @njit(**JIT)
 def _alloc(W, k, iy):
     """A new pin at obstacle image (k, iy); -1 when no slot is left."""
-    PF, PI, SI, OB, OI = W[W_PF], W[W_PI], W[W_SI], W[W_OB], W[W_OI]
+    PF, PI, SI, OB, OI = W[W_FP], W[W_IP], W[W_IS], W[W_OB], W[W_OJ]
     i = SI[I_FREE]
     if i < 0:
         return -1
@@ -318,14 +345,14 @@ def _alloc(W, k, iy):
     PI[PAVER, i] += 1
     PI[PAEP, i] = SI[I_EPOCH]
     PF[PX, i] = OB[0, k]
-    PF[PY, i] = OB[1, k] + iy * W[W_PR][R_LY]
+    PF[PY, i] = OB[1, k] + iy * W[W_FS][FPR:][R_LY]
     PI[PSAME, i] = OI[2, k]
     OI[2, k] = i
     off = iy - OI[4, k]
     if 0 <= off < IMAGE_BITS:           # for the checks: images the line has ever touched
         OI[3, k] |= 1 << off
     _extend_box(W, PF[PX, i], PF[PY, i])
-    W[W_SF][F_YTOP] = max(W[W_SF][F_YTOP], PF[PY, i])
+    W[W_FS][F_YTOP] = max(W[W_FS][F_YTOP], PF[PY, i])
     SI[I_NPINS] += 1
     SI[I_LASTPIN] = i
     return i
@@ -333,8 +360,8 @@ def _alloc(W, k, iy):
 
 @njit(**JIT)
 def _hremove(W, e):
-    HP = W[W_HP]
-    SI = W[W_SI]
+    HP = W[W_EH][EHP:]
+    SI = W[W_IS]
     p = HP[1, e]
     if p < 0:
         return
@@ -352,7 +379,7 @@ def _hremove(W, e):
 @njit(**JIT)
 def _drop(W, i):
     """Take pin i off the line (released, bypassed or left in a loop); its events go."""
-    PI, SI, OI = W[W_PI], W[W_SI], W[W_OI]
+    PI, SI, OI = W[W_IP], W[W_IS], W[W_OJ]
     _journal(W, i)
     k = PI[PK, i]
     if OI[2, k] == i:
@@ -364,7 +391,7 @@ def _drop(W, i):
         PI[PSAME, j] = PI[PSAME, i]
     _hremove(W, 2 * i)
     _hremove(W, 2 * i + 1)
-    _extend_box(W, W[W_PF][PX, i], W[W_PF][PY, i])
+    _extend_box(W, W[W_FP][PX, i], W[W_FP][PY, i])
     PI[PVER, i] += 1
     PI[PAVER, i] += 1
     SI[I_NPINS] -= 1
@@ -382,7 +409,7 @@ def _drop(W, i):
 @njit(**JIT)
 def _link(W, i, j, shift):
     """Make j the next pin after i (j's x plus shift periods is its position in i's frame)."""
-    PI = W[W_PI]
+    PI = W[W_IP]
     _journal(W, i)
     _journal(W, j)
     PI[PNEXT, i] = j
@@ -391,47 +418,47 @@ def _link(W, i, j, shift):
     PI[PVER, i] += 1
     PI[PPREV, j] = i
     PI[PVER, j] += 1
-    W[W_SI][I_LASTPIN] = i
+    W[W_IS][I_LASTPIN] = i
 
 
 @njit(**JIT)
 def _set_alpha(W, i, alpha):
     _journal(W, i)
-    W[W_PF][PAL, i] = alpha
-    W[W_PI][PVER, i] += 1
+    W[W_FP][PAL, i] = alpha
+    W[W_IP][PVER, i] += 1
 
 
 @njit(**JIT)
 def _touch(W, i):
     """Queue pin i (and its right arc) for new events when the current event is done."""
-    SI, TS = W[W_SI], W[W_TS]
+    SI, TS = W[W_IS], W[W_IP][ITS]
     if TS[i] == SI[I_TSTAMP]:
         return
     TS[i] = SI[I_TSTAMP]
-    W[W_TL][SI[I_NTOUCH]] = i
+    W[W_IP][ITL][SI[I_NTOUCH]] = i
     SI[I_NTOUCH] += 1
 
 
 @njit(**JIT)
 def _next_pos(W, i):
     """Position of the pin after i, in i's frame."""
-    PF, PI = W[W_PF], W[W_PI]
+    PF, PI = W[W_FP], W[W_IP]
     j = PI[PNEXT, i]
-    return PF[PX, j] + PI[PSH, i] * W[W_PR][R_LX], PF[PY, j]
+    return PF[PX, j] + PI[PSH, i] * W[W_FS][FPR:][R_LX], PF[PY, j]
 
 
 @njit(**JIT)
 def _prev_pos(W, i):
     """Position of the pin before i, in i's frame."""
-    PF, PI = W[W_PF], W[W_PI]
+    PF, PI = W[W_FP], W[W_IP]
     j = PI[PPREV, i]
-    return PF[PX, j] - PI[PSH, j] * W[W_PR][R_LX], PF[PY, j]
+    return PF[PX, j] - PI[PSH, j] * W[W_FS][FPR:][R_LX], PF[PY, j]
 
 
 @njit(**JIT)
 def _pin_phi(W, i, s):
     """Arm angle of pin i at stress s from its chord angle and its two chords."""
-    PF = W[W_PF]
+    PF = W[W_FP]
     x, y = PF[PX, i], PF[PY, i]
     ax, ay = _prev_pos(W, i)
     bx, by = _next_pos(W, i)
@@ -454,7 +481,7 @@ def _hless(EK, a, b):
 
 @njit(**JIT)
 def _hup(W, p):
-    HP, EK = W[W_HP], W[W_EK]
+    HP, EK = W[W_EH][EHP:], W[W_EK]
     e = HP[0, p]
     while p > 0:
         q = (p - 1) // 2
@@ -470,8 +497,8 @@ def _hup(W, p):
 
 @njit(**JIT)
 def _hdown(W, p):
-    HP, EK = W[W_HP], W[W_EK]
-    n = W[W_SI][I_HN]
+    HP, EK = W[W_EH][EHP:], W[W_EK]
+    n = W[W_IS][I_HN]
     e = HP[0, p]
     while True:
         q = 2 * p + 1
@@ -491,7 +518,7 @@ def _hdown(W, p):
 
 @njit(**JIT)
 def _hset(W, e, key):
-    HP, EK, SI = W[W_HP], W[W_EK], W[W_SI]
+    HP, EK, SI = W[W_EH][EHP:], W[W_EK], W[W_IS]
     EK[e] = key
     p = HP[1, e]
     if p < 0:
@@ -510,10 +537,10 @@ def _hset(W, e, key):
 def _arc_box(W, i, m):
     """Bounding box of the disc on the chord of arc i (which holds the arc at every stress it
     can have), with i's frame shifted by m periods."""
-    PF = W[W_PF]
-    px, py = PF[PX, i] + m * W[W_PR][R_LX], PF[PY, i]
+    PF = W[W_FP]
+    px, py = PF[PX, i] + m * W[W_FS][FPR:][R_LX], PF[PY, i]
     qx, qy = _next_pos(W, i)
-    qx += m * W[W_PR][R_LX]
+    qx += m * W[W_FS][FPR:][R_LX]
     mx, my = 0.5 * (px + qx), 0.5 * (py + qy)
     q = 0.5 * _dist(px, py, qx, qy)
     return mx - q, mx + q, my - q, my + q
@@ -523,8 +550,8 @@ def _arc_box(W, i, m):
 def _register(W, i):
     """Enter arc i (pin i to its next pin) in every cell its disc covers; False when the pool is
     full even after dropping stale entries."""
-    AH, AP, SI, PR = W[W_AH], W[W_AP], W[W_SI], W[W_PR]
-    x0, x1, y0, y1 = _arc_box(W, i, 0)
+    AH, AP, SI, PR = W[W_AG][0], W[W_AP], W[W_IS], W[W_FS][FPR:]
+    x0, x1, y0, y1 = _arc_box(W, i, np.int64(0))
     ncx, ncy = SI[I_ANCX], SI[I_ANCY]
     cx0 = int(math.floor(x0 / PR[R_ACW]))
     cx1 = int(math.floor(x1 / PR[R_ACW]))
@@ -536,7 +563,7 @@ def _register(W, i):
         _compact(W)
         if SI[I_APN] + nxc * nyc > AP.shape[1]:
             return False
-    ver = W[W_PI][PAVER, i]
+    ver = W[W_IP][PAVER, i]
     for a in range(nxc):
         kx = (cx0 + a) % ncx
         for b in range(nyc):
@@ -551,14 +578,16 @@ def _register(W, i):
 @njit(**JIT)
 def _compact(W):
     """Rebuild the arc cell lists keeping only entries of arcs still on the line."""
-    AH, AP, SI, PI = W[W_AH], W[W_AP], W[W_SI], W[W_PI]
+    AH, SI, PI = W[W_AG][0], W[W_IS], W[W_IP]
+    AP = W[W_AP]
+    OLD = AP[:, : SI[I_APN]].copy()       # read from a copy: the pool is rewritten in place
     n = 0
     for cell in range(AH.shape[0]):
         e = AH[cell]
         AH[cell] = -1
         tail = -1
         while e >= 0:
-            i, ver, nxt = AP[0, e], AP[1, e], AP[2, e]
+            i, ver, nxt = OLD[0, e], OLD[1, e], OLD[2, e]
             if PI[PST, i] == ST_LINE and PI[PAVER, i] == ver:
                 AP[0, n], AP[1, n], AP[2, n] = i, ver, -1
                 if tail < 0:
@@ -573,9 +602,9 @@ def _compact(W):
 
 @njit(**JIT)
 def _gather_arcs(W, x0, x1, y0, y1):
-    """Slots of the arcs on the line whose cells meet the box (each once) into W_QB; their count."""
-    AH, AP, SI, PR, PI = W[W_AH], W[W_AP], W[W_SI], W[W_PR], W[W_PI]
-    ST, QB = W[W_ST], W[W_QB]
+    """Slots of the arcs on the line whose cells meet the box (each once) into the IQB row of W_IP; their count."""
+    AH, AP, SI, PR, PI = W[W_AG][0], W[W_AP], W[W_IS], W[W_FS][FPR:], W[W_IP]
+    ST, QB = W[W_IP][IST], W[W_IP][IQB]
     SI[I_STAMP] += 1
     stamp = SI[I_STAMP]
     ncx, ncy = SI[I_ANCX], SI[I_ANCY]
@@ -589,16 +618,26 @@ def _gather_arcs(W, x0, x1, y0, y1):
     for a in range(nxc):
         kx = (cx0 + a) % ncx
         for b in range(nyc):
-            e = AH[kx + ncx * ((cy0 + b) & (ncy - 1))]
+            cell = kx + ncx * ((cy0 + b) & (ncy - 1))
+            prev = -1
+            e = AH[cell]
             while e >= 0:
-                i = AP[0, e]
-                if (ST[i] != stamp and PI[PST, i] == ST_LINE and PI[PAVER, i] == AP[1, e]
-                        and i != SI[I_UNRES]):
+                SI[I_WARCS] += 1
+                i, nxt = AP[0, e], AP[2, e]
+                if PI[PST, i] != ST_LINE or PI[PAVER, i] != AP[1, e]:
+                    if prev < 0:               # stale: the arc left the line; unlink it
+                        AH[cell] = nxt
+                    else:
+                        AP[2, prev] = nxt
+                    e = nxt
+                    continue
+                if ST[i] != stamp and i != SI[I_UNRES]:
                     ST[i] = stamp
                     if count < QB.shape[0]:
                         QB[count] = i
                         count += 1
-                e = AP[2, e]
+                prev = e
+                e = nxt
     return count
 
 
@@ -613,7 +652,7 @@ def _lens_capture(W, px, py, qx, qy, s):
     smallest, (inf, -1, 0, 0) if the half disc holds none.  Obstacles of the half disc already
     behind the arc (s_X < s) would have been met before; they are counted as a diagnostic.
     """
-    SI, PR, OB, CS, CI = W[W_SI], W[W_PR], W[W_OB], W[W_CS], W[W_CI]
+    SI, PR, OB, CS, CI = W[W_IS], W[W_FS][FPR:], W[W_OB], W[W_CSI], _citems(W)
     Lx, Ly = PR[R_LX], PR[R_LY]
     dx, dy = qx - px, qy - py
     c = math.sqrt(dx * dx + dy * dy)
@@ -627,6 +666,7 @@ def _lens_capture(W, px, py, qx, qy, s):
         ky, iy = ky0, iy0
         for _b in range(nky):
             cell = kx + ncx * ky
+            SI[I_WLENS] += CS[cell + 1] - CS[cell]
             for e in range(CS[cell], CS[cell + 1]):
                 k = CI[e]
                 x, y = OB[0, k] + ix * Lx, OB[1, k] + iy * Ly
@@ -821,9 +861,9 @@ def _halfdiscs_meet(pax, pay, nax, nay, pbx, pby, nbx, nby):
 def _arc_event(W, i):
     """Next event of arc i (pin i to its next pin) as the stress rises: capture, instability or
     contact with another arc of the line, whichever comes first; entered in the heap."""
-    PF, PI, EP, SI = W[W_PF], W[W_PI], W[W_EP], W[W_SI]
-    Lx = W[W_PR][R_LX]
-    s = W[W_SF][F_S]
+    PF, PI, EP, SI = W[W_FP], W[W_IP], W[W_EH], W[W_IS]
+    Lx = W[W_FS][FPR:][R_LX]
+    s = W[W_FS][F_S]
     e = 2 * i
     px, py = PF[PX, i], PF[PY, i]
     qx, qy = _next_pos(W, i)
@@ -833,9 +873,9 @@ def _arc_event(W, i):
     if sx <= best:
         best, kind = sx, EV_CAPTURE
         EP[EA, e], EP[EB, e], EP[EC, e] = k, iy, ix
-    x0, x1, y0, y1 = _arc_box(W, i, 0)
+    x0, x1, y0, y1 = _arc_box(W, i, np.int64(0))
     n = _gather_arcs(W, x0, x1, y0, y1)
-    QB = W[W_QB]
+    QB = W[W_IP][IQB]
     for a in range(n):
         j = QB[a]
         for m in range(-2, 3):
@@ -850,6 +890,7 @@ def _arc_event(W, i):
             cx_ += m * Lx
             if not _halfdiscs_meet(px, py, qx, qy, bx, by, cx_, cy_):
                 continue
+            SI[I_WPAIRS] += 1
             smax = min(1.0 / c, 1.0 / _dist(bx, by, cx_, cy_))
             st, _zx, _zy = tangency(px, py, qx, qy, bx, by, cx_, cy_, s, smax)
             if st < best:
@@ -878,7 +919,7 @@ def _arc_event(W, i):
 @njit(**JIT)
 def _pin_event(W, i):
     """Release stress of pin i (closed form, :func:`release_stress`), entered in the heap."""
-    PF, PI, EP = W[W_PF], W[W_PI], W[W_EP]
+    PF, PI, EP = W[W_FP], W[W_IP], W[W_EH]
     e = 2 * i + 1
     x, y = PF[PX, i], PF[PY, i]
     ax, ay = _prev_pos(W, i)
@@ -895,7 +936,7 @@ def _pin_event(W, i):
 @njit(**JIT)
 def _event_valid(W, e):
     """Whether the stored event of element e still describes the line (else it is recomputed)."""
-    PI, EP = W[W_PI], W[W_EP]
+    PI, EP = W[W_IP], W[W_EH]
     i = e // 2
     if PI[PST, i] != ST_LINE:
         return False
@@ -919,7 +960,7 @@ def _event_valid(W, e):
 @njit(**JIT)
 def _refresh_touched(W):
     """New events for every pin touched by the last event, and for its right arc."""
-    SI, PI, TL = W[W_SI], W[W_PI], W[W_TL]
+    SI, PI, TL = W[W_IS], W[W_IP], W[W_IP][ITL]
     for a in range(SI[I_NTOUCH]):
         i = TL[a]
         if PI[PST, i] == ST_LINE:
@@ -937,23 +978,23 @@ def _ls_add(W, n, cx, cy, x0, y0, x1, y1, k):
     if n >= LS.shape[1]:
         return n
     LS[0, n], LS[1, n], LS[2, n], LS[3, n], LS[4, n], LS[5, n] = cx, cy, x0, y0, x1, y1
-    W[W_LSK][n] = k
+    W[W_LS][LSK][n] = k
     return n + 1
 
 
 @njit(**JIT)
 def _roll_pos(W, i, m):
-    PF = W[W_PF]
-    return PF[PX, i] + m * W[W_PR][R_LX], PF[PY, i]
+    PF = W[W_FP]
+    return PF[PX, i] + m * W[W_FS][FPR:][R_LX], PF[PY, i]
 
 
 @njit(**JIT)
 def _ls_chain(W, a, ma, b, n, R):
     """Append the arcs of the line from pin a (period offset ma) forward to pin b; returns the new
     size and the arcs' ∫ y dx (their share of the area under the line)."""
-    PI = W[W_PI]
+    PI = W[W_IP]
     i, m, area = a, ma, 0.0
-    for _ in range(W[W_SI][I_NPINS] + 1):
+    for _ in range(W[W_IS][I_NPINS] + 1):
         if i == b:
             break
         j, mj = PI[PNEXT, i], m + PI[PSH, i]
@@ -969,9 +1010,9 @@ def _ls_chain(W, a, ma, b, n, R):
 @njit(**JIT)
 def _drop_chain(W, a, b):
     """Take the pins from a forward to b (both included) off the line; they stay behind."""
-    PI = W[W_PI]
+    PI = W[W_IP]
     i = a
-    for _ in range(W[W_SI][I_NPINS] + 1):
+    for _ in range(W[W_IS][I_NPINS] + 1):
         nxt = PI[PNEXT, i]
         _set_behind(W, PI[PK, i], PI[PIY, i])
         _drop(W, i)
@@ -1021,7 +1062,7 @@ def _in_loop(W, n, qx, qy, R):
 def _loop_finish(W, n, R):
     """A loop of n arcs (in the loop scratch) was cut off: every free obstacle inside it is now
     behind the line; the loop is recorded for the output (while the record buffers last)."""
-    LS, SI, PR, OB, CS, CI = W[W_LS], W[W_SI], W[W_PR], W[W_OB], W[W_CS], W[W_CI]
+    LS, SI, PR, OB, CS, CI = W[W_LS], W[W_IS], W[W_FS][FPR:], W[W_OB], W[W_CSI], _citems(W)
     Lx, Ly = PR[R_LX], PR[R_LY]
     x0, x1, y0, y1 = np.inf, -np.inf, np.inf, -np.inf
     for a in range(n):
@@ -1056,13 +1097,14 @@ def _loop_finish(W, n, R):
                 kx, ix = 0, ix + 1
     if n > 1:
         SI[I_LOOPS] += 1
-    LR, LRK, LO = W[W_LR], W[W_LRK], W[W_LO]
+        SI[I_MAXLOOP] = max(SI[I_MAXLOOP], n)
+    LR, LRK, LO = W[W_LR], W[W_LR][LSK], W[W_LO]
     nl, na = SI[I_NLOOP], SI[I_NLARC]
     if nl + 2 <= LO.shape[0] and na + n <= LR.shape[1]:
         for a in range(n):
             for r in range(6):
                 LR[r, na + a] = LS[r, a]
-            LRK[na + a] = W[W_LSK][a]
+            LRK[na + a] = W[W_LS][LSK][a]
         LO[nl + 1] = na + n
         SI[I_NLOOP], SI[I_NLARC] = nl + 1, na + n
     else:
@@ -1073,15 +1115,15 @@ def _loop_finish(W, n, R):
 def _point_loop(W, x, y, k):
     """An impenetrable point bypassed by its two arms meeting at it: an Orowan loop of zero size
     holding obstacle k."""
-    n = _ls_add(W, 0, x, y, x, y, x, y, k)
+    n = _ls_add(W, np.int64(0), x, y, x, y, x, y, k)
     _loop_finish(W, n, 1.0)
-    W[W_SI][I_BYP] += 1
+    W[W_IS][I_BYP] += 1
 
 
 @njit(**JIT)
 def _leave(W, i, x, y):
     """Pin i is released (sheared, or bypassed when impenetrable): it is behind the line now."""
-    PI, SI = W[W_PI], W[W_SI]
+    PI, SI = W[W_IP], W[W_IS]
     k = PI[PK, i]
     _set_behind(W, k, PI[PIY, i])
     if W[W_OB][2, k] == 0.0:
@@ -1090,47 +1132,138 @@ def _leave(W, i, x, y):
         SI[I_REL] += 1
 
 
-# --- the gap: the old line between the pivot of a roll and its target ------------------------------
+# --- the gap: the current line between the pivot of a roll and its target ---------------------
+# A ring of arcs (centre, start, end; clockwise), logical index 0 at the pivot.  Each arc is also
+# entered in a cell grid (the arc grid's cells) so that crossing searches look only at gap arcs
+# near the rolling circle; the grid's heads carry the stamp of the gap's life (W_AG row 2), so
+# clearing the gap clears the grid at once.  If the grid's entry pool runs out, searches fall
+# back to the whole ring for the rest of that gap's life.
+@njit(**JIT)
+def _gcol(W, a):
+    return (W[W_IS][I_GHEAD] + a) % W[W_FP][FG:].shape[1]
+
+
+@njit(**JIT)
+def _gap_register(W, col, R):
+    GH, GE, SI, PR, GP = W[W_AG][1:], W[W_GE], W[W_IS], W[W_FS][FPR:], W[W_FP][FG:]
+    W[W_IP][IGV][col] += 1
+    if SI[I_GLIN] != 0:
+        return
+    _gap_enter(W, col, R)
+
+
+@njit(**JIT)
+def _gap_enter(W, col, R):
+    GH, GE, SI, PR, GP = W[W_AG][1:], W[W_GE], W[W_IS], W[W_FS][FPR:], W[W_FP][FG:]
+    ncx, ncy = SI[I_ANCX], SI[I_ANCY]
+    cx0 = int(math.floor((GP[0, col] - R) / PR[R_ACW]))
+    cx1 = int(math.floor((GP[0, col] + R) / PR[R_ACW]))
+    cy0 = int(math.floor((GP[1, col] - R) / PR[R_ACH]))
+    cy1 = int(math.floor((GP[1, col] + R) / PR[R_ACH]))
+    nxc, nyc = min(cx1 - cx0 + 1, ncx), min(cy1 - cy0 + 1, ncy)
+    if SI[I_GEN] + nxc * nyc > GE.shape[1]:
+        SI[I_GLIN] = 2                  # out of entries: whole-gap searches from now on
+        return
+    stamp = SI[I_GROLL]
+    for a in range(nxc):
+        kx = (cx0 + a) % ncx
+        for b in range(nyc):
+            cell = kx + ncx * ((cy0 + b) & (ncy - 1))
+            if GH[1, cell] != stamp:
+                GH[0, cell], GH[1, cell] = -1, stamp
+            n = SI[I_GEN]
+            GE[0, n], GE[1, n], GE[2, n] = col, W[W_IP][IGV][col], GH[0, cell]
+            GH[0, cell] = n
+            SI[I_GEN] = n + 1
+
+
+@njit(**JIT)
+def _gap_near(W, cx, cy, R):
+    """Logical indices of the gap arcs whose circle may meet the circle of radius R about (cx, cy),
+    each once, into the IQB row of W_IP; their count."""
+    GH, GE, SI, PR, GV, QB, ST = W[W_AG][1:], W[W_GE], W[W_IS], W[W_FS][FPR:], W[W_IP][IGV], W[W_IP][IQB], W[W_IP][IST]
+    n = SI[I_NGAP]
+    G = W[W_FP][FG:].shape[1]
+    head = SI[I_GHEAD]
+    count = 0
+    if SI[I_GLIN] != 0:
+        for a in range(n):
+            QB[a] = a
+        return n
+    SI[I_GSTAMP] -= 1                  # negative stamps: apart from the touch stamps (>= 0)
+    stamp = SI[I_GSTAMP]
+    ncx, ncy = SI[I_ANCX], SI[I_ANCY]
+    cx0 = int(math.floor((cx - R) / PR[R_ACW]))     # circles that meet share a point, so
+    cx1 = int(math.floor((cx + R) / PR[R_ACW]))     # a cell of both boxes
+    cy0 = int(math.floor((cy - R) / PR[R_ACH]))
+    cy1 = int(math.floor((cy + R) / PR[R_ACH]))
+    nxc, nyc = min(cx1 - cx0 + 1, ncx), min(cy1 - cy0 + 1, ncy)
+    for a in range(nxc):
+        kx = (cx0 + a) % ncx
+        for b in range(nyc):
+            cell = kx + ncx * ((cy0 + b) & (ncy - 1))
+            if GH[1, cell] != SI[I_GROLL]:
+                continue
+            e = GH[0, cell]
+            while e >= 0:
+                col = GE[0, e]
+                if GE[1, e] == GV[col]:
+                    g = (col - head) % G
+                    if g < n and ST[col] != stamp:
+                        ST[col] = stamp
+                        QB[count] = g
+                        count += 1
+                e = GE[2, e]
+    return count
+
+
 @njit(**JIT)
 def _gap_put(W, front, cx, cy, x0, y0, x1, y1, R):
-    """Add an arc of the old line to the gap, at its front (pivot side) or back (target side)."""
-    GP, SI = W[W_GP], W[W_SI]
+    """Add an arc of the line to the gap, at its front (pivot side) or back (target side)."""
+    GP, SI = W[W_FP][FG:], W[W_IS]
     n = SI[I_NGAP]
-    if n >= GP.shape[1]:
+    G = GP.shape[1]
+    if n >= G:
         return False
     if front:
-        for a in range(n, 0, -1):
-            for r in range(6):
-                GP[r, a] = GP[r, a - 1]
-        a = 0
+        SI[I_GHEAD] = (SI[I_GHEAD] - 1) % G
+        col = SI[I_GHEAD]
     else:
-        a = n
-    GP[0, a], GP[1, a], GP[2, a], GP[3, a], GP[4, a], GP[5, a] = cx, cy, x0, y0, x1, y1
+        col = _gcol(W, n)
+    GP[0, col], GP[1, col], GP[2, col], GP[3, col], GP[4, col], GP[5, col] = cx, cy, x0, y0, x1, y1
     SI[I_NGAP] = n + 1
-    W[W_SF][F_AGAP] += _arc_integral(x0, y0, x1, y1, R)
+    SI[I_MAXGAP] = max(SI[I_MAXGAP], n + 1)
+    W[W_FS][F_AGAP] += _arc_integral(x0, y0, x1, y1, R)
+    _gap_register(W, col, R)
+    if SI[I_GLIN] == 1 and n + 1 > GAP_INDEX_MIN:      # long enough to be worth the grid
+        SI[I_GLIN] = 0
+        for a in range(n + 1):
+            _gap_enter(W, _gcol(W, a), R)
     return True
 
 
 @njit(**JIT)
 def _gap_clear(W):
-    W[W_SI][I_NGAP] = 0
-    W[W_SF][F_AGAP] = 0.0
+    SI = W[W_IS]
+    SI[I_NGAP], SI[I_GHEAD], SI[I_GEN], SI[I_GLIN] = 0, 0, 0, 1
+    SI[I_GROLL] += 1
+    W[W_FS][F_AGAP] = 0.0
 
 
 @njit(**JIT)
 def _gap_trim(W, g, xx, xy, R):
     """The rolling circle has passed the gap up to X on gap arc g: drop what lies before X."""
-    GP, SI, SF = W[W_GP], W[W_SI], W[W_SF]
-    n = SI[I_NGAP]
+    GP, SI, SF, GV = W[W_FP][FG:], W[W_IS], W[W_FS], W[W_IP][IGV]
     for a in range(g):
-        SF[F_AGAP] -= _arc_integral(GP[2, a], GP[3, a], GP[4, a], GP[5, a], R)
-    SF[F_AGAP] -= _arc_integral(GP[2, g], GP[3, g], GP[4, g], GP[5, g], R)
-    SF[F_AGAP] += _arc_integral(xx, xy, GP[4, g], GP[5, g], R)
-    GP[2, g], GP[3, g] = xx, xy
-    for a in range(g, n):
-        for r in range(6):
-            GP[r, a - g] = GP[r, a]
-    SI[I_NGAP] = n - g
+        c = _gcol(W, a)
+        SF[F_AGAP] -= _arc_integral(GP[2, c], GP[3, c], GP[4, c], GP[5, c], R)
+        GV[c] += 1
+    c = _gcol(W, g)
+    SF[F_AGAP] += (_arc_integral(xx, xy, GP[4, c], GP[5, c], R)
+                   - _arc_integral(GP[2, c], GP[3, c], GP[4, c], GP[5, c], R))
+    GP[2, c], GP[3, c] = xx, xy
+    SI[I_GHEAD] = c
+    SI[I_NGAP] -= g
 
 
 @njit(**JIT)
@@ -1141,17 +1274,18 @@ def _gap_lead(W, ocx, ocy, fx, fy, R):
     if g < 0:
         return False
     _gap_trim(W, g, xx, xy, R)
-    return _gap_put(W, True, ocx, ocy, fx, fy, xx, xy, R)
+    return _gap_put(W, np.int64(1), ocx, ocy, fx, fy, xx, xy, R)
 
 
 @njit(**JIT)
 def _circle_cuts(ocx, ocy, gcx, gcy, R):
     """Intersections of two circles of radius R (count, x1, y1, x2, y2); same circle: 0."""
     dx, dy = gcx - ocx, gcy - ocy
-    dd = math.sqrt(dx * dx + dy * dy)
-    if dd < POINT_TIE * R or dd >= 2.0 * R:
+    d2 = dx * dx + dy * dy
+    if d2 >= 4.0 * R * R or d2 < (POINT_TIE * R) ** 2:
         return 0, 0.0, 0.0, 0.0, 0.0
-    hh = math.sqrt(R * R - 0.25 * dd * dd)
+    dd = math.sqrt(d2)
+    hh = math.sqrt(R * R - 0.25 * d2)
     mx, my = 0.5 * (ocx + gcx), 0.5 * (ocy + gcy)
     wx, wy = -dy / dd * hh, dx / dd * hh
     return 2, mx + wx, my + wy, mx - wx, my - wy
@@ -1161,11 +1295,12 @@ def _circle_cuts(ocx, ocy, gcx, gcy, R):
 def _crosses_gap(W, ocx, ocy, px, py, zx, zy, R):
     """Whether the arc from P clockwise to Z about O crosses the old line (the gap) before Z: then
     Z lies beyond where the rolling arc meets the old line and is not reached."""
-    GP = W[W_GP]
+    GP, QB = W[W_FP][FG:], W[W_IP][IQB]
     tol = POINT_TIE * R
     ux, uy = px - ocx, py - ocy
     pz = _cw_p(ux, uy, zx - ocx, zy - ocy)
-    for g in range(W[W_SI][I_NGAP]):
+    for q in range(_gap_near(W, ocx, ocy, R)):
+        g = _gcol(W, QB[q])
         nc, ax, ay, bx, by = _circle_cuts(ocx, ocy, GP[0, g], GP[1, g], R)
         for c in range(nc):
             ix, iy = (ax, ay) if c == 0 else (bx, by)
@@ -1180,13 +1315,15 @@ def _crosses_gap(W, ocx, ocy, px, py, zx, zy, R):
 
 @njit(**JIT)
 def _gap_cross(W, ocx, ocy, zx, zy, R):
-    """First point after Z (clockwise about O) where the circle meets the gap: (arc, x, y), arc -1
-    if it does not."""
-    GP = W[W_GP]
+    """First point after Z (clockwise about O) where the circle meets the gap: (logical index of
+    the gap arc, x, y), index -1 if it meets none."""
+    GP, QB = W[W_FP][FG:], W[W_IP][IQB]
     tol = POINT_TIE * R
     ux, uy = zx - ocx, zy - ocy
     best, bg, bx_, by_ = np.inf, -1, 0.0, 0.0
-    for g in range(W[W_SI][I_NGAP]):
+    for q in range(_gap_near(W, ocx, ocy, R)):
+        a = QB[q]
+        g = _gcol(W, a)
         nc, ax, ay, bx, by = _circle_cuts(ocx, ocy, GP[0, g], GP[1, g], R)
         for c in range(nc):
             ix, iy = (ax, ay) if c == 0 else (bx, by)
@@ -1195,8 +1332,8 @@ def _gap_cross(W, ocx, ocy, zx, zy, R):
             if not _on_arc(GP[0, g], GP[1, g], GP[2, g], GP[3, g], GP[4, g], GP[5, g], ix, iy):
                 continue
             p = _cw_p(ux, uy, ix - ocx, iy - ocy)
-            if p < best:
-                best, bg, bx_, by_ = p, g, ix, iy
+            if p < best or (p == best and a < bg):
+                best, bg, bx_, by_ = p, a, ix, iy
     return bg, bx_, by_
 
 
@@ -1204,23 +1341,25 @@ def _gap_cross(W, ocx, ocy, zx, zy, R):
 def _loop_gap_part(W, n, ocx, ocy, zx, zy, R):
     """Append to the loop the rolling circle from Z to where it meets the gap, and the gap from
     there to its end (the part of the old line the loop takes with it)."""
-    GP = W[W_GP]
+    GP = W[W_FP][FG:]
     g, xx, xy = _gap_cross(W, ocx, ocy, zx, zy, R)
     if g < 0:
-        W[W_SI][I_DXMISS] += 1
+        W[W_IS][I_DXMISS] += 1
         return n
-    n = _ls_add(W, n, ocx, ocy, zx, zy, xx, xy, -1)
-    n = _ls_add(W, n, GP[0, g], GP[1, g], xx, xy, GP[4, g], GP[5, g], -1)
-    for a in range(g + 1, W[W_SI][I_NGAP]):
-        n = _ls_add(W, n, GP[0, a], GP[1, a], GP[2, a], GP[3, a], GP[4, a], GP[5, a], -1)
+    n = _ls_add(W, n, ocx, ocy, zx, zy, xx, xy, np.int64(-1))
+    c = _gcol(W, g)
+    n = _ls_add(W, n, GP[0, c], GP[1, c], xx, xy, GP[4, c], GP[5, c], np.int64(-1))
+    for a in range(g + 1, W[W_IS][I_NGAP]):
+        c = _gcol(W, a)
+        n = _ls_add(W, n, GP[0, c], GP[1, c], GP[2, c], GP[3, c], GP[4, c], GP[5, c], np.int64(-1))
     return n
 
 
 # --- the roll ------------------------------------------------------------------------------------
 @njit(**JIT)
 def _excluded(W, kind, a, b, c):
-    EX = W[W_EX]
-    for j in range(W[W_SI][I_NEX]):
+    EX = W[W_IS][IEX:IEX + 4 * MAX_EXCLUDED].reshape(4, MAX_EXCLUDED)
+    for j in range(W[W_IS][I_NEX]):
         if EX[0, j] == kind and EX[1, j] == a and EX[2, j] == b and EX[3, j] == c:
             return True
     return False
@@ -1272,8 +1411,8 @@ def _scan(W, R):
     from outside (centre at 2R from the arc's centre: the intersection of two circles).  The
     best goes to the candidate buffers; returns its kind (CK_NONE: the pivot is released first).
     """
-    PF, PI, SI, PR, OB, CS, CI = W[W_PF], W[W_PI], W[W_SI], W[W_PR], W[W_OB], W[W_CS], W[W_CI]
-    RI, RF, CB, CBI = W[W_RI], W[W_RF], W[W_CB], W[W_CBI]
+    PF, PI, SI, PR, OB, CS, CI = W[W_FP], W[W_IP], W[W_IS], W[W_FS][FPR:], W[W_OB], W[W_CSI], _citems(W)
+    RI, RF, CB, CBI = W[W_IS][IRI:], W[W_FS][FRF:], W[W_FS][FCB:], W[W_IS][ICBI:]
     Lx, Ly = PR[R_LX], PR[R_LY]
     P, mP, N, mN = RI[RP], RI[RMP], RI[RN], RI[RMN]
     px, py = _roll_pos(W, P, mP)
@@ -1299,6 +1438,7 @@ def _scan(W, R):
         ky, iy = ky0, iy0
         for _b in range(nky):
             cell = kx + ncx * ky
+            SI[I_WSCAN] += CS[cell + 1] - CS[cell]
             for e in range(CS[cell], CS[cell + 1]):
                 k = CI[e]
                 x, y = OB[0, k] + ix * Lx, OB[1, k] + iy * Ly
@@ -1339,12 +1479,12 @@ def _scan(W, R):
 @njit(**JIT)
 def _scan_arcs(W, R, px, py, v0x, v0y, pmax):
     """Arcs of the line the rolling circle touches from outside (see :func:`_scan`)."""
-    PF, PI, RI, CB, CBI = W[W_PF], W[W_PI], W[W_RI], W[W_CB], W[W_CBI]
-    Lx = W[W_PR][R_LX]
+    PF, PI, RI, CB, CBI = W[W_FP], W[W_IP], W[W_IS][IRI:], W[W_FS][FCB:], W[W_IS][ICBI:]
+    Lx = W[W_FS][FPR:][R_LX]
     P, mP = RI[RP], RI[RMP]
     x0, x1, y0, y1 = px - 2.0 * R, px + 2.0 * R, py - 2.0 * R, py + 2.0 * R
     n = _gather_arcs(W, x0, x1, y0, y1)
-    QB = W[W_QB]
+    QB = W[W_IP][IQB]
     for q in range(n):
         j = QB[q]
         for m in range(mP - 2, mP + 3):
@@ -1374,21 +1514,25 @@ def _scan_arcs(W, R, px, py, v0x, v0y, pmax):
                 if _cw_p(px - ox, py - oy, zx - ox, zy - oy) > 2.0 + POINT_TIE:
                     continue
                 d2 = (zx - px) * (zx - px) + (zy - py) * (zy - py)
-                if _better(p, d2, CK_ARC, j, m, 0, CB, CBI) and not _excluded(W, CK_ARC, j, m, 0):
-                    _take(CB, CBI, p, d2, ox, oy, zx, zy, CK_ARC, j, m, 0)
+                if _better(p, d2, np.int64(CK_ARC), j, m, np.int64(0), CB, CBI) and not _excluded(W, np.int64(CK_ARC), j, m, np.int64(0)):
+                    _take(CB, CBI, p, d2, ox, oy, zx, zy, np.int64(CK_ARC), j, m, np.int64(0))
 
 
 ROLL_DONE = -1      # a roll (or one of its steps) ended with the line connected again
 ROLL_ON = -2        # the roll goes on
+ROLL_START = -3     # an event handler set a roll up
+FREE_START = -4     # an event handler left the line without pins: a free glide, then a roll
+# a roll step hands on to another (returned to :func:`_roll`, which calls it: see _start_roll)
+GO_TARGET, GO_PIVOT, GO_RELEASE, GO_FREE = -5, -6, -7, -8
 SENTINEL = -(1 << 60)
 
 
 @njit(**JIT)
 def _walk_offset(W, start, m0, target, stop):
     """Period offset of pin target reached walking forward from start (offset m0) before stop."""
-    PI = W[W_PI]
+    PI = W[W_IP]
     i, m = start, m0
-    for _ in range(W[W_SI][I_NPINS] + 1):
+    for _ in range(W[W_IS][I_NPINS] + 1):
         if i == target:
             return m
         if i == stop:
@@ -1409,7 +1553,7 @@ def _turn(ux, uy, vx, vy):
 @njit(**JIT)
 def _rotation(W, ocx, ocy, px, py):
     """Real rotation angle (rad) of the rolling circle from its start centre to centre O."""
-    RF = W[W_RF]
+    RF = W[W_FS][FRF:]
     v0x, v0y = RF[RCX] - px, RF[RCY] - py
     vx, vy = ocx - px, ocy - py
     if _rot(v0x, v0y, vx, vy) == 0.0:
@@ -1421,7 +1565,7 @@ def _rotation(W, ocx, ocy, px, py):
 @njit(**JIT)
 def _fix_pivot(W, theta, c_new, s):
     """The pivot's right arm stops after turning by theta, on a chord of length c_new."""
-    PF, PI, RI, RF = W[W_PF], W[W_PI], W[W_RI], W[W_RF]
+    PF, PI, RI, RF = W[W_FP], W[W_IP], W[W_IS][IRI:], W[W_FS][FRF:]
     P = RI[RP]
     phi = RF[RPHI0] - theta
     if P == RI[RN]:                    # single pin: it is also the target, whose angle is carried
@@ -1437,7 +1581,7 @@ def _left_tangent(W, i, m, R):
     """Unit direction from pin i (offset m) back along its left arm."""
     x, y = _roll_pos(W, i, m)
     ax, ay = _prev_pos(W, i)
-    ax += m * W[W_PR][R_LX]
+    ax += m * W[W_FS][FPR:][R_LX]
     cx, cy = _center(ax, ay, x, y, R)
     return -(y - cy) / R, (x - cx) / R
 
@@ -1445,10 +1589,11 @@ def _left_tangent(W, i, m, R):
 @njit(**JIT)
 def _hit_obstacle(W, k, ix, iy, ocx, ocy, theta, s, R):
     """The rolling circle meets a free obstacle: it becomes a pin and the next pivot."""
-    RI, RF, SI = W[W_RI], W[W_RF], W[W_SI]
+    RI, RF, SI = W[W_IS][IRI:], W[W_FS][FRF:], W[W_IS]
     P, mP, N, mN = RI[RP], RI[RMP], RI[RN], RI[RMN]
     q = _alloc(W, k, iy)
     if q < 0:
+        W[W_IS][I_WHY] = 1458
         return S_FATAL
     px, py = _roll_pos(W, P, mP)
     qx, qy = _roll_pos(W, q, ix)
@@ -1459,8 +1604,9 @@ def _hit_obstacle(W, k, ix, iy, ocx, ocy, theta, s, R):
     if not _gap_lead(W, ocx, ocy, qx, qy, R):
         SI[I_DXMISS] += 1
     if not _register(W, P):
+        W[W_IS][I_WHY] = 1468
         return S_FATAL
-    W[W_SF][F_DA] += _arc_integral(px, py, qx, qy, R)
+    W[W_FS][F_DA] += _arc_integral(px, py, qx, qy, R)
     _touch(W, P)
     _touch(W, q)
     SI[I_CAPT] += 1
@@ -1473,7 +1619,7 @@ def _hit_obstacle(W, k, ix, iy, ocx, ocy, theta, s, R):
 def _release_target(W, ocx, ocy, theta, s, R):
     """The target pin cannot hold with its new left arm: released, the roll goes on about the same
     pivot towards the pin after it."""
-    PF, PI, RI, RF = W[W_PF], W[W_PI], W[W_RI], W[W_RF]
+    PF, PI, RI, RF = W[W_FP], W[W_IP], W[W_IS][IRI:], W[W_FS][FRF:]
     P, mP, N, mN = RI[RP], RI[RMP], RI[RN], RI[RMN]
     nx, ny = _roll_pos(W, N, mN)
     N2, mN2 = PI[PNEXT, N], mN + PI[PSH, N]
@@ -1481,10 +1627,11 @@ def _release_target(W, ocx, ocy, theta, s, R):
     cx, cy = _center(nx, ny, x2, y2, R)
     px, py = _roll_pos(W, P, mP)
     _gap_clear(W)
-    _gap_put(W, False, ocx, ocy, px, py, nx, ny, R)
-    if not _gap_put(W, False, cx, cy, nx, ny, x2, y2, R):
+    _gap_put(W, np.int64(0), ocx, ocy, px, py, nx, ny, R)
+    if not _gap_put(W, np.int64(0), cx, cy, nx, ny, x2, y2, R):
+        W[W_IS][I_WHY] = 1492
         return S_FATAL
-    W[W_SF][F_DA] -= _arc_integral(nx, ny, x2, y2, R)
+    W[W_FS][F_DA] -= _arc_integral(nx, ny, x2, y2, R)
     phi2 = RF[RPHI0] - theta if N2 == P else _pin_phi(W, N2, s)
     _leave(W, N, nx, ny)
     _link(W, P, N2, mN2 - mP)
@@ -1500,7 +1647,7 @@ def _release_target(W, ocx, ocy, theta, s, R):
 def _hit_target(W, ocx, ocy, theta, s, R):
     """The rolling circle reaches the target pin: connect, unless the target's new arm angle is
     below its critical angle (then it is released and the roll goes on)."""
-    PF, PI, RI, RF, SI = W[W_PF], W[W_PI], W[W_RI], W[W_RF], W[W_SI]
+    PF, PI, RI, RF, SI = W[W_FP], W[W_IP], W[W_IS][IRI:], W[W_FS][FRF:], W[W_IS]
     P, mP, N, mN = RI[RP], RI[RMP], RI[RN], RI[RMN]
     px, py = _roll_pos(W, P, mP)
     nx, ny = _roll_pos(W, N, mN)
@@ -1518,16 +1665,17 @@ def _hit_target(W, ocx, ocy, theta, s, R):
         if N == P:
             RF[RCX], RF[RCY] = ocx, ocy
             RF[RPHI0] -= theta
-            return _pivot_release(W, s, R)
-        return _release_target(W, ocx, ocy, theta, s, R)
+            return GO_PIVOT
+        return GO_RELEASE
     if N != P:
         _fix_pivot(W, theta, c, s)
     _link(W, P, N, mN - mP)
     _set_alpha(W, N, alpha)
     SI[I_UNRES] = -1
     if not _register(W, P):
+        W[W_IS][I_WHY] = 1535
         return S_FATAL
-    W[W_SF][F_DA] += _arc_integral(px, py, nx, ny, R)
+    W[W_FS][F_DA] += _arc_integral(px, py, nx, ny, R)
     _touch(W, P)
     _touch(W, N)
     return ROLL_DONE
@@ -1537,7 +1685,7 @@ def _hit_target(W, ocx, ocy, theta, s, R):
 def _pivot_release(W, s, R):
     """The pivot's arm angle reached its critical angle before the circle met anything: the pivot
     is released and the roll goes on about the pin before it, from the circle of its arc."""
-    PI, RI, RF, SI = W[W_PI], W[W_RI], W[W_RF], W[W_SI]
+    PI, RI, RF, SI = W[W_IP], W[W_IS][IRI:], W[W_FS][FRF:], W[W_IS]
     P, mP, N, mN = RI[RP], RI[RMP], RI[RN], RI[RMN]
     px, py = _roll_pos(W, P, mP)
     _leave(W, P, px, py)
@@ -1548,14 +1696,15 @@ def _pivot_release(W, s, R):
     if SI[I_NPINS] == 1:
         _drop(W, P)
         SI[I_UNRES] = -1
-        return _free_line(W, s, R)
+        return GO_FREE
     O = PI[PPREV, P]
     mO = mP - PI[PSH, O]
     ox, oy = _roll_pos(W, O, mO)
     cx, cy = _center(ox, oy, px, py, R)
-    if not _gap_put(W, True, cx, cy, ox, oy, px, py, R):
+    if not _gap_put(W, np.int64(1), cx, cy, ox, oy, px, py, R):
+        W[W_IS][I_WHY] = 1563
         return S_FATAL
-    W[W_SF][F_DA] -= _arc_integral(ox, oy, px, py, R)
+    W[W_FS][F_DA] -= _arc_integral(ox, oy, px, py, R)
     phi0 = RF[RPHIN] if O == N else _pin_phi(W, O, s)
     _link(W, O, N, mN - mO)
     SI[I_UNRES] = O
@@ -1570,32 +1719,32 @@ def _hit_pin(W, D, ix, ocx, ocy, theta, s, R):
     """The rolling circle touches another pin of the line: the part of the line between is cut off
     as a loop.  Ahead of the target (right part): the circle reaches that pin, which becomes the
     target.  Behind the pivot (left part): that pin becomes the pivot."""
-    PF, PI, RI, RF, SI = W[W_PF], W[W_PI], W[W_RI], W[W_RF], W[W_SI]
+    PF, PI, RI, RF, SI = W[W_FP], W[W_IP], W[W_IS][IRI:], W[W_FS][FRF:], W[W_IS]
     P, mP, N, mN = RI[RP], RI[RMP], RI[RN], RI[RMN]
     mD = _walk_offset(W, N, mN, D, P)
     px, py = _roll_pos(W, P, mP)
     dx, dy = _roll_pos(W, D, ix)
     if mD != SENTINEL and ix == mD:
-        n = _loop_gap_part(W, 0, ocx, ocy, dx, dy, R)
+        n = _loop_gap_part(W, np.int64(0), ocx, ocy, dx, dy, R)
         n, area = _ls_chain(W, N, mN, D, n, R)
-        W[W_SF][F_DA] -= area
+        W[W_FS][F_DA] -= area
         _loop_finish(W, n, R)
         unx, uny = _left_tangent(W, D, ix, R)
         phid = _pin_phi(W, D, s)
         _drop_chain(W, N, PI[PPREV, D])
         _gap_clear(W)
-        _gap_put(W, False, ocx, ocy, px, py, dx, dy, R)
+        _gap_put(W, np.int64(0), ocx, ocy, px, py, dx, dy, R)
         _link(W, P, D, ix - mP)
         RI[RN], RI[RMN] = D, ix
         RF[RUNX], RF[RUNY], RF[RPHIN] = unx, uny, phid
-        return _hit_target(W, ocx, ocy, theta, s, R)
+        return GO_TARGET
     if mD != SENTINEL and ix == mD - 1:
-        n, area = _ls_chain(W, D, ix, P, 0, R)
+        n, area = _ls_chain(W, D, ix, P, np.int64(0), R)
         n = _ls_add(W, n, ocx, ocy, px, py, dx, dy, PI[PK, P])
-        W[W_SF][F_DA] -= area
+        W[W_FS][F_DA] -= area
         _loop_finish(W, n, R)
         bx, by = _next_pos(W, D)
-        bx += ix * W[W_PR][R_LX]
+        bx += ix * W[W_FS][FPR:][R_LX]
         ccx, ccy = _center(dx, dy, bx, by, R)
         told_x, told_y = -(ccy - dy) / R, (ccx - dx) / R
         tnew_x, tnew_y = -(ocy - dy) / R, (ocx - dx) / R
@@ -1618,7 +1767,7 @@ def _hit_arc(W, j, m, ocx, ocy, zx, zy, theta, s, R):
     """The rolling circle touches an arc E (pin j to the next) of the line from outside: the part
     of the line between is cut off as a loop.  E ahead of the target: the roll goes on about the
     same pivot towards E's far end.  E behind the pivot: E's near end becomes the pivot."""
-    PF, PI, RI, RF, SI = W[W_PF], W[W_PI], W[W_RI], W[W_RF], W[W_SI]
+    PF, PI, RI, RF, SI = W[W_FP], W[W_IP], W[W_IS][IRI:], W[W_FS][FRF:], W[W_IS]
     P, mP, N, mN = RI[RP], RI[RMP], RI[RN], RI[RMN]
     me = _walk_offset(W, N, mN, j, P)
     if me == SENTINEL or (m != me and m != me - 1):
@@ -1630,30 +1779,31 @@ def _hit_arc(W, j, m, ocx, ocy, zx, zy, theta, s, R):
     ecx, ecy = _center(e1x, e1y, e2x, e2y, R)
     ie = _arc_integral(e1x, e1y, e2x, e2y, R)
     if m == me:
-        n = _loop_gap_part(W, 0, ocx, ocy, zx, zy, R)
+        n = _loop_gap_part(W, np.int64(0), ocx, ocy, zx, zy, R)
         n, area = _ls_chain(W, N, mN, j, n, R)
         n = _ls_add(W, n, ecx, ecy, e1x, e1y, zx, zy, PI[PK, j])
-        W[W_SF][F_DA] -= area + ie
+        W[W_FS][F_DA] -= area + ie
         _loop_finish(W, n, R)
         phi2 = RF[RPHI0] - theta if j2 == P else _pin_phi(W, j2, s)
         _drop_chain(W, N, j)
         _gap_clear(W)
-        _gap_put(W, False, ocx, ocy, px, py, zx, zy, R)
-        _gap_put(W, False, ecx, ecy, zx, zy, e2x, e2y, R)
+        _gap_put(W, np.int64(0), ocx, ocy, px, py, zx, zy, R)
+        _gap_put(W, np.int64(0), ecx, ecy, zx, zy, e2x, e2y, R)
         _link(W, P, j2, m2 - mP)
         RI[RN], RI[RMN] = j2, m2
         RF[RUNX], RF[RUNY], RF[RPHIN] = -(e2y - ecy) / R, (e2x - ecx) / R, phi2
         RF[RCX], RF[RCY] = ocx, ocy
         RF[RPHI0] -= theta
         return ROLL_ON
-    n = _ls_add(W, 0, ecx, ecy, zx, zy, e2x, e2y, -1)
+    n = _ls_add(W, np.int64(0), ecx, ecy, zx, zy, e2x, e2y, np.int64(-1))
     n, area = _ls_chain(W, j2, m2, P, n, R)
     n = _ls_add(W, n, ocx, ocy, px, py, zx, zy, PI[PK, P])
-    W[W_SF][F_DA] -= area + ie
+    W[W_FS][F_DA] -= area + ie
     _loop_finish(W, n, R)
     phi0 = RF[RPHIN] if j == N else _pin_phi(W, j, s)
     _gap_lead(W, ocx, ocy, zx, zy, R)
-    if not _gap_put(W, True, ecx, ecy, e1x, e1y, zx, zy, R):
+    if not _gap_put(W, np.int64(1), ecx, ecy, e1x, e1y, zx, zy, R):
+        W[W_IS][I_WHY] = 1663
         return S_FATAL
     _drop_chain(W, j2, P)
     _link(W, j, N, mN - m)
@@ -1669,7 +1819,7 @@ def _translate(W, R):
     """A line freed of every pin glides on rigidly (keeping its last shape, the gap) until it
     touches a free obstacle: the smallest upward shift d between the gap arcs and an obstacle
     directly above them.  Returns (d, k, ix, iy, arc); arc -1 if the field holds no obstacle."""
-    GP, SI, PR, OB, CS, CI = W[W_GP], W[W_SI], W[W_PR], W[W_OB], W[W_CS], W[W_CI]
+    GP, SI, PR, OB, CS, CI = W[W_FP][FG:], W[W_IS], W[W_FS][FPR:], W[W_OB], W[W_CSI], _citems(W)
     Lx, Ly = PR[R_LX], PR[R_LY]
     ncx, ncy = SI[I_NCX], SI[I_NCY]
     ng = SI[I_NGAP]
@@ -1692,6 +1842,7 @@ def _translate(W, R):
                 ky, iy = ky0, iy0
                 for _b in range(nky):
                     cell = kx + ncx * ky
+                    SI[I_WTRANS] += CS[cell + 1] - CS[cell]
                     for e in range(CS[cell], CS[cell + 1]):
                         k = CI[e]
                         x, y = OB[0, k] + ix * Lx, OB[1, k] + iy * Ly
@@ -1720,32 +1871,42 @@ def _translate(W, R):
 
 
 @njit(**JIT)
+def _gap_linear(W):
+    """Lay the gap ring out from column 0 (for the whole-gap passes of a free glide)."""
+    GP, SI = W[W_FP][FG:], W[W_IS]
+    n = SI[I_NGAP]
+    old = np.empty((6, n))
+    for a in range(n):
+        c = _gcol(W, a)
+        for r in range(6):
+            old[r, a] = GP[r, c]
+    for a in range(n):
+        for r in range(6):
+            GP[r, a] = old[r, a]
+    SI[I_GHEAD] = 0
+
+
+@njit(**JIT)
 def _gap_rotate(W, g, qx, qy, R):
-    """Reorder the gap (one period of line) to run from Q, on gap arc g, round to Q one period on:
-    the rest of arc g, the arcs after it, the arcs before it one period on, arc g up to Q."""
-    GP, SI = W[W_GP], W[W_SI]
-    Lx = W[W_PR][R_LX]
+    """Reorder the gap (one period of line, laid out from column 0) to run from Q, on gap arc g,
+    round to Q one period on: the rest of arc g, the arcs after it, the arcs before it one period
+    on, arc g up to Q."""
+    GP, SI = W[W_FP][FG:], W[W_IS]
+    Lx = W[W_FS][FPR:][R_LX]
     n = SI[I_NGAP]
     if n + 1 > GP.shape[1]:
         return
     old = GP[:, :n].copy()
-    k = 0
+    _gap_clear(W)
     for a in range(g, n + g + 1):
         b = a % n
-        for r in range(6):
-            GP[r, k] = old[r, b]
-        if a >= n:
-            GP[0, k] += Lx
-            GP[2, k] += Lx
-            GP[4, k] += Lx
-        k += 1
-    GP[2, 0], GP[3, 0] = qx, qy                 # arc g from Q on
-    GP[4, n], GP[5, n] = qx + Lx, qy            # arc g up to Q, a period on
-    SI[I_NGAP] = n + 1
-    SF = W[W_SF]
-    SF[F_AGAP] = 0.0
-    for a in range(n + 1):
-        SF[F_AGAP] += _arc_integral(GP[2, a], GP[3, a], GP[4, a], GP[5, a], R)
+        sh = Lx if a >= n else 0.0
+        x0, y0, x1, y1 = old[2, b] + sh, old[3, b], old[4, b] + sh, old[5, b]
+        if a == g:
+            x0, y0 = qx, qy                     # arc g from Q on
+        if a == n + g:
+            x1, y1 = qx + Lx, qy                # arc g up to Q, a period on
+        _gap_put(W, np.int64(0), old[0, b] + sh, old[1, b], x0, y0, x1, y1, R)
 
 
 @njit(**JIT)
@@ -1753,7 +1914,8 @@ def _free_line(W, s, R):
     """Every pin is gone: the line glides on at the same stress (:func:`_translate`) and is caught
     again by the first obstacle it touches, which starts a new roll with itself as the target
     one period on."""
-    GP, SI, RI, RF = W[W_GP], W[W_SI], W[W_RI], W[W_RF]
+    GP, SI, RI, RF = W[W_FP][FG:], W[W_IS], W[W_IS][IRI:], W[W_FS][FRF:]
+    _gap_linear(W)
     d, k, ix, iy, g = _translate(W, R)
     if g < 0:
         return S_FLOW                   # nothing can ever hold the line
@@ -1764,12 +1926,13 @@ def _free_line(W, s, R):
         GP[3, a] += d
         GP[5, a] += d
         span += GP[4, a] - GP[2, a]
-    W[W_SF][F_AGAP] += d * span
+    W[W_FS][F_AGAP] += d * span
     SI[I_TRANSL] += 1
     q = _alloc(W, k, iy)
     if q < 0:
+        W[W_IS][I_WHY] = 1778
         return S_FATAL
-    _link(W, q, q, 1)
+    _link(W, q, q, np.int64(1))
     SI[I_UNRES] = q
     SI[I_CAPT] += 1
     _touch(W, q)
@@ -1803,7 +1966,7 @@ def _roll(W):
     (:func:`_scan`): a candidate lying beyond where the rolling arc crosses the old line (the
     gap) is not reached and is skipped (:func:`_crosses_gap`).  Returns ROLL_DONE or a status.
     """
-    SI, SF, PR, CB, CBI = W[W_SI], W[W_SF], W[W_PR], W[W_CB], W[W_CBI]
+    SI, SF, PR, CB, CBI = W[W_IS], W[W_FS], W[W_FS][FPR:], W[W_FS][FCB:], W[W_IS][ICBI:]
     s = SF[F_S]
     R = 0.5 / s
     SI[I_NEX] = 0
@@ -1814,10 +1977,12 @@ def _roll(W):
         if (SF[F_DA] + SF[F_AGAP]) / PR[R_LX] >= PR[R_FLOW]:
             return S_FLOW
         if SI[I_NFREE] < 2:
+            W[W_IS][I_WHY] = 1824
             return S_FATAL
         kind = _scan(W, R)
-        RI = W[W_RI]
+        RI = W[W_IS][IRI:]
         px, py = _roll_pos(W, RI[RP], RI[RMP])
+        ocx, ocy, theta = 0.0, 0.0, 0.0
         if kind == CK_NONE:
             r = _pivot_release(W, s, R)
         else:
@@ -1838,13 +2003,22 @@ def _roll(W):
             if r == SENTINEL:           # not reached after all: look again without it
                 SI[I_DINVALID] += 1
                 if SI[I_NEX] < MAX_EXCLUDED:
-                    EX = W[W_EX]
+                    EX = W[W_IS][IEX:IEX + 4 * MAX_EXCLUDED].reshape(4, MAX_EXCLUDED)
                     n = SI[I_NEX]
                     EX[0, n], EX[1, n], EX[2, n], EX[3, n] = kind, a, b, c
                     SI[I_NEX] = n + 1
                     SI[I_EVENTS] -= 1
                     continue
                 r = _pivot_release(W, s, R)
+        while r <= GO_TARGET:           # hand-overs between steps
+            if r == GO_TARGET:
+                r = _hit_target(W, ocx, ocy, theta, s, R)
+            elif r == GO_RELEASE:
+                r = _release_target(W, ocx, ocy, theta, s, R)
+            elif r == GO_PIVOT:
+                r = _pivot_release(W, s, R)
+            else:
+                r = _free_line(W, s, R)
         SI[I_NEX] = 0
         if r == ROLL_DONE:
             return ROLL_DONE
@@ -1861,11 +2035,11 @@ def _behind_line(W, x, y, R):
     a piece crosses when its ends lie on either side of the ray (so a ray through a pin counts
     the pin once, or not at all where the line only touches it), +1 running towards +x (the
     upper half of the circle, clockwise) and -1 towards -x."""
-    PF = W[W_PF]
-    Lx = W[W_PR][R_LX]
-    top = W[W_SF][F_YTOP] + 2.0 * R
+    PF = W[W_FP]
+    Lx = W[W_FS][FPR:][R_LX]
+    top = W[W_FS][F_YTOP] + 2.0 * R
     n = _gather_arcs(W, x, x, y, max(y, top))
-    QB = W[W_QB]
+    QB = W[W_IP][IQB]
     px = np.empty(4)
     count = 0
     for q in range(n):
@@ -1907,7 +2081,7 @@ def _behind_line(W, x, y, R):
 def _flag_swept(W, R):
     """After a roll: every free obstacle of the region it changed that now lies behind the line
     was carried over without being met (the line advanced past it); it is behind from now on."""
-    SF, SI, PR, OB, CS, CI = W[W_SF], W[W_SI], W[W_PR], W[W_OB], W[W_CS], W[W_CI]
+    SF, SI, PR, OB, CS, CI = W[W_FS], W[W_IS], W[W_FS][FPR:], W[W_OB], W[W_CSI], _citems(W)
     Lx, Ly = PR[R_LX], PR[R_LY]
     if not SF[F_BX0] <= SF[F_BX1]:
         return
@@ -1928,6 +2102,7 @@ def _flag_swept(W, R):
                     continue
                 if _behind(W, k, iy) or _find_pin(W, k, iy) >= 0:
                     continue
+                SI[I_WFLAG] += 1
                 if _behind_line(W, x, y, R):
                     _set_behind(W, k, iy)
                     SI[I_SWEPT] += 1
@@ -1942,27 +2117,31 @@ def _flag_swept(W, R):
 @njit(**JIT)
 def _start_roll(W, P, mP, ocx, ocy, phi0, N, mN, s, R):
     """Set up a roll about pivot P (period offset mP in the roll frame) towards target N, the
-    target's current left arm and angle taken from the line; then run it."""
-    RI, RF = W[W_RI], W[W_RF]
+    target's current left arm and angle taken from the line; :func:`advance` runs it (the event
+    handlers only set rolls up: a shallow call graph keeps numba's compile time down)."""
+    RI, RF = W[W_IS][IRI:], W[W_FS][FRF:]
     if N == P:
         unx, uny, phin = 0.0, 0.0, phi0
     else:
         unx, uny = _left_tangent(W, N, mN, R)
         phin = _pin_phi(W, N, s)
     _link(W, P, N, mN - mP)
-    W[W_SI][I_UNRES] = P
+    W[W_IS][I_UNRES] = P
     RI[RP], RI[RMP], RI[RN], RI[RMN] = P, mP, N, mN
     RF[RCX], RF[RCY], RF[RPHI0] = ocx, ocy, phi0
     RF[RUNX], RF[RUNY], RF[RPHIN] = unx, uny, phin
-    return _run_roll(W, R)
+    return ROLL_START
 
 
 @njit(**JIT)
-def _run_roll(W, R):
-    """Run the roll set up in the roll state; afterwards mark what it carried the line over."""
-    SF = W[W_SF]
-    r = _roll(W)
-    W[W_SI][I_UNRES] = -1
+def _run_roll(W, s, R, free):
+    """Run the roll set up in the roll state (after a free glide when ``free``: the line has no
+    pin left); afterwards mark what it carried the line over."""
+    SF = W[W_FS]
+    r = _free_line(W, s, R) if free else ROLL_ON
+    if r == ROLL_ON:
+        r = _roll(W)
+    W[W_IS][I_UNRES] = -1
     if r == ROLL_DONE:
         _flag_swept(W, R)
     SF[F_BX0], SF[F_BY0], SF[F_BX1], SF[F_BY1] = np.inf, np.inf, -np.inf, -np.inf
@@ -1973,12 +2152,13 @@ def _run_roll(W, R):
 def _do_capture(W, i, k, ix, iy, s, R):
     """Arc i meets a free obstacle as it bows: the obstacle becomes a pin on the same circle
     (arm angle π; the neighbours' tangents do not move, only their chords)."""
-    PF, PI, SI = W[W_PF], W[W_PI], W[W_SI]
+    PF, PI, SI = W[W_FP], W[W_IP], W[W_IS]
     j, sh = PI[PNEXT, i], PI[PSH, i]
     px, py = PF[PX, i], PF[PY, i]
     nx, ny = _next_pos(W, i)
     q = _alloc(W, k, iy)
     if q < 0:
+        W[W_IS][I_WHY] = 1990
         return S_FATAL
     qx, qy = _roll_pos(W, q, ix)
     cpn, cpq, cqn = _dist(px, py, nx, ny), _dist(px, py, qx, qy), _dist(qx, qy, nx, ny)
@@ -1987,11 +2167,12 @@ def _do_capture(W, i, k, ix, iy, s, R):
     _set_alpha(W, i, PF[PAL, i] - apn + apq)
     _set_alpha(W, j, PF[PAL, j] - apn + aqn)
     _set_alpha(W, q, math.pi + apq + aqn)
-    W[W_SF][F_DA] += (_arc_integral(px, py, qx, qy, R) + _arc_integral(qx, qy, nx, ny, R)
+    W[W_FS][F_DA] += (_arc_integral(px, py, qx, qy, R) + _arc_integral(qx, qy, nx, ny, R)
                       - _arc_integral(px, py, nx, ny, R))
     _link(W, i, q, ix)
     _link(W, q, j, sh - ix)
     if not (_register(W, i) and _register(W, q)):
+        W[W_IS][I_WHY] = 2003
         return S_FATAL
     _touch(W, i)
     _touch(W, q)
@@ -2004,56 +2185,52 @@ def _do_capture(W, i, k, ix, iy, s, R):
 def _do_release(W, b, s, R):
     """Pin b releases (its arm angle fell below its critical angle): the roll starts about the pin
     before it, from the circle of that pin's arc, towards the pin after it."""
-    PI, SI = W[W_PI], W[W_SI]
+    PI, SI = W[W_IP], W[W_IS]
     a, c = PI[PPREV, b], PI[PNEXT, b]
     mb = PI[PSH, a]
     mc = mb + PI[PSH, b]
-    ax, ay = _roll_pos(W, a, 0)
+    ax, ay = _roll_pos(W, a, np.int64(0))
     bx, by = _roll_pos(W, b, mb)
     cx, cy = _roll_pos(W, c, mc)
     c1x, c1y = _center(ax, ay, bx, by, R)
     c2x, c2y = _center(bx, by, cx, cy, R)
-    SI[I_NGAP] = 0
-    W[W_SF][F_AGAP] = 0.0
-    _gap_put(W, False, c1x, c1y, ax, ay, bx, by, R)
-    _gap_put(W, False, c2x, c2y, bx, by, cx, cy, R)
-    W[W_SF][F_DA] -= (_arc_integral(ax, ay, bx, by, R) + _arc_integral(bx, by, cx, cy, R))
+    _gap_clear(W)
+    _gap_put(W, np.int64(0), c1x, c1y, ax, ay, bx, by, R)
+    single = SI[I_NPINS] == 1          # b alone: the gap is its one arc, round one period
+    if not single:
+        _gap_put(W, np.int64(0), c2x, c2y, bx, by, cx, cy, R)
+    W[W_FS][F_DA] -= (_arc_integral(ax, ay, bx, by, R) + _arc_integral(bx, by, cx, cy, R))
     _leave(W, b, bx, by)
     if SI[I_NPINS] == 1:
-        SI[I_NGAP] = 1
-        W[W_SF][F_AGAP] = _arc_integral(ax, ay, bx, by, R)
-        W[W_SF][F_DA] += _arc_integral(bx, by, cx, cy, R)
+        W[W_FS][F_DA] += _arc_integral(bx, by, cx, cy, R)
         _drop(W, b)
-        r = _free_line(W, s, R)
-        if r != ROLL_ON:
-            return r
-        return _run_roll(W, R)
+        SI[I_UNRES] = -1
+        return FREE_START
     phi0 = _pin_phi(W, a, s)            # two pins (a == c): the target is a one period on
     _drop(W, b)
-    return _start_roll(W, a, 0, c1x, c1y, phi0, c, mc, s, R)
+    return _start_roll(W, a, np.int64(0), c1x, c1y, phi0, c, mc, s, R)
 
 
 @njit(**JIT)
 def _do_instability(W, i, s, R):
     """Arc i can no longer span its chord (chord >= 2R): it rolls on about its left pin from the
     semicircle on the chord, towards its right pin."""
-    PI, SI = W[W_PI], W[W_SI]
+    PI, SI = W[W_IP], W[W_IS]
     j, mj = PI[PNEXT, i], PI[PSH, i]
-    px, py = _roll_pos(W, i, 0)
+    px, py = _roll_pos(W, i, np.int64(0))
     qx, qy = _roll_pos(W, j, mj)
     cx, cy = _center(px, py, qx, qy, R)
-    SI[I_NGAP] = 0
-    W[W_SF][F_AGAP] = 0.0
-    _gap_put(W, False, cx, cy, px, py, qx, qy, R)
-    W[W_SF][F_DA] -= _arc_integral(px, py, qx, qy, R)
-    return _start_roll(W, i, 0, cx, cy, _pin_phi(W, i, s), j, mj, s, R)
+    _gap_clear(W)
+    _gap_put(W, np.int64(0), cx, cy, px, py, qx, qy, R)
+    W[W_FS][F_DA] -= _arc_integral(px, py, qx, qy, R)
+    return _start_roll(W, i, np.int64(0), cx, cy, _pin_phi(W, i, s), j, mj, s, R)
 
 
 @njit(**JIT)
 def _do_tangent(W, i, j, m, s, R):
     """Arcs i and j (period offset m) touch as they bow: the part of the line between them is cut
     off as a loop, and the line rolls on from the first arc's left pin to the second's right pin."""
-    PI, SI = W[W_PI], W[W_SI]
+    PI, SI = W[W_IP], W[W_IS]
     if j == i:
         return ROLL_DONE
     mj = _walk_offset(W, PI[PNEXT, i], PI[PSH, i], j, i)
@@ -2077,15 +2254,15 @@ def _do_tangent(W, i, j, m, s, R):
         return ROLL_DONE
     c1x, c1y = _center(ax, ay, bx, by, R)
     c2x, c2y = _center(cx, cy, dx, dy, R)
-    n = _ls_add(W, 0, c1x, c1y, zx, zy, bx, by, -1)
+    n = _ls_add(W, np.int64(0), c1x, c1y, zx, zy, bx, by, np.int64(-1))
     n, area = _ls_chain(W, f2, mf2, g, n, R)
     n = _ls_add(W, n, c2x, c2y, cx, cy, zx, zy, PI[PK, g])
     _loop_finish(W, n, R)
     i1, i2 = _arc_integral(ax, ay, bx, by, R), _arc_integral(cx, cy, dx, dy, R)
-    W[W_SF][F_DA] -= i1 + i2 + area
+    W[W_FS][F_DA] -= i1 + i2 + area
     _gap_clear(W)
-    _gap_put(W, False, c1x, c1y, ax, ay, zx, zy, R)
-    _gap_put(W, False, c2x, c2y, zx, zy, dx, dy, R)
+    _gap_put(W, np.int64(0), c1x, c1y, ax, ay, zx, zy, R)
+    _gap_put(W, np.int64(0), c2x, c2y, zx, zy, dx, dy, R)
     phi0 = _pin_phi(W, f, s)
     _drop_chain(W, f2, g)
     return _start_roll(W, f, mf, c1x, c1y, phi0, g2, mg2, s, R)
@@ -2095,16 +2272,16 @@ def _do_tangent(W, i, j, m, s, R):
 def _do_sweep(W, x, d, m, s, R):
     """Arc x bows over pin d of the line (period offset m): the part of the line between the arc
     and the pin is cut off as a loop, and the arc ends at d instead (same circle)."""
-    PF, PI, SI = W[W_PF], W[W_PI], W[W_SI]
+    PF, PI, SI = W[W_FP], W[W_IP], W[W_IS]
     x2, mx2 = PI[PNEXT, x], PI[PSH, x]
     md = _walk_offset(W, x2, mx2, d, x)
-    px, py = _roll_pos(W, x, 0)
+    px, py = _roll_pos(W, x, np.int64(0))
     qx, qy = _roll_pos(W, x2, mx2)
     dx, dy = _roll_pos(W, d, m)
     ccx, ccy = _center(px, py, qx, qy, R)
     ix_ = _arc_integral(px, py, qx, qy, R)
     if md == m:                         # d ahead of the arc: x now ends at d
-        n = _ls_add(W, 0, ccx, ccy, dx, dy, qx, qy, -1)
+        n = _ls_add(W, np.int64(0), ccx, ccy, dx, dy, qx, qy, np.int64(-1))
         n, area = _ls_chain(W, x2, mx2, d, n, R)
         _loop_finish(W, n, R)
         unx, uny = _left_tangent(W, d, m, R)
@@ -2119,13 +2296,13 @@ def _do_sweep(W, x, d, m, s, R):
                    + math.asin(min(1.0, cnew * s)))
         _link(W, x, d, m)
         _set_alpha(W, d, phid + math.asin(min(1.0, cnew * s)) + math.asin(min(1.0, cr * s)))
-        W[W_SF][F_DA] += _arc_integral(px, py, dx, dy, R) - ix_ - area
+        W[W_FS][F_DA] += _arc_integral(px, py, dx, dy, R) - ix_ - area
     elif md == m + 1:                   # d behind the arc: the arc now starts at d
-        n, area = _ls_chain(W, d, m, x, 0, R)
+        n, area = _ls_chain(W, d, m, x, np.int64(0), R)
         n = _ls_add(W, n, ccx, ccy, px, py, dx, dy, PI[PK, x])
         _loop_finish(W, n, R)
         bx, by = _next_pos(W, d)
-        bx += m * W[W_PR][R_LX]
+        bx += m * W[W_FS][FPR:][R_LX]
         c0x, c0y = _center(dx, dy, bx, by, R)
         told_x, told_y = -(c0y - dy) / R, (c0x - dx) / R
         tnew_x, tnew_y = -(ccy - dy) / R, (ccx - dx) / R
@@ -2139,12 +2316,13 @@ def _do_sweep(W, x, d, m, s, R):
         _drop_chain(W, PI[PNEXT, d], x)
         _link(W, d, x2, mx2 - m)
         _set_alpha(W, d, phid + math.asin(min(1.0, cl * s)) + math.asin(min(1.0, cnew * s)))
-        W[W_SF][F_DA] += _arc_integral(dx, dy, qx, qy, R) - ix_ - area
+        W[W_FS][F_DA] += _arc_integral(dx, dy, qx, qy, R) - ix_ - area
         x = d
     else:
         SI[I_DINVALID] += 1
         return ROLL_DONE
     if not _register(W, x):
+        W[W_IS][I_WHY] = 2156
         return S_FATAL
     _touch(W, x)
     _touch(W, PI[PNEXT, x])
@@ -2155,7 +2333,7 @@ def _do_sweep(W, x, d, m, s, R):
 @njit(**JIT)
 def _process(W, e, se, s, R):
     """Carry out the event of element e at stress s; ROLL_DONE or a status."""
-    EP = W[W_EP]
+    EP = W[W_EH]
     i = e // 2
     if e % 2 == 1:
         return _do_release(W, i, s, R)
@@ -2172,59 +2350,55 @@ def _process(W, e, se, s, R):
 
 
 # --- loading -------------------------------------------------------------------------------------
-@njit(**JIT)
-def _init(W, y0):
+def _init(run: "_Run", y0: float) -> int:
     """The straight line along y = y0 glides (at any stress above zero) to the first obstacles it
-    meets; those at that height within rounding pin it.  Returns the number of pins."""
-    PF, PI, SI, PR, OB, OI = W[W_PF], W[W_PI], W[W_SI], W[W_PR], W[W_OB], W[W_OI]
-    Lx, Ly = PR[R_LX], PR[R_LY]
+    meets; those at that height within rounding pin it.  Every image below y0 is behind.
+    Returns the number of pins."""
+    W = run.W
+    OB, OJ = W[W_OB], W[W_OJ]
+    Ly = float(W[W_FS][FPR + R_LY])
     m = OB.shape[1]
     if m == 0:
         return 0
-    ymin = np.inf
-    for k in range(m):
-        iy = int(math.ceil((y0 - OB[1, k]) / Ly))
-        if OB[1, k] + iy * Ly < y0:
-            iy += 1
-        OI[0, k], OI[1, k], OI[2, k], OI[3, k], OI[4, k] = iy, 0, -1, 0, iy
-        ymin = min(ymin, OB[1, k] + iy * Ly)
-    tol = POINT_TIE * max(Lx, Ly)
-    sel = np.empty(m, np.int64)
-    n = 0
-    for k in range(m):
-        if OB[1, k] + OI[0, k] * Ly <= ymin + tol:
-            sel[n] = k
-            n += 1
-    xs = np.empty(n)
-    for a in range(n):
-        xs[a] = OB[0, sel[a]]
-    order = np.argsort(xs, kind="mergesort")
+    iy = np.ceil((y0 - OB[1]) / Ly).astype(np.int64)
+    iy += (OB[1] + iy * Ly < y0)
+    OJ[0], OJ[1], OJ[2], OJ[3], OJ[4] = iy, 0, -1, 0, iy
+    y = OB[1] + iy * Ly
+    tol = POINT_TIE * max(float(W[W_FS][FPR + R_LX]), Ly)
+    sel = np.flatnonzero(y <= y.min() + tol)
+    sel = sel[np.argsort(OB[0, sel], kind="stable")].astype(np.int64)
+    _init_pins(run.tuple(), sel, iy[sel].astype(np.int64))
+    return int(sel.shape[0])
+
+
+@njit(**JIT)
+def _init_pins(W, ks, iys):
+    """Pin obstacle images (ks, iys), in order along x, as the straight starting line; their
+    events are computed when :func:`advance` starts."""
+    PF = W[W_FP]
+    n = ks.shape[0]
     slots = np.empty(n, np.int64)
     for a in range(n):
-        k = sel[order[a]]
-        slots[a] = _alloc(W, k, OI[0, k])
+        slots[a] = _alloc(W, ks[a], iys[a])
     for a in range(n):
-        _link(W, slots[a], slots[(a + 1) % n], 1 if a == n - 1 else 0)
+        _link(W, slots[a], slots[(a + 1) % n], np.int64(1) if a == n - 1 else np.int64(0))
     for a in range(n):
         i = slots[a]
         ax, ay = _prev_pos(W, i)
         bx, by = _next_pos(W, i)
         PF[PAL, i] = _chord_alpha(ax, ay, PF[PX, i], PF[PY, i], bx, by)
-    W[W_SF][F_S] = 0.0
+    W[W_FS][F_S] = 0.0
     for a in range(n):
         _register(W, slots[a])
-    for a in range(n):
-        _arc_event(W, slots[a])
-        _pin_event(W, slots[a])
-    SI[I_ANCHOR] = slots[0]
-    return n
+        _touch(W, slots[a])
+    W[W_IS][I_ANCHOR] = slots[0]
 
 
 @njit(**JIT)
 def _line_area(W, s):
     """Area under the line (b²), its node count when sampled at spacing h, over one period."""
-    PF, PI, SI = W[W_PF], W[W_PI], W[W_SI]
-    h = W[W_PR][R_H]
+    PF, PI, SI = W[W_FP], W[W_IP], W[W_IS]
+    h = W[W_FS][FPR:][R_H]
     R = np.inf if s <= 0.0 else 0.5 / s
     i = SI[I_ANCHOR]
     area, nodes = 0.0, 0
@@ -2241,7 +2415,7 @@ def _line_area(W, s):
 
 @njit(**JIT)
 def _count_pins(W):
-    PI, SI = W[W_PI], W[W_SI]
+    PI, SI = W[W_IP], W[W_IS]
     i, n = SI[I_ANCHOR], 0
     for _ in range(PI.shape[1] + 1):
         n += 1
@@ -2253,7 +2427,7 @@ def _count_pins(W):
 
 @njit(**JIT)
 def _row(W, s, area, flowing):
-    SI, SF, HR = W[W_SI], W[W_SF], W[W_HR]
+    SI, SF, HR = W[W_IS], W[W_FS], W[W_HR]
     r = SI[I_NHIST]
     _, nodes = _line_area(W, s)
     HR[H_S, r], HR[H_AREA, r], HR[H_SWEPT, r] = s, area, area - SF[F_AROW]
@@ -2268,7 +2442,7 @@ def _row(W, s, area, flowing):
 def _end_avalanche(W):
     """The line is stable at the current stress: a pinned configuration.  Slots left in the
     avalanche become free, the journal restarts, and the configuration is the new reference."""
-    PI, SI, SF = W[W_PI], W[W_SI], W[W_SF]
+    PI, SI, SF = W[W_IP], W[W_IS], W[W_FS]
     i = SI[I_DEFER]
     while i >= 0:
         nxt = PI[PLNK, i]
@@ -2294,13 +2468,13 @@ def _end_avalanche(W):
 @njit(**JIT)
 def _restore(W):
     """Undo the current avalanche (it was the flow): back to the last pinned configuration."""
-    PF, PI, SI, JI, JF = W[W_PF], W[W_PI], W[W_SI], W[W_JI], W[W_JF]
+    PF, PI, SI, JI, JF = W[W_FP], W[W_IP], W[W_IS], W[W_IP][IJ:IJ + 5], W[W_FP][FJ]
     for n in range(SI[I_JN] - 1, -1, -1):
         i = JI[0, n]
         PI[PPREV, i], PI[PNEXT, i], PI[PSH, i], PI[PST, i] = JI[1, n], JI[2, n], JI[3, n], JI[4, n]
         PF[PAL, i] = JF[n]
     SI[I_JN] = 0
-    JO, OI = W[W_JO], W[W_OI]
+    JO, OI = W[W_OJ][OJO:], W[W_OJ]
     for n in range(SI[I_JON] - 1, -1, -1):
         OI[0, JO[0, n]], OI[1, JO[0, n]] = JO[1, n], JO[2, n]
     SI[I_JON] = 0
@@ -2311,14 +2485,16 @@ def _restore(W):
 def advance(W):
     """Raise the stress event by event until the line flows or a return condition; returns the
     status (S_*).  Resumable: every return happens between two events."""
-    SI, SF, PR, HP, EK, PI = W[W_SI], W[W_SF], W[W_PR], W[W_HP], W[W_EK], W[W_PI]
+    SI, SF, PR, HP, EK, PI = W[W_IS], W[W_FS], W[W_FS][FPR:], W[W_EH][EHP:], W[W_EK], W[W_IP]
     Lx = PR[R_LX]
+    if SI[I_NTOUCH] > 0:
+        _refresh_touched(W)
     while True:
         if SI[I_EVENTS] >= SI[I_MAXEV]:
             return S_MAXEV
-        if SI[I_APN] > W[W_AP].shape[1] // 2:
+        if SI[I_APN] > 3 * (W[W_AP].shape[1] // 4):   # compact at 3/4, grow if still past 1/2
             _compact(W)
-        C = W[W_PF].shape[1]
+        C = W[W_FP].shape[1]
         if (SI[I_NFREE] < SI[I_NPINS] + 64 or SI[I_APN] > W[W_AP].shape[1] // 2
                 or SI[I_NLARC] + C > W[W_LR].shape[1] or SI[I_NLOOP] + C > W[W_LO].shape[0] - 2):
             return S_GROW
@@ -2336,10 +2512,10 @@ def advance(W):
             _end_avalanche(W)
             if se > PR[R_SMAX]:
                 if SF[F_SROW] < s:
-                    _row(W, s, _line_area(W, s)[0], 0)
+                    _row(W, s, _line_area(W, s)[0], np.int64(0))
                 return S_GIVEUP
             if s >= SF[F_SROW] * (1.0 + HISTORY_STRESS_BIN) and s > 0.0:
-                _row(W, s, _line_area(W, s)[0], 0)
+                _row(W, s, _line_area(W, s)[0], np.int64(0))
             SF[F_S] = se
             SI[I_EPOCH] += 1
             SF[F_DA], SF[F_AGAP] = 0.0, 0.0
@@ -2356,6 +2532,8 @@ def advance(W):
         R = np.inf if s <= 0.0 else 0.5 / s
         SF[F_BX0], SF[F_BY0], SF[F_BX1], SF[F_BY1] = np.inf, np.inf, -np.inf, -np.inf
         r = _process(W, e, se, s, R)
+        if r == ROLL_START or r == FREE_START:
+            r = _run_roll(W, s, R, r == FREE_START)
         SI[I_EVENTS] += 1
         if r == ROLL_DONE:
             _refresh_touched(W)
@@ -2365,18 +2543,24 @@ def advance(W):
         if r == S_FLOW:
             area = SF[F_DA] + SF[F_AGAP]
             _restore(W)
-            _row(W, s, _line_area(W, s)[0] + area, 1)
+            _row(W, s, _line_area(W, s)[0] + area, np.int64(1))
         return r
 
 
 # --- Python driver -------------------------------------------------------------------------------
 #: Pin slots allocated per box width in obstacle spacings (a line holds about 1.5 pins per
 #: spacing at its CRSS, more in an avalanche); grown by doubling when short.
-PINS_PER_SPACING = 8
+PINS_PER_SPACING = 32
 #: Least pin capacity.
 MIN_PINS = 256
 #: Entries of the arc cell pool per pin slot (an arc covers a few cells); grown when short.
 POOL_PER_PIN = 16
+#: Entries of the gap's cell pool per gap arc (the box of its circle, some R/L_s cells a side);
+#: when short, that roll's crossing searches go through the whole gap instead.
+GAP_POOL_PER_ARC = 16
+#: The gap gets its cell grid once it holds more arcs than this (a search through a few arcs is
+#: cheaper than the grid; measured on random fields, where most gaps hold 2 to 10 arcs).
+GAP_INDEX_MIN = 24
 
 
 def arc_limitations(obstacles: ObstacleField, model: LineModel) -> str | None:
@@ -2407,7 +2591,7 @@ def _pow2_at_least(n: int) -> int:
 
 
 class _Run:
-    """The work arrays of one construction, in the order of the ``W_*`` tuple slots."""
+    """The work arrays of one construction (the ``W_*`` tuple slots)."""
 
     def __init__(self, obstacles: ObstacleField, model: LineModel, protocol: Protocol,
                  y0: float, capacity: int, snapshot_every: int):
@@ -2419,36 +2603,42 @@ class _Run:
         ancx = max(1, int(Lx / size))
         ancy = _pow2_at_least(max(1, int(Ly / size)))
         C = capacity
-        self.W = [None] * 33
-        W = self.W
-        W[W_PF] = np.zeros((N_PF, C))
-        W[W_PI] = np.zeros((N_PI, C), np.int64)
-        W[W_PI][PPREV:PNEXT + 1] = -1
-        W[W_PI][PLNK] = np.append(np.arange(1, C), -1)
+        W = self.W = [None] * N_W
+        W[W_FP] = np.zeros((N_FP, C))
+        ip = np.zeros((N_IP, C), np.int64)
+        ip[PPREV:PNEXT + 1] = -1
+        ip[PLNK] = np.append(np.arange(1, C), -1)
+        ip[ITS] = -1
+        W[W_IP] = ip
         W[W_EK] = np.full(2 * C, np.inf)
-        W[W_EP] = np.zeros((N_EP, 2 * C), np.int64)
-        W[W_HP] = np.full((2, 2 * C), -1, np.int64)
+        eh = np.zeros((N_EH, 2 * C), np.int64)
+        eh[EHP:] = -1
+        W[W_EH] = eh
         W[W_OB] = np.ascontiguousarray(np.vstack([
-            np.asarray(obstacles.x, float).reshape(1, -1), np.asarray(obstacles.y, float).reshape(1, -1),
-            critical_angles(obstacles, model.tension).reshape(1, -1)]))
-        W[W_OI] = np.zeros((6, m), np.int64)
-        W[W_CS], W[W_CI] = cstart.astype(np.int64), citems.astype(np.int64)
-        W[W_AH] = np.full(ancx * ancy, -1, np.int64)
-        W[W_AP] = np.zeros((3, max(4 * ancx * ancy, POOL_PER_PIN * C)), np.int64)
-        W[W_GP] = np.zeros((6, C))
-        W[W_LS] = np.zeros((6, C + 8))
-        W[W_LSK] = np.zeros(C + 8, np.int64)
-        W[W_LR] = np.zeros((6, 4 * C))
-        W[W_LRK] = np.zeros(4 * C, np.int64)
+            np.asarray(obstacles.x, float), np.asarray(obstacles.y, float),
+            critical_angles(obstacles, model.tension)]).reshape(3, m))
+        W[W_OJ] = np.zeros((N_OJ, m), np.int64)
+        W[W_CSI] = np.concatenate([cstart, citems]).astype(np.int64)
+        ag = np.full((3, ancx * ancy), -1, np.int64)
+        W[W_AG] = ag
+        W[W_AP] = np.zeros((3, max(2 * ancx * ancy, POOL_PER_PIN * C)), np.int64)
+        W[W_GE] = np.zeros((3, GAP_POOL_PER_ARC * C), np.int64)
+        W[W_LS] = np.zeros((N_LA, C + 8))
+        W[W_LR] = np.zeros((N_LA, 4 * C))
         W[W_LO] = np.zeros(4 * C + 1, np.int64)
-        W[W_JI] = np.zeros((5, C), np.int64)
-        W[W_JF] = np.zeros(C)
         W[W_HR] = np.zeros((N_HR, HISTORY_CHUNK))
-        W[W_SF] = np.zeros(N_SF)
-        W[W_SF][[F_BX0, F_BY0]] = np.inf
-        W[W_SF][[F_BX1, F_BY1]] = -np.inf
-        W[W_SF][F_YTOP] = -np.inf
-        si = np.zeros(N_SI, np.int64)
+        fs = np.zeros(N_FS)
+        fs[[F_BX0, F_BY0]] = np.inf
+        fs[[F_BX1, F_BY1, F_YTOP]] = -np.inf
+        pr = fs[FPR:FPR + N_PR]
+        pr[R_LX], pr[R_LY] = Lx, Ly
+        pr[R_FLOW] = protocol.flow_distance
+        pr[R_SMAX] = (protocol.max_stress - model.friction) / (2.0 * model.tension)
+        pr[R_OCWX], pr[R_OCWY] = Lx / ncx, Ly / ncy
+        pr[R_ACW], pr[R_ACH] = Lx / ancx, size
+        pr[R_H] = model.node_spacing
+        W[W_FS] = fs
+        si = np.zeros(N_IS, np.int64)
         si[I_FREE], si[I_NFREE], si[I_DEFER], si[I_EPOCH] = 0, C, -1, 1
         si[I_UNRES], si[I_LASTPIN], si[I_ANCHOR] = -1, -1, -1
         si[I_NCX], si[I_NCY], si[I_ANCX], si[I_ANCY] = ncx, ncy, ancx, ancy
@@ -2456,29 +2646,11 @@ class _Run:
         si[I_NEXTSNAP] = si[I_SNAPEVERY]
         heights = 1 + int(np.ceil(protocol.flow_distance / Ly))
         si[I_MAXEV] = EVENTS_PER_OBSTACLE * (m + 16) * heights
-        W[W_SI] = si
-        pr = np.zeros(N_PR)
-        pr[R_LX], pr[R_LY] = Lx, Ly
-        pr[R_FLOW] = protocol.flow_distance
-        pr[R_SMAX] = (protocol.max_stress - model.friction) / (2.0 * model.tension)
-        pr[R_OCWX], pr[R_OCWY] = Lx / ncx, Ly / ncy
-        pr[R_ACW], pr[R_ACH] = Lx / ancx, size
-        pr[R_H] = model.node_spacing
-        W[W_PR] = pr
-        W[W_TL] = np.zeros(C, np.int64)
-        W[W_ST] = np.zeros(C, np.int64)
-        W[W_QB] = np.zeros(C, np.int64)
-        W[W_RI] = np.zeros(4, np.int64)
-        W[W_RF] = np.zeros(6)
-        W[W_CB] = np.zeros(6)
-        W[W_CBI] = np.zeros(4, np.int64)
-        W[W_EX] = np.zeros((4, MAX_EXCLUDED), np.int64)
-        W[W_TS] = np.full(C, -1, np.int64)
-        W[W_JO] = np.zeros((3, m + 1), np.int64)
+        W[W_IS] = si
 
     @property
     def capacity(self) -> int:
-        return self.W[W_PF].shape[1]
+        return self.W[W_FP].shape[1]
 
     def tuple(self):
         return tuple(self.W)
@@ -2487,7 +2659,7 @@ class _Run:
         """Double the pin capacity (and what is sized by it) keeping the state; grow the arc pool
         and the loop record when they run short."""
         W, C = self.W, self.capacity
-        si = W[W_SI]
+        si = W[W_IS]
 
         def wider(a, fill, n):
             out = np.full(a.shape[:-1] + (n,), fill, dtype=a.dtype)
@@ -2496,34 +2668,27 @@ class _Run:
 
         if si[I_NFREE] < si[I_NPINS] + 64 + C // 4:
             C2 = 2 * C
-            W[W_PF] = wider(W[W_PF], 0.0, C2)
-            pi = wider(W[W_PI], 0, C2)
-            pi[PPREV:PNEXT + 1, C:] = -1
-            pi[PLNK, C:] = np.append(np.arange(C + 1, C2), si[I_FREE])
-            W[W_PI] = pi
+            W[W_FP] = wider(W[W_FP], 0.0, C2)
+            ip = wider(W[W_IP], 0, C2)
+            ip[PPREV:PNEXT + 1, C:] = -1
+            ip[PLNK, C:] = np.append(np.arange(C + 1, C2), si[I_FREE])
+            ip[ITS, C:] = -1
+            W[W_IP] = ip
             si[I_FREE] = C
             si[I_NFREE] += C
             W[W_EK] = wider(W[W_EK], np.inf, 2 * C2)
-            W[W_EP] = wider(W[W_EP], 0, 2 * C2)
-            W[W_HP] = wider(W[W_HP], -1, 2 * C2)
-            for slot, fill, n in ((W_GP, 0.0, C2), (W_LS, 0.0, C2 + 8), (W_LSK, 0, C2 + 8),
-                                  (W_JI, 0, C2), (W_JF, 0.0, C2), (W_TL, 0, C2), (W_TS, -1, C2),
-                                  (W_ST, 0, C2), (W_QB, 0, C2)):
-                W[slot] = wider(W[slot], fill, n)
+            eh = wider(W[W_EH], 0, 2 * C2)
+            eh[EHP:, 2 * C:] = -1
+            W[W_EH] = eh
+            W[W_LS] = wider(W[W_LS], 0.0, C2 + 8)
+            W[W_GE] = wider(W[W_GE], 0, GAP_POOL_PER_ARC * C2)
         if si[I_APN] > W[W_AP].shape[1] // 4:
             W[W_AP] = wider(W[W_AP], 0, 2 * W[W_AP].shape[1])
         if si[I_NLARC] + 2 * self.capacity > W[W_LR].shape[1] or \
                 si[I_NLOOP] + self.capacity > W[W_LO].shape[0] - 2:
             n = 2 * W[W_LR].shape[1] + 2 * self.capacity
             W[W_LR] = wider(W[W_LR], 0.0, n)
-            W[W_LRK] = wider(W[W_LRK], 0, n)
             W[W_LO] = wider(W[W_LO], 0, n + 1)
-
-    def needs_room(self) -> bool:
-        W, si = self.W, self.W[W_SI]
-        return (si[I_NFREE] < si[I_NPINS] + 64 or si[I_APN] > W[W_AP].shape[1] // 2
-                or si[I_NLARC] + self.capacity > W[W_LR].shape[1]
-                or si[I_NLOOP] + self.capacity > W[W_LO].shape[0] - 2)
 
 
 def _sample_arc(px, py, qx, qy, R, h):
@@ -2543,8 +2708,8 @@ def _sample_arc(px, py, qx, qy, R, h):
 
 def _pins_in_order(W) -> list[tuple[int, float, float]]:
     """The line's pins from the anchor, one period: (slot, x, y) with x unwrapped."""
-    PF, PI, SI = W[W_PF], W[W_PI], W[W_SI]
-    Lx = W[W_PR][R_LX]
+    PF, PI, SI = W[W_FP], W[W_IP], W[W_IS]
+    Lx = W[W_FS][FPR:][R_LX]
     i = int(SI[I_ANCHOR])
     if i < 0:
         return []
@@ -2561,7 +2726,7 @@ def _pins_in_order(W) -> list[tuple[int, float, float]]:
 def _line_state(run: _Run, s: float, y_free: float | None = None) -> LineState:
     """The configuration at stress s sampled along its arcs (pins marked), with its loops."""
     W = run.W
-    Lx, h = float(W[W_PR][R_LX]), run.model.node_spacing
+    Lx, h = float(W[W_FS][FPR:][R_LX]), run.model.node_spacing
     R = np.inf if s <= 0.0 else 0.5 / s
     pins = _pins_in_order(W)
     xs, ys, ps = [], [], []
@@ -2573,15 +2738,15 @@ def _line_state(run: _Run, s: float, y_free: float | None = None) -> LineState:
             pins[0][1] + Lx, pins[0][2])
         px_, py_ = _sample_arc(x, y, nx_, ny_, R, h)
         pin = np.full(px_.shape[0], -1, np.int64)
-        pin[0] = W[W_PI][PK, i]
+        pin[0] = W[W_IP][PK, i]
         xs.append(px_)
         ys.append(py_)
         ps.append(pin)
     x, y, pin = np.concatenate(xs), np.concatenate(ys), np.concatenate(ps).astype(np.int64)
-    lx, ly, lp, off = _loop_nodes(W, int(W[W_SI][I_LOOPSPIN]), R, h)
+    lx, ly, lp, off = _loop_nodes(W, int(W[W_IS][I_LOOPSPIN]), R, h)
     meta = np.zeros(K.N_META, np.int64)
     meta[K.M_N], meta[K.M_NLOOPS], meta[K.M_NLOOPNODES] = x.shape[0], off.shape[0] - 1, lx.shape[0]
-    si = W[W_SI]
+    si = W[W_IS]
     meta[K.M_STEPS] = si[I_EVENTS]
     meta[K.M_RELEASES], meta[K.M_CAPTURES] = si[I_REL] + si[I_BYP], si[I_CAPT]
     meta[K.M_RECONNECT] = si[I_LOOPS]
@@ -2597,32 +2762,28 @@ def _line_state(run: _Run, s: float, y_free: float | None = None) -> LineState:
 
 def _loop_nodes(W, nloops: int, R: float, h: float):
     """The first nloops recorded loops sampled along their arcs (CSR: x, y, pin, offsets)."""
-    LR, LRK, LO = W[W_LR], W[W_LRK], W[W_LO]
-    xs, ys, ps, off = [], [], [], [0]
-    for k in range(nloops):
-        for a in range(LO[k], LO[k + 1]):
-            cx, cy, x0, y0, x1, y1 = LR[:, a]
-            if x0 == x1 and y0 == y1:
-                px_, py_ = np.array([x0]), np.array([y0])
-            else:
-                c = math.hypot(x1 - x0, y1 - y0)
-                a0 = math.atan2(y0 - cy, x0 - cx)
-                sweep = _cw_angle(x0 - cx, y0 - cy, x1 - cx, y1 - cy)
-                n = max(1, int(math.ceil(R * sweep / h))) if np.isfinite(R) else 1
-                ang = a0 - sweep * np.arange(n) / n
-                px_, py_ = cx + R * np.cos(ang), cy + R * np.sin(ang)
-                if not np.isfinite(R) or c == 0.0:
-                    px_, py_ = np.array([x0]), np.array([y0])
-            pin = np.full(px_.shape[0], -1, np.int64)
-            pin[0] = LRK[a]
-            xs.append(px_)
-            ys.append(py_)
-            ps.append(pin)
-        off.append(sum(p.shape[0] for p in xs))
-    if not xs:
+    LR, LRK, LO = W[W_LR], W[W_LR][LSK], W[W_LO]
+    na = int(LO[nloops]) if nloops > 0 else 0
+    if na == 0:
         return np.zeros(0), np.zeros(0), np.zeros(0, np.int64), np.zeros(1, np.int64)
-    return (np.concatenate(xs), np.concatenate(ys), np.concatenate(ps),
-            np.asarray(off, np.int64))
+    cx, cy, x0, y0, x1, y1 = LR[:6, :na]
+    point = (x0 == x1) & (y0 == y1)
+    a0 = np.arctan2(y0 - cy, x0 - cx)
+    sweep = np.mod(a0 - np.arctan2(y1 - cy, x1 - cx), 2.0 * np.pi)    # clockwise
+    sweep[point] = 0.0
+    n = np.ones(na, np.int64) if not np.isfinite(R) else np.maximum(
+        1, np.ceil(R * sweep / h).astype(np.int64))
+    n[point] = 1
+    arc = np.repeat(np.arange(na), n)
+    first = np.cumsum(n) - n
+    t = (np.arange(arc.shape[0]) - first[arc]) / n[arc]
+    ang = a0[arc] - sweep[arc] * t
+    lx = np.where(point[arc], x0[arc], cx[arc] + R * np.cos(ang))
+    ly = np.where(point[arc], y0[arc], cy[arc] + R * np.sin(ang))
+    lp = np.full(arc.shape[0], -1, np.int64)
+    lp[first] = LRK[:na]
+    off = np.concatenate([[0], np.cumsum(n)])[LO[: nloops + 1]]
+    return lx, ly, lp, off.astype(np.int64)
 
 
 def _cw_angle(ux, uy, vx, vy) -> float:
@@ -2632,14 +2793,18 @@ def _cw_angle(ux, uy, vx, vy) -> float:
 
 
 def _counters(W) -> dict:
-    si = W[W_SI]
+    si = W[W_IS]
     return {"captures": int(si[I_CAPT]), "releases": int(si[I_REL]),
             "bypasses": int(si[I_BYP]), "loops": int(si[I_LOOPS]),
             "reconnections": int(si[I_LOOPS]), "free_glides": int(si[I_TRANSL]),
             "events": int(si[I_EVENTS]), "loops_not_recorded": int(si[I_LTRUNC]),
             "diag_behind_in_lens": int(si[I_DBEHIND]), "diag_skipped_hits": int(si[I_DINVALID]),
             "diag_loops_without_gap": int(si[I_DXMISS]), "diag_tall_line": int(si[I_DFOLD]),
-            "carried_over": int(si[I_SWEPT])}
+            "carried_over": int(si[I_SWEPT]),
+            "work_lens": int(si[I_WLENS]), "work_roll": int(si[I_WSCAN]),
+            "work_swept": int(si[I_WFLAG]), "work_glide": int(si[I_WTRANS]),
+            "work_arc_entries": int(si[I_WARCS]), "work_pairs": int(si[I_WPAIRS]),
+            "largest_gap": int(si[I_MAXGAP]), "largest_loop": int(si[I_MAXLOOP])}
 
 
 @dataclass
@@ -2666,12 +2831,12 @@ def run_arcs(obstacles: ObstacleField, model: LineModel, protocol: Protocol, y0:
     while True:
         run = _Run(obstacles, model, protocol, y0, capacity, snapshot_every)
         rows = []
-        if _init(run.tuple(), float(y0)) == 0:
+        if _init(run, float(y0)) == 0:
             return ArcRun("flowing", 0.0, 0.0, rows, run)
         while True:
             status = advance(run.tuple())
             if status in (S_HIST, S_FLOW, S_GIVEUP, S_MAXEV):
-                si = run.W[W_SI]
+                si = run.W[W_IS]
                 for r in range(int(si[I_NHIST])):
                     rows.append(run.W[W_HR][:, r].copy())
                     if on_row is not None:
@@ -2681,14 +2846,14 @@ def run_arcs(obstacles: ObstacleField, model: LineModel, protocol: Protocol, y0:
                 run.grow()
             elif status == S_SNAP:
                 if on_snapshot is not None:
-                    s = float(run.W[W_SF][F_S])
+                    s = float(run.W[W_FS][F_S])
                     on_snapshot(_line_state(run, s), 2.0 * model.tension * s + model.friction,
-                                int(run.W[W_SI][I_EVENTS]))
+                                int(run.W[W_IS][I_EVENTS]))
             elif status != S_HIST:
                 break
         if status != S_FATAL:
-            return ArcRun(STATUS_NAMES[status], float(run.W[W_SF][F_S]),
-                          float(run.W[W_SF][F_SLO]), rows, run)
+            return ArcRun(STATUS_NAMES[status], float(run.W[W_FS][F_S]),
+                          float(run.W[W_FS][F_SLO]), rows, run)
         capacity *= 4
 
 
@@ -2756,12 +2921,12 @@ def find_crss_arcs(obstacles: ObstacleField, model: LineModel, protocol: Protoco
     lo = 2.0 * gamma * out.s_lo + tf
     state = _line_state(out.run, out.s, y_free=y0)
     if on_snapshot is not None:
-        on_snapshot(state, tau, int(W[W_SI][I_EVENTS]))
+        on_snapshot(state, tau, int(W[W_IS][I_EVENTS]))
     name = "exact quasi-static arc construction"
     if out.status == "flowing":
         msg = (f"{name}: flowed at the event stress hi (pinned at every lower stress); lo is "
                "where the last pinned configuration was established")
         return CrssResult(tau, lo, tau, True, msg, history, state, _counters(W))
     msg = (f"{name}: no flow up to {protocol.max_stress:.4g} G" if out.status == "no flow" else
-           f"{name}: stopped at the event limit ({int(W[W_SI][I_MAXEV])} events)")
+           f"{name}: stopped at the event limit ({int(W[W_IS][I_MAXEV])} events)")
     return CrssResult(np.nan, lo, np.nan, False, msg, history, state, _counters(W))
