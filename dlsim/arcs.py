@@ -2143,6 +2143,7 @@ def _run_roll(W, s, R, free):
         r = _roll(W)
     W[W_IS][I_UNRES] = -1
     if r == ROLL_DONE:
+        _gap_clear(W)                   # the line is whole again: no gap in the glide estimate
         _flag_swept(W, R)
     SF[F_BX0], SF[F_BY0], SF[F_BX1], SF[F_BY1] = np.inf, np.inf, -np.inf, -np.inf
     return r
