@@ -1267,10 +1267,12 @@ def _gap_trim(W, g, xx, xy, R):
 
 
 @njit(**JIT)
-def _gap_lead(W, ocx, ocy, fx, fy, R):
+def _gap_lead(W, ocx, ocy, fx, fy, R, at_f):
     """The line now follows the circle about O from F until it meets the old line (the gap): that
-    piece replaces the part of the gap it has passed.  False (gap unchanged) if it meets none."""
-    g, xx, xy = _gap_cross(W, ocx, ocy, fx, fy, R)
+    piece replaces the part of the gap it has passed.  False (gap unchanged) if it meets none.
+    ``at_f``: F itself counts if the gap passes through it (not so for the pivot, through which
+    every rolling circle passes)."""
+    g, xx, xy = _gap_cross(W, ocx, ocy, fx, fy, R, at_f)
     if g < 0:
         return False
     _gap_trim(W, g, xx, xy, R)
@@ -1314,14 +1316,26 @@ def _crosses_gap(W, ocx, ocy, px, py, zx, zy, R):
 
 
 @njit(**JIT)
-def _gap_cross(W, ocx, ocy, zx, zy, R):
+def _gap_cross(W, ocx, ocy, zx, zy, R, at_z):
     """First point after Z (clockwise about O) where the circle meets the gap: (logical index of
-    the gap arc, x, y), index -1 if it meets none."""
+    the gap arc, x, y), index -1 if it meets none.  With ``at_z``, Z itself counts when the gap
+    passes through it (the old line runs on from there: a hit on the old line, in ties)."""
     GP, QB = W[W_FP][FG:], W[W_IP][IQB]
     tol = POINT_TIE * R
     ux, uy = zx - ocx, zy - ocy
     best, bg, bx_, by_ = np.inf, -1, 0.0, 0.0
-    for q in range(_gap_near(W, ocx, ocy, R)):
+    nq = _gap_near(W, ocx, ocy, R)
+    if at_z:
+        for q in range(nq):
+            a = QB[q]
+            g = _gcol(W, a)
+            if (abs(_dist(zx, zy, GP[0, g], GP[1, g]) - R) < tol and (bg < 0 or a < bg)
+                    and _on_arc(GP[0, g], GP[1, g], GP[2, g], GP[3, g], GP[4, g], GP[5, g],
+                                zx, zy)):
+                bg = a
+        if bg >= 0:
+            return bg, zx, zy
+    for q in range(nq):
         a = QB[q]
         g = _gcol(W, a)
         nc, ax, ay, bx, by = _circle_cuts(ocx, ocy, GP[0, g], GP[1, g], R)
@@ -1342,7 +1356,7 @@ def _loop_gap_part(W, n, ocx, ocy, zx, zy, R):
     """Append to the loop the rolling circle from Z to where it meets the gap, and the gap from
     there to its end (the part of the old line the loop takes with it)."""
     GP = W[W_FP][FG:]
-    g, xx, xy = _gap_cross(W, ocx, ocy, zx, zy, R)
+    g, xx, xy = _gap_cross(W, ocx, ocy, zx, zy, R, np.int64(1))
     if g < 0:
         W[W_IS][I_DXMISS] += 1
         return n
@@ -1601,7 +1615,7 @@ def _hit_obstacle(W, k, ix, iy, ocx, ocy, theta, s, R):
     _link(W, P, q, ix - mP)
     _link(W, q, N, mN - ix)
     SI[I_UNRES] = q
-    if not _gap_lead(W, ocx, ocy, qx, qy, R):
+    if not _gap_lead(W, ocx, ocy, qx, qy, R, np.int64(1)):
         SI[I_DXMISS] += 1
     if not _register(W, P):
         W[W_IS][I_WHY] = 1468
@@ -1692,7 +1706,7 @@ def _pivot_release(W, s, R):
     th = max(0.0, RF[RPHI0] - W[W_OB][2, PI[PK, P]])
     v0x, v0y = RF[RCX] - px, RF[RCY] - py
     ct, st = math.cos(th), math.sin(th)
-    _gap_lead(W, px + ct * v0x - st * v0y, py + st * v0x + ct * v0y, px, py, R)
+    _gap_lead(W, px + ct * v0x - st * v0y, py + st * v0x + ct * v0y, px, py, R, np.int64(0))
     if SI[I_NPINS] == 1:
         _drop(W, P)
         SI[I_UNRES] = -1
@@ -1752,7 +1766,7 @@ def _hit_pin(W, D, ix, ocx, ocy, theta, s, R):
         if D == N:
             RF[RPHIN] = phid
         _drop_chain(W, PI[PNEXT, D], P)
-        _gap_lead(W, ocx, ocy, dx, dy, R)
+        _gap_lead(W, ocx, ocy, dx, dy, R, np.int64(1))
         _link(W, D, N, mN - ix)
         SI[I_UNRES] = D
         _touch(W, D)
@@ -1801,7 +1815,7 @@ def _hit_arc(W, j, m, ocx, ocy, zx, zy, theta, s, R):
     W[W_FS][F_DA] -= area + ie
     _loop_finish(W, n, R)
     phi0 = RF[RPHIN] if j == N else _pin_phi(W, j, s)
-    _gap_lead(W, ocx, ocy, zx, zy, R)
+    _gap_lead(W, ocx, ocy, zx, zy, R, np.int64(1))
     if not _gap_put(W, np.int64(1), ecx, ecy, e1x, e1y, zx, zy, R):
         W[W_IS][I_WHY] = 1663
         return S_FATAL

@@ -400,9 +400,14 @@ class NaiveArcs:
                 return True
         return False
 
-    def gap_cross(self, c, f, R):
-        """First meeting, clockwise after F about c, of the circle with the gap: (g, point)."""
+    def gap_cross(self, c, f, R, at_f=True):
+        """First meeting, clockwise after F about c, of the circle with the gap: (g, point); F
+        itself when ``at_f`` and the gap passes through F."""
         tol = POINT_TIE * R
+        if at_f:
+            for g, (gc, a, b) in enumerate(self.gap):
+                if abs(math.dist(f, gc) - R) < tol and on_arc(gc, a, b, f):
+                    return g, f
         u = (f[0] - c[0], f[1] - c[1])
         best = (math.inf, -1, None)
         for g, i in self.gap_crossings(c, R):
@@ -413,8 +418,8 @@ class NaiveArcs:
                 best = (a, g, i)
         return best[1], best[2]
 
-    def gap_lead(self, c, f, R):
-        g, x = self.gap_cross(c, f, R)
+    def gap_lead(self, c, f, R, at_f=True):
+        g, x = self.gap_cross(c, f, R, at_f)
         if g < 0:
             return False
         gc, _, b = self.gap[g]
@@ -620,7 +625,7 @@ class NaiveArcs:
         th = max(0.0, self.phi0 - self.phic[self.line[0].k])
         v0 = (self.c0[0] - p[0], self.c0[1] - p[1])
         ct, st = math.cos(th), math.sin(th)
-        self.gap_lead((p[0] + ct * v0[0] - st * v0[1], p[1] + st * v0[0] + ct * v0[1]), p, R)
+        self.gap_lead((p[0] + ct * v0[0] - st * v0[1], p[1] + st * v0[0] + ct * v0[1]), p, R, False)
         self.leave(self.line[0])
         if n == 1:
             self.line = []
