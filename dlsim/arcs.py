@@ -1,4 +1,4 @@
-"""Exact quasi-static arc construction for point obstacles (Foreman & Makin, Phil. Mag. 14, 911, 1966).
+"""Exact quasi-static arc construction for point obstacles (Foreman & Makin, Phil. Mag. 14, 1966).
 
 Under a constant line tension Γ and a uniform resolved shear stress τ, every free segment of the
 line between two pinning points is a circular arc of radius R = Γ/(τ b) (the line-tension relation;
@@ -602,7 +602,8 @@ def _compact(W):
 
 @njit(**JIT)
 def _gather_arcs(W, x0, x1, y0, y1):
-    """Slots of the arcs on the line whose cells meet the box (each once) into the IQB row of W_IP; their count."""
+    """Slots of the arcs on the line whose cells meet the box (each once), into the IQB row of
+    W_IP; their count."""
     AH, AP, SI, PR, PI = W[W_AG][0], W[W_AP], W[W_IS], W[W_FS][FPR:], W[W_IP]
     ST, QB = W[W_IP][IST], W[W_IP][IQB]
     SI[I_STAMP] += 1
@@ -826,7 +827,7 @@ def tangency(pax, pay, nax, nay, pbx, pby, nbx, nby, s0, s1):
 
 @njit(**JIT)
 def _sweep_stress(px, py, qx, qy, x, y, s):
-    """Stress at which the arc P→Q passes the point X (inf when X is not in its half disc ahead)."""
+    """Stress at which the arc P→Q passes the point X (inf unless X is in its half disc ahead)."""
     dx, dy = qx - px, qy - py
     c = math.sqrt(dx * dx + dy * dy)
     mx, my = 0.5 * (px + qx), 0.5 * (py + qy)
@@ -1181,7 +1182,8 @@ def _gap_enter(W, col, R):
 def _gap_near(W, cx, cy, R):
     """Logical indices of the gap arcs whose circle may meet the circle of radius R about (cx, cy),
     each once, into the IQB row of W_IP; their count."""
-    GH, GE, SI, PR, GV, QB, ST = W[W_AG][1:], W[W_GE], W[W_IS], W[W_FS][FPR:], W[W_IP][IGV], W[W_IP][IQB], W[W_IP][IST]
+    GH, GE, SI, PR = W[W_AG][1:], W[W_GE], W[W_IS], W[W_FS][FPR:]
+    GV, QB, ST = W[W_IP][IGV], W[W_IP][IQB], W[W_IP][IST]
     n = SI[I_NGAP]
     G = W[W_FP][FG:].shape[1]
     head = SI[I_GHEAD]
@@ -1425,7 +1427,8 @@ def _scan(W, R):
     from outside (centre at 2R from the arc's centre: the intersection of two circles).  The
     best goes to the candidate buffers; returns its kind (CK_NONE: the pivot is released first).
     """
-    PF, PI, SI, PR, OB, CS, CI = W[W_FP], W[W_IP], W[W_IS], W[W_FS][FPR:], W[W_OB], W[W_CSI], _citems(W)
+    PF, PI, SI, PR, OB = W[W_FP], W[W_IP], W[W_IS], W[W_FS][FPR:], W[W_OB]
+    CS, CI = W[W_CSI], _citems(W)
     RI, RF, CB, CBI = W[W_IS][IRI:], W[W_FS][FRF:], W[W_FS][FCB:], W[W_IS][ICBI:]
     Lx, Ly = PR[R_LX], PR[R_LY]
     P, mP, N, mN = RI[RP], RI[RMP], RI[RN], RI[RMN]
@@ -1528,7 +1531,8 @@ def _scan_arcs(W, R, px, py, v0x, v0y, pmax):
                 if _cw_p(px - ox, py - oy, zx - ox, zy - oy) > 2.0 + POINT_TIE:
                     continue
                 d2 = (zx - px) * (zx - px) + (zy - py) * (zy - py)
-                if _better(p, d2, np.int64(CK_ARC), j, m, np.int64(0), CB, CBI) and not _excluded(W, np.int64(CK_ARC), j, m, np.int64(0)):
+                ck, zero = np.int64(CK_ARC), np.int64(0)
+                if _better(p, d2, ck, j, m, zero, CB, CBI) and not _excluded(W, ck, j, m, zero):
                     _take(CB, CBI, p, d2, ox, oy, zx, zy, np.int64(CK_ARC), j, m, np.int64(0))
 
 

@@ -258,7 +258,8 @@ class NaiveArcs:
     one period on), every search by brute force.  ``run()`` returns (status, s, pins)."""
 
     def __init__(self, x, y, phic, Lx, Ly, flow, s_max, y0=0.0, max_events=200000):
-        self.ox, self.oy, self.phic = list(map(float, x)), list(map(float, y)), list(map(float, phic))
+        self.ox, self.oy = list(map(float, x)), list(map(float, y))
+        self.phic = list(map(float, phic))
         self.Lx, self.Ly, self.flow, self.s_max, self.y0 = Lx, Ly, flow, s_max, y0
         self.max_events = max_events
         self.iy0 = [int(math.ceil((y0 - yy) / Ly)) for yy in self.oy]
@@ -353,7 +354,7 @@ class NaiveArcs:
                 st, z = self.tangency(p, q, p2, q2, s, smax)
                 if st < cand[0]:
                     cand = (st, "tangent", (i, b, z))
-                for sweeper, target_arc, end in ((i, b, b), (i, b, b + 1), (b, i, i), (b, i, i + 1)):
+                for sweeper, end in ((i, b), (i, b + 1), (b, i), (b, i + 1)):
                     a0, a1 = self.xy(sweeper), self.xy(sweeper + 1)
                     e = self.xy(end)
                     if not in_half_disc(a0, a1, e):
@@ -427,7 +428,7 @@ class NaiveArcs:
         return True
 
     def loop_from(self, arcs):
-        """A loop (list of arcs centre, start, end) was cut off: free obstacles inside are behind."""
+        """A loop (arcs: centre, start, end) was cut off: free obstacles inside are behind."""
         self.loops.append(arcs)
         if len(arcs) < 2:
             return
@@ -528,7 +529,8 @@ class NaiveArcs:
                 z = (0.5 * (o[0] + ec[0]), 0.5 * (o[1] + ec[1]))
                 if not on_arc(ec, e0, e1, z):
                     continue
-                if cw_angle((p[0] - o[0], p[1] - o[1]), (z[0] - o[0], z[1] - o[1])) > math.pi + 1e-9:
+                if cw_angle((p[0] - o[0], p[1] - o[1]),
+                            (z[0] - o[0], z[1] - o[1])) > math.pi + 1e-9:
                     continue
                 th = rot(o)
                 if th <= thmax + ANGLE_TIE:
@@ -544,7 +546,8 @@ class NaiveArcs:
             self.phiN = phi
             return
         cl = math.dist(self.xy(-1), self.xy(0))
-        self.line[0].alpha = phi + math.asin(min(1, cl * self.s)) + math.asin(min(1, c_new * self.s))
+        self.line[0].alpha = (phi + math.asin(min(1, cl * self.s))
+                              + math.asin(min(1, c_new * self.s)))
 
     def left_tangent(self, j):
         p, a = self.xy(j), self.xy(j - 1)
@@ -832,8 +835,7 @@ class NaiveArcs:
         s = self.s
         p, q = self.xy(i), self.xy(i + 1)
         x = (self.ox[k] + ix * self.Lx, self.oy[k] + iy * self.Ly)
-        apn, apq, aqn = (math.asin(min(1, math.dist(p, q) * s)), math.asin(min(1, math.dist(p, x) * s)),
-                         math.asin(min(1, math.dist(x, q) * s)))
+        apn, apq, aqn = (math.asin(min(1, math.dist(a, b) * s)) for a, b in ((p, q), (p, x), (x, q)))
         pi_, _ = self.at(i)
         pj, _ = self.at(i + 1)
         pi_.alpha += apq - apn
@@ -874,7 +876,10 @@ class NaiveArcs:
         p, q = self.xy(i), self.xy(i + 1)
         c = arc_center(p, q, R)
         phi0 = self.pin_phi(i, s)
-        un, phin = ((0.0, 0.0), phi0) if n == 1 else (self.left_tangent(i + 1), self.pin_phi(i + 1, s))
+        if n == 1:
+            un, phin = (0.0, 0.0), phi0
+        else:
+            un, phin = self.left_tangent(i + 1), self.pin_phi(i + 1, s)
         self.rotate_to(i)
         return self.start_roll([(c, p, q)], c, phi0, un, phin)
 
@@ -943,7 +948,8 @@ class NaiveArcs:
         Ly = self.Ly
         ys = [self.oy[k] + self.iy0[k] * Ly for k in range(len(self.ox))]
         tol = POINT_TIE * max(self.Lx, Ly)
-        sel = sorted((k for k in range(len(ys)) if ys[k] <= min(ys) + tol), key=lambda k: self.ox[k])
+        low = [k for k in range(len(ys)) if ys[k] <= min(ys) + tol]
+        sel = sorted(low, key=lambda k: self.ox[k])
         self.line = [Pin(k, self.iy0[k], 0) for k in sel]
         for j in range(len(self.line)):
             a, p, b = self.xy(j - 1), self.xy(j), self.xy(j + 1)
