@@ -2585,14 +2585,17 @@ GAP_INDEX_MIN = 24
 def arc_limitations(obstacles: ObstacleField, model: LineModel) -> str | None:
     """None when the exact arc construction applies to this field and line model, else why not.
 
-    It needs point obstacles (every radius 0: finite particles are rings of points whose arcs the
-    construction does not resolve) and a constant line tension (the arcs are circles only then).
+    It needs point obstacles (no impenetrable disc: finite discs are rings of points whose arcs
+    the construction does not resolve; a shearable particle is a point obstacle at its centre
+    whatever the section radius it records for plots) and a constant line tension (the arcs are
+    circles only then).
     """
     if model.elasticity.model != "constant":
         return (f"the arc construction needs a constant line tension, not the "
                 f"{model.elasticity.model!r} line model")
-    if obstacles.n and np.any(np.asarray(obstacles.radius) != 0.0):
-        return "the arc construction needs point obstacles (radius 0); this field has discs"
+    discs = np.isinf(np.asarray(obstacles.fc)) & (np.asarray(obstacles.radius) > 0.0)
+    if obstacles.n and np.any(discs):
+        return "the arc construction needs point obstacles; this field has impenetrable discs"
     return None
 
 

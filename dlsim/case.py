@@ -304,7 +304,8 @@ SCHEMA: dict[str, Section] = {
     "output": Section("result files", {
         "folder": Key(str, "the output folder relative to the case file (default: runs/<stem>)",
                       None, NON_EMPTY),
-        "snapshot_every": Key(int, "the time steps between line snapshots for movies (0: none)", 0,
+        "snapshot_every": Key(int, "the time steps (nodal) or events (arcs) between line "
+                                        "snapshots for movies (0: none)", 0,
                               int_range(0, MAX_SNAPSHOT_EVERY)),
     }),
 }

@@ -14,7 +14,8 @@ from dlsim.errors import DlsimError
 from dlsim.movie import MOVIE_DPI, MOVIE_SIZE_IN, make_movie, scale_bar_length, thin_frames
 from test_sweep import TINY_CASE
 
-MOVIE_CASE = TINY_CASE + "[output]\nsnapshot_every = 1000\n"  # time steps: about 40 frames
+# the nodal line's time steps: about 40 frames
+MOVIE_CASE = TINY_CASE + '[solver]\nmethod = "nodal"\n[output]\nsnapshot_every = 1000\n'
 
 
 @pytest.fixture(scope="module")

@@ -28,6 +28,7 @@ SQUARE_CASE = {
     "line": {"length": 2, "height": 1, "node_spacing": 0.05},
     "obstacles": {"kind": "square", "spacing_nm": 40.0, "critical_angle_deg": 0.0},
     "loading": {"stress_step": 0.02, "tolerance": 1e-4, "bisections": 8},
+    "solver": {"method": "nodal"},       # these tests validate the nodal line
 }
 
 
@@ -118,6 +119,7 @@ RANDOM_CASE = {
     "line": {"length": 10, "node_spacing": 0.2},
     "obstacles": {"kind": "random", "spacing_nm": 50.0, "critical_angle_deg": 0.0},
     "loading": {"stress_step": 0.05, "tolerance": 1e-3, "bisections": 3},
+    "solver": {"method": "nodal"},
 }
 
 
