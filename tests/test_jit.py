@@ -110,7 +110,8 @@ elasticity = json.loads(sys.argv[1])
 base = {"seed": 3, "material": {"symbol": "Al"},
         "line": {"length": 4, "node_spacing": 0.1},
         "obstacles": {"kind": "random", "spacing_nm": 20.0, "critical_angle_deg": 0.0},
-        "loading": {"stress_step": 0.1, "bisections": 2}}
+        "loading": {"stress_step": 0.1, "bisections": 2},
+        "solver": {"method": "nodal"}}       # the nodal stepper's kernels are under test
 if elasticity:
     base["elasticity"] = elasticity
 counts = []

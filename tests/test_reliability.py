@@ -485,38 +485,3 @@ def test_sweep_worker_count_bounded(tmp_path, capsys):
                            "--workers", "100000")
     assert code == EXIT_BAD_INPUT
     assert_one_error_line(err, "--workers must be an integer in [1, ")
-
-
-# --------------------------------------------------------------------------- 5. the on-disk cache
-
-THREE_STEP = """
-import sys
-import numpy as np
-from dlsim import elastic
-if sys.argv[1] == "parallel":      # step 1: the parallel loop stress fills its cache entry
-    n = 40
-    x = np.linspace(0.0, 100.0, n, endpoint=False)
-    a = np.linspace(0.0, 2 * np.pi, 16, endpoint=False)
-    out = np.zeros(n)
-    elastic.loop_stress(x, np.zeros(n), n, 50 + 5 * np.cos(a), 30 + 5 * np.sin(a),
-                        np.array([0, 16]), 1, 100.0, 1.0, 0.3, 1.0, 1, out)
-else:                              # steps 2 and 3: compile, then load, the stepper
-    from dlsim.api import run_case
-    print(run_case(sys.argv[2], out_dir=False).crss_MPa)
-"""
-
-
-def test_cached_stepper_survives_a_parallel_kernel_cached_first(tmp_path):
-    # A serial and a parallel build of one function once shared a cache entry: a stepper compiled
-    # after the parallel build was cached segfaulted when a fresh process loaded it.
-    env = dict(os.environ, NUMBA_CACHE_DIR=str(tmp_path / "cache"))
-    case = write_case(tmp_path, TINY_CASE)
-    script = tmp_path / "step.py"
-    script.write_text(THREE_STEP)
-    results = []
-    for step in ("parallel", "compile", "load"):
-        proc = subprocess.run([sys.executable, str(script), step, str(case)], env=env,
-                              capture_output=True, text=True, timeout=600)
-        assert proc.returncode == 0, (step, proc.returncode, proc.stderr[-500:])
-        results.append(proc.stdout.strip())
-    assert results[1] == results[2] and float(results[2]) > 0
