@@ -219,11 +219,11 @@ def _swap_in(folder: Path, files: dict[str, bytes]) -> Path:
             os.rename(folder, old)
         try:
             os.rename(tmp, folder)
-        except OSError:
-            if old is not None:            # put the earlier run back before giving up
+        except BaseException:
+            if old is not None and not os.path.lexists(folder):  # put the earlier run back
                 os.rename(old, folder)
             raise
-    except OSError:
+    except BaseException:  # an error, or Ctrl-C / SIGTERM mid-write: leave no half-made folder
         shutil.rmtree(tmp, ignore_errors=True)
         raise
     if old is not None:

@@ -193,6 +193,29 @@ def test_write_failure_rescues_the_result(tmp_path, capsys, monkeypatch):
     assert json.loads((saved[0] / output.RESULT).read_text())["status"] == "ok"
 
 
+@pytest.mark.parametrize("moment", ["filling", "renaming"])
+def test_interrupted_write_leaves_the_earlier_run_and_no_hidden_folder(tmp_path, monkeypatch,
+                                                                      moment):
+    """Ctrl-C or SIGTERM in the middle of writing a run folder (a sweep's main process writes
+    them): the earlier run stays whole and no hidden temporary folder is left behind."""
+    folder = tmp_path / "run"
+    output.write_folder(folder, {"result.json": b"old"})
+
+    def interrupt(*args, **kwargs):
+        raise KeyboardInterrupt
+    if moment == "filling":
+        monkeypatch.setattr(output, "_fill", interrupt)
+    else:
+        real_rename = os.rename
+        monkeypatch.setattr(output.os, "rename", lambda a, b: (
+            interrupt() if Path(a).name.startswith(output.TMP_TAG) else real_rename(a, b)))
+    with pytest.raises(KeyboardInterrupt):
+        output.write_folder(folder, {"result.json": b"new"})
+    monkeypatch.undo()
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["run"]
+    assert (folder / "result.json").read_bytes() == b"old"
+
+
 def test_interrupt_after_a_realization_keeps_it(tmp_path, monkeypatch):
     calls = []
     real = api._realization
