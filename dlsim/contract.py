@@ -149,4 +149,8 @@ MIN_NODES = 4
 HEADROOM = 2 * MAX_CAPTURES + 16
 #: Smallest capacity of the node arrays (the capture lists live in work rows of this length).
 MIN_CAPACITY = 4 * MAX_CAPTURES
-
+#: Pair interactions (target nodes × source segments × periodic copies) of one self-stress
+#: evaluation below which the stepper sums on one thread: a thread team costs tens of µs to wake
+#: and, on a loaded machine, spins against the other processes, while 1e6 pairs take about 5 ms
+#: on one core.  Above it the parallel kernels of :mod:`dlsim.elastic` take over.
+PARALLEL_MIN_PAIRS = 1_000_000

@@ -17,13 +17,14 @@ import numpy as np
 from numba import njit
 
 from dlsim.contract import (CAPACITY, EQUILIBRIUM, FLOWING, HEADROOM, I_BIGN, I_BPIN, I_CAPTURE,
-                            I_HEAD, I_KEEP, I_NEXT, I_SRC, M_CAPTURES, M_CONTACT_CHECKS, M_N,
+                            PARALLEL_MIN_PAIRS, I_HEAD, I_KEEP, I_NEXT, I_SRC, M_CAPTURES, M_CONTACT_CHECKS, M_N,
                             M_NLOOPNODES, M_NLOOPS, M_RECONNECT, M_RELEASES, M_REMESH, M_STEPS,
                             MAX_CAPTURES, MAX_STEPS, MIN_NODES, MODEL_CONSTANT, MODEL_DWK,
                             MODEL_SELF, W_BUF, W_BX, W_BY, W_CAPTURE, W_FAR, W_FEX, W_FEY,
                             W_FPIN, W_NEAR, W_NTX, W_NTY, W_RAD, W_RX, W_RY, W_TAU_INT, W_VX,
                             W_VY)
-from dlsim.elastic import dwk_forces, local_stress, loop_stress, self_stress
+from dlsim.elastic import (dwk_forces, local_stress, loop_stress, loop_stress_serial, self_stress,
+                           self_stress_serial)
 from dlsim.geometry import neighbours as _neighbours
 from dlsim.jit import JIT, start_threads
 
@@ -1137,11 +1138,18 @@ def model_forces(line, n, prm, meta, loops, work_f, fresh):
         return
     n_img = prm.images
     if fresh:
-        self_stress(x, y, n, Lx, theta, nu, a, n_img, prm.cutoff, far)
+        copies = 2 * n_img + 1
+        if n * n * copies >= PARALLEL_MIN_PAIRS:
+            self_stress(x, y, n, Lx, theta, nu, a, n_img, prm.cutoff, far)
+        else:
+            self_stress_serial(x, y, n, Lx, theta, nu, a, n_img, prm.cutoff, far)
         n_loops = meta[M_NLOOPS]
         if n_loops > 0:
             lx, ly, _, loff = loops
-            loop_stress(x, y, n, lx, ly, loff, n_loops, Lx, theta, nu, a, n_img, buf)
+            if n * loff[n_loops] * copies >= PARALLEL_MIN_PAIRS:
+                loop_stress(x, y, n, lx, ly, loff, n_loops, Lx, theta, nu, a, n_img, buf)
+            else:
+                loop_stress_serial(x, y, n, lx, ly, loff, n_loops, Lx, theta, nu, a, n_img, buf)
             for i in range(n):
                 far[i] += buf[i]
     local_stress(x, y, n, Lx, theta, nu, a, near)
