@@ -20,7 +20,7 @@ def orowan(gamma: float, spacing: float) -> float:
 
 
 def square_array(gamma: float, spacing: float, critical_angle: float) -> float:
-    """CRSS of a square array with the line along a row: (2Γ/(bL)) cos(φ_c/2) (physics.md)."""
+    """CRSS of a square array with the line along a row: (2Γ/(bL)) cos(φ_c/2) (docs/physics.md)."""
     return orowan(gamma, spacing) * np.cos(0.5 * critical_angle)
 
 
@@ -32,7 +32,7 @@ def orowan_finite(gamma: float, spacing: float, mean_radius: float) -> float:
 def friedel(gamma: float, spacing: float, critical_angle: float) -> float:
     """Friedel's weak-obstacle limit for a random array: (2Γ/(b L_s)) cos(φ_c/2)^(3/2).
 
-    Friedel, *Dislocations* (1964); the form of physics.md and Kocks, Argon & Ashby (1975).
+    Friedel, *Dislocations* (1964); the form of docs/physics.md and Kocks, Argon & Ashby (1975).
     """
     return orowan(gamma, spacing) * np.cos(0.5 * critical_angle) ** 1.5
 
@@ -43,7 +43,7 @@ def foreman_makin(gamma: float, spacing: float) -> float:
 
 
 def critical_force(gamma: float, critical_angle: float) -> float:
-    """F_c = 2Γ cos(φ_c/2): the pull of two arms meeting at angle φ_c (physics.md)."""
+    """F_c = 2Γ cos(φ_c/2): the pull of two arms meeting at angle φ_c (docs/physics.md)."""
     return 2.0 * gamma * np.cos(0.5 * critical_angle)
 
 
@@ -54,7 +54,7 @@ def critical_angle(gamma: float, force: float) -> float:
 
 
 def superpose(stresses, exponent: float) -> float:
-    """Mixed populations: τ = (Σ τ_i^k)^(1/k), k = 1 linear, k = 2 Pythagorean (physics.md)."""
+    """Mixed populations: τ = (Σ τ_i^k)^(1/k), k = 1 linear, k = 2 Pythagorean (docs/physics.md)."""
     if not 1.0 <= exponent <= 2.0:
         raise ValueError(f"superposition exponent {exponent} outside [1, 2]")
     s = np.asarray(stresses, dtype=float)
@@ -68,7 +68,7 @@ def random_bypass(gamma: float, spacing: float, mean_radius: float) -> float:
 
 
 def strength_increment(crss: float, taylor_factor: float = TAYLOR_FCC) -> float:
-    """Uniaxial yield strength increment Δσ = M τ_c (physics.md; M from :data:`TAYLOR_FCC`)."""
+    """Uniaxial yield strength increment Δσ = M τ_c (docs/physics.md; M from :data:`TAYLOR_FCC`)."""
     return taylor_factor * crss
 
 

@@ -165,7 +165,7 @@ def ring_points(x: np.ndarray, y: np.ndarray, rho: np.ndarray, max_gap: float
     """Impenetrable point obstacles on the perimeters of discs, at most ``max_gap`` apart.
 
     A line cannot enter a disc drawn this way: it wraps the ring, its arms meet behind the disc
-    and reconnect, leaving an Orowan loop held by the ring points (physics.md, finite particles).
+    and reconnect, leaving an Orowan loop held by the ring points (docs/physics.md, finite particles).
     Discs too small for :data:`MIN_RING_POINTS` points become one point at their centre.
 
     Parameters
@@ -298,7 +298,7 @@ def enlarged_table(table: ParticleTable, loops_per_particle: np.ndarray, loop_sp
 
     Model (a choice of dlsim): each loop around a particle makes it an impenetrable disc whose
     radius grows by ``loop_spacing`` (b) per loop, standing for the repulsion of the loops
-    stacked around it (physics.md: the loop makes the particle a larger obstacle).  Untouched
+    stacked around it (docs/physics.md: the loop makes the particle a larger obstacle).  Untouched
     particles keep their strength.
     """
     looped = loops_per_particle > 0

@@ -6,7 +6,7 @@ the work arrays with named rows, the parameter record ``prm``).  The public driv
 relaxation is :func:`relax_line`; it runs the whole loop of time steps in compiled code and returns
 a status code, so Python costs nothing per step.
 
-The nodal forces are the energy-consistent forms of physics.md (exact for straight segments):
+The nodal forces are the energy-consistent forms of docs/physics.md (exact for straight segments):
 line tension ``F_i = Γ (t_i - t_{i-1})`` and Peach–Koehler ``F_i = ½ τ ẑ × (r_{i+1} - r_{i-1})``
 (Hirth & Lothe, *Theory of Dislocations*, 1982, ch. 3 and 6).  Lattice friction is a threshold on
 the local driving stress; motion is overdamped, ``v = M τ_eff n``.

@@ -205,7 +205,7 @@ def lsw_cdf(u):
 def lsw_moment(k: int) -> float:
     """Moment ⟨u^k⟩ = ∫ u^k h(u) du of the LSW distribution, by the quadrature of :func:`_lsw_table`.
 
-    ⟨u⁰⟩ = ⟨u⟩ = 1 and ⟨u³⟩ ≈ 1.1296 (physics.md; Lifshitz & Slyozov 1961; Wagner 1961).
+    ⟨u⁰⟩ = ⟨u⟩ = 1 and ⟨u³⟩ ≈ 1.1296 (docs/physics.md; Lifshitz & Slyozov 1961; Wagner 1961).
 
     Parameters
     ----------
@@ -606,7 +606,7 @@ def areal_density(distribution: SizeDistribution, number_density: float) -> floa
 
 
 def mean_square_spacing(areal_density_per_nm2: float) -> float:
-    """Mean square spacing L_s = N_A^(-1/2) (nm); infinite for N_A = 0 (physics.md)."""
+    """Mean square spacing L_s = N_A^(-1/2) (nm); infinite for N_A = 0 (docs/physics.md)."""
     return math.inf if areal_density_per_nm2 <= 0.0 else areal_density_per_nm2**-0.5
 
 
@@ -846,7 +846,7 @@ def section_stats(sections: Sections, Lx_nm: float, Ly_nm: float) -> dict:
     -------
     dict
         ``count``; ``areal_density_per_nm2`` and ``areal_density_per_um2`` (N_A = count/(Lx Ly));
-        ``mean_square_spacing_nm`` (L_s = N_A^(-1/2), physics.md); ``rho_mean_nm``, ``rho_std_nm``
+        ``mean_square_spacing_nm`` (L_s = N_A^(-1/2), docs/physics.md); ``rho_mean_nm``, ``rho_std_nm``
         (sample standard deviation, ddof = 1) and ``rho2_mean_nm2``; ``edge_spacing_nm``
         (L_s - 2⟨ρ⟩, common practice, see :func:`edge_spacing`).  Means are NaN with no section.
     """

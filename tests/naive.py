@@ -2,7 +2,7 @@
 
 Each twin takes the used part of the line (``n`` nodes, node ``n`` is node 0 shifted by (Lx, 0)) and
 returns what the kernel computes, so the tests can compare the two on random lines.  Formulas as in
-physics.md: line tension ``Γ (t_i - t_{i-1})``, Peach–Koehler ``½ τ ẑ × (r_{i+1} - r_{i-1})``
+docs/physics.md: line tension ``Γ (t_i - t_{i-1})``, Peach–Koehler ``½ τ ẑ × (r_{i+1} - r_{i-1})``
 (Hirth & Lothe, *Theory of Dislocations*, 1982), friction as a threshold on the local driving
 stress.
 """

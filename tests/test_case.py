@@ -226,7 +226,7 @@ def test_load_case_ints_become_floats_where_floats_are_due():
 
 
 def test_random_density_gives_mean_square_spacing():
-    # L_s = N_A^-1/2 (physics.md): 400 per µm² -> 50 nm.
+    # L_s = N_A^-1/2 (docs/physics.md): 400 per µm² -> 50 nm.
     case = load_case(with_(obstacles={"kind": "random", "density_per_um2": 400.0,
                                       "critical_angle_deg": 90.0}, line={"length": 7.5}))
     assert case.obstacles.spacing_nm == pytest.approx(50.0, rel=1e-15)

@@ -203,7 +203,7 @@ def test_orowan_loop_repels_next_line():
 
 # ---- de Wit–Koehler line tension ----------------------------------------------------------------
 def test_dwk_stiffness_screw_and_edge_values():
-    # dWK 1959 (physics.md): Γ = K(1+ν)/(1-ν) screw, K(1-2ν)/(1-ν) edge; ratio 4 at ν = 1/3
+    # dWK 1959 (docs/physics.md): Γ = K(1+ν)/(1-ν) screw, K(1-2ν)/(1-ν) edge; ratio 4 at ν = 1/3
     assert E.dwk_stiffness(0.0, NU, 2.0) == pytest.approx(2.0 * (1 + NU) / (1 - NU), rel=1e-14)
     assert E.dwk_stiffness(np.pi / 2, NU, 2.0) == pytest.approx(2.0 * (1 - 2 * NU) / (1 - NU))
     assert E.dwk_stiffness(0.0, 1 / 3, 1.0) / E.dwk_stiffness(np.pi / 2, 1 / 3, 1.0) == \

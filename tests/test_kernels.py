@@ -2,8 +2,8 @@
 
 Sources: nodal forces are the energy-consistent forms of Hirth & Lothe, *Theory of Dislocations*
 (1982), ch. 6 (line tension) and ch. 3 (Peach–Koehler force); lattice friction as a threshold on the
-resolved stress and overdamped glide v = M τ_eff b as in physics.md (Kocks, Argon & Ashby 1975, §2);
-no-tunnelling capture and Orowan looping of impenetrable points as in physics.md ("Obstacles").
+resolved stress and overdamped glide v = M τ_eff b as in docs/physics.md (Kocks, Argon & Ashby 1975, §2);
+no-tunnelling capture and Orowan looping of impenetrable points as in docs/physics.md ("Obstacles").
 """
 from __future__ import annotations
 
@@ -106,7 +106,7 @@ def test_nodal_forces_equal_twin_on_wavy_line(seed):
 
 @pytest.mark.parametrize("seed,tau", [(4, 0.0), (5, 3e-3), (6, -2e-3)])
 def test_nodal_forces_equal_minus_energy_gradient(seed, tau):
-    # F_i = -∂E/∂r_i with E = Γ·length − τ·area (Hirth & Lothe 1982, ch. 6; physics.md)
+    # F_i = -∂E/∂r_i with E = Γ·length − τ·area (Hirth & Lothe 1982, ch. 6; docs/physics.md)
     rng = np.random.default_rng(seed)
     n, Lx = 40, 400.0
     x, y = wavy_line(rng, n, Lx, 30.0)
@@ -165,7 +165,7 @@ def test_node_pass_equals_twin(seed, tau_f):
 
 @pytest.mark.parametrize("tau_over_tf", [0.0, 0.5, 1.0, 1.01, 2.0, 10.0])
 def test_straight_line_velocity_with_friction(tau_over_tf):
-    # friction threshold and overdamped glide: v = M (τ − τ_f) for τ > τ_f, else 0 (physics.md)
+    # friction threshold and overdamped glide: v = M (τ − τ_f) for τ > τ_f, else 0 (docs/physics.md)
     n, Lx, tau_f, mob = 32, 320.0, 1e-3, 3.0
     x = (np.arange(n) + 0.5) * Lx / n
     y = np.full(n, 7.0)
@@ -306,7 +306,7 @@ def test_captures_with_kept_clearances_equal_brute_force_every_step(seed):
 
 
 def test_find_captures_skips_obstacle_just_left():
-    # a released obstacle is not re-captured by the arms that just left it (physics.md)
+    # a released obstacle is not re-captured by the arms that just left it (docs/physics.md)
     Lx, Ly = 100.0, 100.0
     x = np.array([10.0, 30.0, 50.0, 70.0, 90.0])
     y = np.full(5, 50.0)
@@ -409,7 +409,7 @@ def test_remesh_removes_short_arm_at_node_zero():
 
 @pytest.mark.parametrize("radius_over_l", [3.0, 8.0, 30.0])
 def test_remesh_keeps_circular_arc(radius_over_l):
-    # a bowed segment pinned at both ends is a circular arc of radius Γ/(τb) (physics.md); the
+    # a bowed segment pinned at both ends is a circular arc of radius Γ/(τb) (docs/physics.md); the
     # inserted nodes must stay on it, not on the chords (a flattened line would lose area)
     lmax = 10.0
     R = radius_over_l * lmax
@@ -572,7 +572,7 @@ def test_move_and_capture_point_implicit_step():
 
 
 def test_relaxation_bows_to_circular_arc():
-    # a segment pinned at both ends bows to a circular arc of radius Γ/(τ b) (physics.md;
+    # a segment pinned at both ends bows to a circular arc of radius Γ/(τ b) (docs/physics.md;
     # Hirth & Lothe 1982, ch. 6): here one obstacle per period, so the arc spans L
     from dlsim.fields import square_field
     L = 200.0

@@ -33,7 +33,7 @@ FILE_KEY = "populations[0].file"
 @pytest.mark.parametrize("k, expected, tol", [
     (0, 1.0, 1e-10),      # h is normalised (LSW 1961)
     (1, 1.0, 1e-10),      # u = r/<r>, so <u> = 1 (LSW 1961)
-    (3, 1.1296, 1e-4),    # physics.md, quoted to 4 decimals
+    (3, 1.1296, 1e-4),    # docs/physics.md, quoted to 4 decimals
 ])
 def test_lsw_pdf_moments_match_reference(k, expected, tol):
     value, _ = integrate.quad(lambda u: u**k * lsw_pdf(u), 0.0, LSW_U_MAX, **QUAD)

@@ -48,11 +48,11 @@ def test_disc_square_array_crss_matches_finite_orowan(ratio):
     tau_ref = analytic.orowan(GAMMA, L)
     res = find_crss(field, LineModel(GAMMA, 0.05 * L), protocol(tau_ref, field.Ly))
     expected = analytic.orowan_finite(GAMMA, L, ratio * L)
-    # Hull & Bacon; physics.md: τ_c = 2Γ/(b(L − 2ρ)) for the square array; 2% covers the
+    # Hull & Bacon; docs/physics.md: τ_c = 2Γ/(b(L − 2ρ)) for the square array; 2% covers the
     # node spacing 0.05 L and the tolerance 1e-3.
     assert res.converged
     assert res.lo / expected == pytest.approx(1.0, abs=0.02)
-    # A line that crossed the field once has left one Orowan loop round every disc (physics.md)
+    # A line that crossed the field once has left one Orowan loop round every disc (docs/physics.md)
     swept = sweep_through(field, LineModel(GAMMA, 0.05 * L), protocol(tau_ref, field.Ly), res)
     counts = loops_per_particle(field, swept)
     assert counts.tolist() == [1] * field.table.n
@@ -90,7 +90,7 @@ def test_random_weak_points_near_friedel():
     fc = analytic.critical_force(GAMMA, phi)
     ratios = [random_crss(seed, 1225, fc, 0.1, 1e-3, 6) for seed in (1, 2, 3)]
     friedel = np.cos(0.5 * phi) ** 1.5
-    # Friedel (1964), physics.md: τ_c = (2Γ/(b L_s)) cos(φ_c/2)^(3/2); 12% for 3 seeds of 1225
+    # Friedel (1964), docs/physics.md: τ_c = (2Γ/(b L_s)) cos(φ_c/2)^(3/2); 12% for 3 seeds of 1225
     assert np.mean(ratios) / friedel == pytest.approx(1.0, abs=0.12), ratios
 
 

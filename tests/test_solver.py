@@ -80,7 +80,7 @@ def _empty_field(side):
 
 @pytest.mark.parametrize("ratio, expected", [(0.9, "pinned"), (1.1, "flowing")])
 def test_friction_holds_straight_line_below_threshold(ratio, expected):
-    # physics.md: a straight free line does not move for τ <= τ_f.
+    # docs/physics.md: a straight free line does not move for τ <= τ_f.
     tau_f = 1e-3
     model = LineModel(GAMMA, 10.0, friction=tau_f)
     relaxer = Relaxer(_empty_field(400.0), model)
@@ -93,7 +93,7 @@ def test_friction_holds_straight_line_below_threshold(ratio, expected):
 
 
 def test_friction_adds_to_square_array_crss():
-    # physics.md: on a regular array τ_c = τ_f + (2Γ/(bL)) cos(φ_c/2).
+    # docs/physics.md: on a regular array τ_c = τ_f + (2Γ/(bL)) cos(φ_c/2).
     base = run_case(square_case(), out_dir=False).summary
     tau_f = 0.3 * base["orowan_MPa"]
     result = run_case(square_case(friction__stress_MPa=tau_f), out_dir=False)

@@ -246,7 +246,7 @@ def test_run_sweep_square_array_values_arrive(tmp_path):
     run_sweep(write_sweep(tmp_path, sweep, SQUARE_CASE), out_dir=out, workers=2, progress=False)
     _, rows = read_csv(out / "summary_runs.csv")
     for row in rows:
-        # physics.md, square array: τ_c = (2Γ/(bL)) cos(φ_c/2) exactly (Hirth & Lothe); the
+        # docs/physics.md, square array: τ_c = (2Γ/(bL)) cos(φ_c/2) exactly (Hirth & Lothe); the
         # bracket width is stress_step / 2^bisections = 0.05/16 of 2Γ/(bL), so 1 % is ample.
         exact = float(row["orowan_MPa"]) * math.cos(math.radians(90) / 2)
         assert float(row["crss_MPa"]) == pytest.approx(exact, rel=0.01)
