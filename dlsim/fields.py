@@ -165,7 +165,8 @@ def ring_points(x: np.ndarray, y: np.ndarray, rho: np.ndarray, max_gap: float
     """Impenetrable point obstacles on the perimeters of discs, at most ``max_gap`` apart.
 
     A line cannot enter a disc drawn this way: it wraps the ring, its arms meet behind the disc
-    and reconnect, leaving an Orowan loop held by the ring points (docs/physics.md, finite particles).
+    and reconnect, leaving an Orowan loop held by the ring points (docs/physics.md, finite
+    particles).
     Discs too small for :data:`MIN_RING_POINTS` points become one point at their centre.
 
     Parameters

@@ -17,12 +17,12 @@ import numpy as np
 from numba import njit
 
 from dlsim.contract import (CAPACITY, EQUILIBRIUM, FLOWING, HEADROOM, I_BIGN, I_BPIN, I_CAPTURE,
-                            PARALLEL_MIN_PAIRS, I_HEAD, I_KEEP, I_NEXT, I_SRC, M_CAPTURES, M_CONTACT_CHECKS, M_N,
+                            I_HEAD, I_KEEP, I_NEXT, I_SRC, M_CAPTURES, M_CONTACT_CHECKS, M_N,
                             M_NLOOPNODES, M_NLOOPS, M_RECONNECT, M_RELEASES, M_REMESH, M_STEPS,
                             MAX_CAPTURES, MAX_STEPS, MIN_NODES, MODEL_CONSTANT, MODEL_DWK,
-                            MODEL_SELF, W_BUF, W_BX, W_BY, W_CAPTURE, W_FAR, W_FEX, W_FEY,
-                            W_FPIN, W_NEAR, W_NTX, W_NTY, W_RAD, W_RX, W_RY, W_TAU_INT, W_VX,
-                            W_VY)
+                            MODEL_SELF, PARALLEL_MIN_PAIRS, W_BUF, W_BX, W_BY, W_CAPTURE, W_FAR,
+                            W_FEX, W_FEY, W_FPIN, W_NEAR, W_NTX, W_NTY, W_RAD, W_RX, W_RY,
+                            W_TAU_INT, W_VX, W_VY)
 from dlsim.elastic import (dwk_forces, local_stress, loop_stress, loop_stress_serial, self_stress,
                            self_stress_serial)
 from dlsim.geometry import neighbours as _neighbours

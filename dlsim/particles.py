@@ -846,9 +846,10 @@ def section_stats(sections: Sections, Lx_nm: float, Ly_nm: float) -> dict:
     -------
     dict
         ``count``; ``areal_density_per_nm2`` and ``areal_density_per_um2`` (N_A = count/(Lx Ly));
-        ``mean_square_spacing_nm`` (L_s = N_A^(-1/2), docs/physics.md); ``rho_mean_nm``, ``rho_std_nm``
-        (sample standard deviation, ddof = 1) and ``rho2_mean_nm2``; ``edge_spacing_nm``
-        (L_s - 2⟨ρ⟩, common practice, see :func:`edge_spacing`).  Means are NaN with no section.
+        ``mean_square_spacing_nm`` (L_s = N_A^(-1/2), docs/physics.md); ``rho_mean_nm``,
+        ``rho_std_nm`` (sample standard deviation, ddof = 1) and ``rho2_mean_nm2``;
+        ``edge_spacing_nm`` (L_s - 2⟨ρ⟩, common practice, see :func:`edge_spacing`).  Means are
+        NaN with no section.
     """
     rho = sections.rho_nm
     n = rho.size

@@ -1,10 +1,11 @@
 """The driver: relaxation of the line at one stress, and the CRSS protocol of docs/physics.md.
 
 The time stepping itself runs in :func:`dlsim.kernels.relax_line`; this module owns the loop over
-stresses.  Protocol (docs/physics.md, "Critical resolved shear stress"): raise τ in steps from the friction
-stress, relax to equilibrium at each, call the line flowing once its mean position has moved more than
-a set glide distance past its last pinned configuration, then bisect the bracket, every trial
-restarting from the last pinned configuration.  All values are reduced (b, G, G b²).
+stresses.  Protocol (docs/physics.md, "Critical resolved shear stress"): raise τ in steps from
+the friction stress, relax to equilibrium at each, call the line flowing once its mean position
+has moved more than a set glide distance past its last pinned configuration, then bisect the
+bracket, every trial restarting from the last pinned configuration.  All values are reduced
+(b, G, G b²).
 """
 from __future__ import annotations
 

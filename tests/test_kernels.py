@@ -2,8 +2,9 @@
 
 Sources: nodal forces are the energy-consistent forms of Hirth & Lothe, *Theory of Dislocations*
 (1982), ch. 6 (line tension) and ch. 3 (Peach–Koehler force); lattice friction as a threshold on the
-resolved stress and overdamped glide v = M τ_eff b as in docs/physics.md (Kocks, Argon & Ashby 1975, §2);
-no-tunnelling capture and Orowan looping of impenetrable points as in docs/physics.md ("Obstacles").
+resolved stress and overdamped glide v = M τ_eff b as in docs/physics.md (Kocks, Argon & Ashby
+1975, §2); no-tunnelling capture and Orowan looping of impenetrable points as in docs/physics.md
+("Obstacles").
 """
 from __future__ import annotations
 
