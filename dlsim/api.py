@@ -31,7 +31,10 @@ from .errors import RescuedOutput
 from .fields import (ObstacleField, ParticleTable, enlarged_table, population_field,
                      populations_table, random_field, square_field)
 from .line import LineState
-from .solver import CrssResult, Elasticity, LineModel, Protocol, Relaxation, Relaxer, find_crss
+from .loops import (LOOP_STATUS_NAMES, LoopReport, field_tuple, loop_parameters, relax_loops,
+                    relax_state_loops)
+from .solver import (LMAX_FRACTION, LMIN_FRACTION, CrssResult, Elasticity, LineModel, Protocol,
+                     Relaxation, Relaxer, find_crss)
 
 #: Random periodic boxes smaller than this many L_s on a side bias the CRSS upward (Nogaret &
 #: Rodney, Phys. Rev. B 74, 2006); 30 is common practice, not a value from that paper.
@@ -56,12 +59,14 @@ STATUS_INTERRUPTED = "interrupted"    # stopped by the user; the finished realiz
 class Realization:
     """One independent field of a case and its CRSS searches (one per dislocation pass).
 
-    ``passes[k]`` is (field, search, line after crossing the field) of pass k.
+    ``passes[k]`` is (field, search, line after crossing the field) of pass k; ``loops[k]``
+    says how the Orowan loops of that line were relaxed (:func:`relax_left_loops`).
     """
 
     index: int
     seed: int
     passes: list[tuple[ObstacleField, CrssResult, LineState]]
+    loops: list[LoopReport] = field(default_factory=list)
 
     @property
     def field(self) -> ObstacleField:
@@ -212,10 +217,32 @@ def kernels_need_compiling() -> bool:
 
 
 class FrameRecorder:
-    """Line snapshots for a movie, at most :data:`MAX_FRAMES` (thinned evenly when full)."""
+    """Line snapshots for a movie, at most :data:`MAX_FRAMES` (thinned evenly when full), each
+    with the Orowan loops of that moment relaxed onto their obstacles (:mod:`dlsim.loops`; each
+    distinct loop is relaxed once, at the stress of the first frame that shows it)."""
 
     def __init__(self, units):
         self.units, self.frames, self.stride, self.seen = units, [], 1, 0
+        self.relax, self.relaxed = None, {}
+
+    def bind(self, case: Case, obstacles: ObstacleField) -> None:
+        """Relax the frames' loops in ``obstacles`` with ``case``'s line (called per search)."""
+        field_arrays = field_tuple(obstacles)
+
+        def relax(loop, tau):
+            prm = loop_relaxation_parameters(case, obstacles.spacing, tau)
+            return relax_loops([loop], field_arrays, prm)[0]
+        self.relax, self.relaxed = relax, {}
+
+    def _loops(self, state: LineState, tau: float) -> list:
+        u, out = self.units, []
+        for loop in state.loops():
+            key = loop[0].tobytes() + loop[1].tobytes()
+            if key not in self.relaxed:
+                kept = self.relax(loop, tau) if self.relax is not None else [loop]
+                self.relaxed[key] = [(u.length_nm(x), u.length_nm(y)) for x, y, _ in kept]
+            out += self.relaxed[key]
+        return out
 
     def __call__(self, state: LineState, tau: float, steps: int) -> None:
         self.seen += 1
@@ -223,7 +250,8 @@ class FrameRecorder:
             return
         u = self.units
         x, y, pin = state.nodes()
-        self.frames.append((u.length_nm(x), u.length_nm(y), pin >= 0, u.stress_MPa(tau), steps))
+        self.frames.append((u.length_nm(x), u.length_nm(y), pin >= 0, u.stress_MPa(tau), steps,
+                            self._loops(state, tau)))
         if len(self.frames) >= MAX_FRAMES:
             self.frames = self.frames[::2]
             self.stride *= 2
@@ -304,9 +332,30 @@ def _realization(case: Case, r: int, show=None, every: int = 0, snap=None) -> Re
     if case.obstacles is not None:
         obstacles = build_field(case, r)
         search = _search(case, obstacles, show, every, snap)
-        return Realization(r, realization_seed(case, r), [(obstacles, search, search.line)])
+        report = relax_left_loops(case, obstacles, search.line, search.lo)
+        return Realization(r, realization_seed(case, r), [(obstacles, search, search.line)],
+                           [report])
     table = populations_table(case, r)[0]
-    return Realization(r, case.seed, _passes(case, table, show, every, snap))
+    passes, reports = _passes(case, table, show, every, snap)
+    return Realization(r, case.seed, passes, reports)
+
+
+def loop_relaxation_parameters(case: Case, spacing: float, tau: float):
+    """The parameters of the loop relaxation (:mod:`dlsim.loops`) at stress ``tau`` (G): the
+    case's line tension, friction, segment bounds and equilibrium tolerance."""
+    model, protocol, _ = model_and_protocol(case, spacing)
+    h = model.node_spacing
+    return loop_parameters(model.tension, tau, model.friction, LMIN_FRACTION * h,
+                           LMAX_FRACTION * h, protocol.tolerance)
+
+
+def relax_left_loops(case: Case, obstacles: ObstacleField, state: LineState, tau: float
+                     ) -> LoopReport:
+    """Relax the Orowan loops ``state`` holds onto their obstacles at stress ``tau`` (G), in
+    place (:func:`dlsim.loops.relax_state_loops`): a loop is frozen at the moment it is cut off
+    and relaxes under its line tension and the applied stress; one that holds nothing vanishes."""
+    return relax_state_loops(state, obstacles,
+                             loop_relaxation_parameters(case, obstacles.spacing, tau))
 
 
 def _search(case: Case, obstacles: ObstacleField, show=None, every: int = 0, snap=None
@@ -315,6 +364,8 @@ def _search(case: Case, obstacles: ObstacleField, show=None, every: int = 0, sna
     line (:func:`dlsim.solver.find_crss`) or the arc construction
     (:func:`dlsim.arcs.find_crss_arcs`, snapshots every ``every`` events)."""
     model, protocol, _ = model_and_protocol(case, obstacles.spacing)
+    if isinstance(snap, FrameRecorder):
+        snap.bind(case, obstacles)
     if case.solver.solver == "arcs":
         from .arcs import find_crss_arcs
 
@@ -370,8 +421,9 @@ def loops_per_particle(obstacles: ObstacleField, state: LineState) -> np.ndarray
 
 
 def _passes(case: Case, table: ParticleTable, show=None, every: int = 0, snap=None
-            ) -> list[tuple[ObstacleField, CrssResult, LineState]]:
-    """The CRSS searches of successive dislocations through one realization.
+            ) -> tuple[list[tuple[ObstacleField, CrssResult, LineState]], list[LoopReport]]:
+    """The CRSS searches of successive dislocations through one realization, and how each
+    pass's loops were relaxed.
 
     Model of repeated passes (a choice of dlsim, see :func:`dlsim.fields.enlarged_table`): after
     each pass every particle held by Orowan loops becomes an impenetrable disc enlarged by
@@ -380,7 +432,7 @@ def _passes(case: Case, table: ParticleTable, show=None, every: int = 0, snap=No
     """
     spacing = case.units.length(case.strength.loop_spacing_nm)
     loops = np.zeros(table.n, np.int64)
-    out = []
+    out, reports = [], []
     for k in range(case.strength.passes):
         current = table if k == 0 else enlarged_table(table, loops, spacing)
         obstacles = population_field(case, table=current)
@@ -389,9 +441,11 @@ def _passes(case: Case, table: ParticleTable, show=None, every: int = 0, snap=No
         # point obstacles leave no Orowan loops around discs: the arcs' line at the CRSS suffices
         swept = (search.line if case.solver.solver == "arcs"
                  else sweep_through(obstacles, model, protocol, search))
+        # the swept line flowed at (or a little above) the upper end of the bracket
+        reports.append(relax_left_loops(case, obstacles, swept, search.hi))
         out.append((obstacles, search, swept))
         loops = loops + loops_per_particle(obstacles, swept)
-    return out
+    return out, reports
 
 
 # --------------------------------------------------------------------------- the summary
@@ -481,6 +535,7 @@ def summarize(case: Case, runs: list[Realization], wall: float, interrupted: boo
         "seed": case.seed,
         "converged": status == STATUS_OK,
         "events": records[0]["events"],
+        "loop_relaxation": loop_relaxation_record(case, first),
         "model": model_record(case),
         "files_show_realization": 0,
     })
@@ -491,6 +546,17 @@ def summarize(case: Case, runs: list[Realization], wall: float, interrupted: boo
     summary.update(warnings=warnings, wall_time_s=wall, dlsim_version=__version__,
                    case=case.to_dict())
     return summary
+
+
+def loop_relaxation_record(case: Case, real: Realization) -> dict:
+    """How the Orowan loops of realization 0's first pass were relaxed (result.json
+    ``loop_relaxation``): the stress, a count per status (dlsim.loops) and the largest number
+    of steps one loop took."""
+    if not real.loops:
+        return {}
+    rep = real.loops[0]
+    return {"stress_MPa": float(case.units.stress_MPa(rep.tau)), **rep.counts(),
+            "steps_max": int(rep.steps.max(initial=0))}
 
 
 def _message(status: str, records: list[dict], count: int, case: Case) -> str:
@@ -671,8 +737,11 @@ def run_files(result: RunResult) -> dict[str, bytes]:
     loops = first.swept.loops()
     if loops:
         held = loop_particles(obstacles, first.swept, first_crossing=False)
-        files[output.LOOPS] = output.table_bytes(("loop", "particle", "x_nm", "y_nm"), (
-            (k, int(held[k][0]) if held[k].size else -1, float(u.length_nm(xx)),
+        rep = first.loops[0] if first.loops else None
+        status = ([LOOP_STATUS_NAMES[c] for c in rep.status[rep.kept]] if rep is not None
+                  and rep.kept.sum() == len(loops) else ["frozen"] * len(loops))
+        files[output.LOOPS] = output.table_bytes(output.LOOPS_COLUMNS, (
+            (k, int(held[k][0]) if held[k].size else -1, status[k], float(u.length_nm(xx)),
              float(u.length_nm(yy)))
             for k, (lx, ly, _) in enumerate(loops) for xx, yy in zip(lx, ly)))
     if result.frames:

@@ -81,7 +81,9 @@ def _cmd_plot(args: argparse.Namespace) -> int:
 def _cmd_movie(args: argparse.Namespace) -> int:
     from .movie import make_movie
 
-    print(make_movie(args.run_dir, fmt=args.format, max_frames=args.max_frames, fps=args.fps))
+    size = {} if args.width is None else {"width": args.width}
+    print(make_movie(args.run_dir, fmt=args.format, max_frames=args.max_frames, fps=args.fps,
+                     **size))
     return 0
 
 
@@ -109,6 +111,9 @@ def _add_sweep_commands(sub) -> None:
     movie.add_argument("--format", choices=("gif", "mp4"), default="gif")
     movie.add_argument("--max-frames", type=int, default=120, help="at most this many frames")
     movie.add_argument("--fps", type=float, default=10.0, help="frames per second")
+    # the default lives in dlsim.movie (DEFAULT_WIDTH_PX), not imported here: matplotlib is slow
+    movie.add_argument("--width", type=int, default=None,
+                       help="frame width in pixels (default 1280; the height follows)")
     movie.set_defaults(func=_cmd_movie)
 
 

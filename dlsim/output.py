@@ -42,6 +42,9 @@ SWEEP = "sweep.json"
 
 HISTORY_COLUMNS = ("realization", "index", "phase", "stress_MPa", "state", "mean_glide_nm",
                    "swept_area_nm2", "pinned", "plastic_strain_increment", "steps", "nodes")
+#: loops.csv: one row per node of each Orowan loop; ``relaxation`` is how the loop was relaxed
+#: onto its obstacles (dlsim.loops.LOOP_STATUS_NAMES).
+LOOPS_COLUMNS = ("loop", "particle", "relaxation", "x_nm", "y_nm")
 #: Prefixes of the hidden folders used while writing (never a user's name: they start with a dot).
 TMP_TAG = ".tmp-"
 OLD_TAG = ".old-"
@@ -85,18 +88,33 @@ def columns_bytes(columns: dict) -> bytes:
     return table_bytes(names, zip(*(np.asarray(columns[k]).tolist() for k in names)))
 
 
-def snapshots_bytes(frames: list[tuple[np.ndarray, np.ndarray, np.ndarray, float, int]]) -> bytes:
-    """Line snapshots (x_nm, y_nm, pinned, stress_MPa, step) as one compressed npz (CSR)."""
+def snapshots_bytes(frames: list[tuple]) -> bytes:
+    """Line snapshots (x_nm, y_nm, pinned, stress_MPa, step[, loops]) as one compressed npz (CSR).
+
+    ``loops`` of a frame is a list of (x_nm, y_nm) arrays, the Orowan loops shown with it: they
+    are stored as ``loop_frames`` (frames + 1 offsets into the loops), ``loop_offsets`` (loops + 1
+    offsets into ``loop_x_nm``, ``loop_y_nm``).
+    """
     sizes = [f[0].shape[0] for f in frames]
     offsets = np.zeros(len(frames) + 1, np.int64)
     np.cumsum(sizes, out=offsets[1:])
     cat = (lambda k, dt: np.concatenate([f[k] for f in frames]).astype(dt)
            if frames else np.zeros(0, dt))
+    loops = [f[5] if len(f) > 5 else [] for f in frames]
+    loop_frames = np.zeros(len(frames) + 1, np.int64)
+    np.cumsum([len(lp) for lp in loops], out=loop_frames[1:])
+    flat = [lp for frame in loops for lp in frame]
+    loop_offsets = np.zeros(len(flat) + 1, np.int64)
+    np.cumsum([lp[0].shape[0] for lp in flat], out=loop_offsets[1:])
+    loop_xy = [np.concatenate([lp[k] for lp in flat]).astype(np.float64) if flat else np.zeros(0)
+               for k in (0, 1)]
     buf = io.BytesIO()
     np.savez_compressed(buf, offsets=offsets, x_nm=cat(0, np.float64), y_nm=cat(1, np.float64),
                         pinned=cat(2, np.bool_),
                         stress_MPa=np.array([f[3] for f in frames], np.float64),
-                        step=np.array([f[4] for f in frames], np.int64))
+                        step=np.array([f[4] for f in frames], np.int64),
+                        loop_frames=loop_frames, loop_offsets=loop_offsets,
+                        loop_x_nm=loop_xy[0], loop_y_nm=loop_xy[1])
     return buf.getvalue()
 
 

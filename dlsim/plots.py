@@ -36,9 +36,9 @@ QUANTITIES = {"crss": "CRSS τ$_c$ (MPa)", "delta_sigma": "yield strength increm
 UNIT_SUFFIXES = {"_nm": "nm", "_MPa": "MPa", "_GPa": "GPa", "_nN": "nN", "_deg": "°",
                  "_per_um2": "µm$^{-2}$", "_um": "µm"}
 ESTIMATE_STYLES = ("--", ":", "-.", (0, (5, 1, 1, 1)))
-STATE_MARKERS = {"pinned": "o", "flowing": ">", "unresolved": "^"}
-# Flowing relaxations sweep far more than the pinned ones; the area axis stops at this multiple of
-# the largest pinned area and flowing points sit at its edge.
+STATE_MARKERS = {"pinned": ("o", "C0"), "flowing": (">", "C1"), "unresolved": ("^", "C3")}
+# Flowing relaxations glide far more than the pinned ones; the glide axis stops at this multiple of
+# the largest pinned glide and flowing points sit at its edge.
 AREA_AXIS_MARGIN = 1.3
 
 
@@ -255,21 +255,105 @@ def close_period(x: np.ndarray, y: np.ndarray, Lx: float) -> tuple[np.ndarray, n
     return np.append(x, x[0] + Lx), np.append(y, y[0])
 
 
-def draw_field(ax, obstacles: dict, box: tuple[float, float]) -> None:
-    """Obstacles on ``ax``: points as dots, finite particles as discs of their radius (nm)."""
+#: Periodic copies of one curve drawn at the most along each axis (a pinned line or a loop
+#: spans a few box heights at the very most; beyond this the rest is left out).
+MAX_COPIES = 8
+#: Colours of the obstacle populations (colour-blind-safe qualitative set, Okabe & Ito 2008),
+#: the line (C0), pins (C3) and loops (C1) keeping matplotlib's defaults.
+POPULATION_COLOURS = ("#7f7f7f", "#009E73", "#CC79A7", "#56B4E9", "#E69F00", "#0072B2",
+                      "#D55E00", "#F0E442")
+LINE_COLOUR, PIN_COLOUR, LOOP_COLOUR = "C0", "C3", "C1"
+
+
+def periodic_polyline(x: np.ndarray, y: np.ndarray, box: tuple[float, float],
+                      closed: bool = False) -> tuple[np.ndarray, np.ndarray]:
+    """Every periodic copy of a curve (nm, unwrapped) that overlaps the box, one polyline with NaN
+    between copies: drawn in axes limited to the box, the curve runs unbroken through the box
+    sides (a copy enters where the other leaves).
+
+    Parameters
+    ----------
+    x, y : ndarray, shape (n,)
+        Nodes (nm), unwrapped (neighbours closer than half a period).
+    box : (Lx, Ly)
+        Box sides (nm).
+    closed : bool
+        Join the last node to the first (a loop).
+
+    Returns
+    -------
+    xs, ys : ndarray
+        At most MAX_COPIES² copies, shifted by whole periods.
+    """
+    if x.size == 0:
+        return x, y
+    if closed:
+        x, y = np.append(x, x[0]), np.append(y, y[0])
+    Lx, Ly = box
+    ix = np.arange(np.floor(x.min() / Lx), np.floor(x.max() / Lx) + 1)[:MAX_COPIES]
+    iy = np.arange(np.floor(y.min() / Ly), np.floor(y.max() / Ly) + 1)[:MAX_COPIES]
+    parts_x, parts_y = [], []
+    for i in ix:
+        for j in iy:
+            parts_x += [x - i * Lx, [np.nan]]
+            parts_y += [y - j * Ly, [np.nan]]
+    return np.concatenate(parts_x), np.concatenate(parts_y)
+
+
+def population_names(obstacles: dict) -> list[str]:
+    """The populations of ``obstacles.csv`` in order of appearance (["obstacles"] without the
+    column)."""
+    if "population" not in obstacles:
+        return ["obstacles"]
+    return list(dict.fromkeys(str(p) for p in obstacles["population"]))
+
+
+def draw_field(ax, obstacles: dict, box: tuple[float, float]) -> list:
+    """Obstacles on ``ax``: points as dots, finite particles as discs of their radius (nm), each
+    population in its own colour (:data:`POPULATION_COLOURS`); discs overlapping a box side are
+    drawn at their periodic images too.  Returns one legend handle per population."""
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
+
     Lx, Ly = box
     x, y, r = obstacles["x_nm"], obstacles["y_nm"], obstacles["radius_nm"]
-    points = r <= 0
-    ax.scatter(x[points], y[points], s=8, color="0.25", linewidths=0, zorder=2)
-    if (~points).any():
-        d = 2 * r[~points]
-        ax.add_collection(EllipseCollection(
-            d, d, np.zeros_like(d), units="xy", offsets=np.column_stack([x[~points], y[~points]]),
-            offset_transform=ax.transData, facecolors="0.75", edgecolors="0.35", zorder=2))
+    pops = (np.asarray(obstacles["population"]).astype(str) if "population" in obstacles
+            else np.full(x.shape, "obstacles"))
+    handles = []
+    for k, name in enumerate(population_names(obstacles)):
+        colour = POPULATION_COLOURS[k % len(POPULATION_COLOURS)]
+        sel = pops == name
+        points, discs = sel & (r <= 0), sel & (r > 0)
+        ax.scatter(x[points], y[points], s=8, color=colour, linewidths=0, zorder=2)
+        if discs.any():
+            cx, cy, d = _disc_images(x[discs], y[discs], r[discs], box)
+            ax.add_collection(EllipseCollection(
+                d, d, np.zeros_like(d), units="xy", offsets=np.column_stack([cx, cy]),
+                offset_transform=ax.transData, facecolors=colour, edgecolors="0.3",
+                linewidths=0.5, alpha=0.6, zorder=2))
+        label = f"{name} ({int(sel.sum())})"
+        handles.append(Patch(facecolor=colour, edgecolor="0.3", alpha=0.6, label=label)
+                       if discs.any() else Line2D([], [], marker="o", linestyle="none",
+                                                  color=colour, markersize=4, label=label))
     ax.add_patch(_box_patch(Lx, Ly))
     ax.set_xlim(0, Lx)
     ax.set_ylim(0, Ly)
     ax.set_aspect("equal")
+    return handles
+
+
+def _disc_images(x, y, r, box):
+    """Centres and diameters of discs and of the periodic images of those crossing a side."""
+    Lx, Ly = box
+    cx, cy, rr = [x], [y], [r]
+    for sx in (-Lx, 0.0, Lx):
+        for sy in (-Ly, 0.0, Ly):
+            if sx == 0.0 and sy == 0.0:
+                continue
+            px, py = x + sx, y + sy
+            near = (px + r > 0) & (px - r < Lx) & (py + r > 0) & (py - r < Ly)
+            cx.append(px[near]), cy.append(py[near]), rr.append(r[near])
+    return np.concatenate(cx), np.concatenate(cy), 2 * np.concatenate(rr)
 
 
 def _box_patch(Lx: float, Ly: float):
@@ -279,15 +363,43 @@ def _box_patch(Lx: float, Ly: float):
 
 
 def draw_line(ax, x, y, pinned, box, **style):
-    """A line (nm, unwrapped) folded into the box, its pinned nodes marked; returns the artists.
+    """A line (nm, unwrapped) with its periodic copies in the box, its pinned nodes marked;
+    returns the artists (curve, pins), labelled for a legend.
 
     The files hold nodes 0..n-1 of the periodic line; node n is node 0 shifted by Lx.
     """
-    xw, yw = wrap_polyline(*close_period(x, y, box[0]), box)
-    (curve,) = ax.plot(xw, yw, color=style.get("color", "C0"), linewidth=2.0, zorder=3)
-    (pins,) = ax.plot(np.mod(x[pinned], box[0]), np.mod(y[pinned], box[1]), "o", color="C3",
-                      markersize=5, zorder=4)
+    xs, ys = periodic_polyline(*close_period(x, y, box[0]), box)
+    (curve,) = ax.plot(xs, ys, color=style.get("color", LINE_COLOUR), linewidth=2.0, zorder=3,
+                       label="dislocation line")
+    (pins,) = ax.plot(np.mod(x[pinned], box[0]), np.mod(y[pinned], box[1]), "o",
+                      color=PIN_COLOUR, markersize=5, zorder=4, label="pinned points")
     return curve, pins
+
+
+def loop_polylines(loops: dict | None, box) -> tuple[np.ndarray, np.ndarray]:
+    """Every loop of ``loops.csv`` (closed, with its periodic copies) as one NaN-separated
+    polyline (empty without loops)."""
+    if loops is None or not len(loops["loop"]):
+        return np.zeros(0), np.zeros(0)
+    xs, ys = [], []
+    for k in np.unique(loops["loop"]):
+        sel = loops["loop"] == k
+        px, py = periodic_polyline(loops["x_nm"][sel], loops["y_nm"][sel], box, closed=True)
+        xs.append(px), ys.append(py)
+    return np.concatenate(xs), np.concatenate(ys)
+
+
+def draw_loops(ax, loops: dict | None, box):
+    """The Orowan loops (as relaxed onto their particles, dlsim.loops); returns the artist, or
+    None without loops."""
+    xs, ys = loop_polylines(loops, box)
+    if not xs.size:
+        return None
+    count = len(np.unique(loops["loop"]))
+    # over the line, thinner: a loop hugging a particle the line also wraps stays visible
+    (art,) = ax.plot(xs, ys, color=LOOP_COLOUR, linewidth=1.2, zorder=3.5,
+                     label=f"Orowan loops ({count}, relaxed)")
+    return art
 
 
 @_styled
@@ -313,24 +425,34 @@ def plot_run(folder) -> list[Path]:
     return paths
 
 
-def _field_figure(run: dict, box) -> Figure:
+def _axes(ax):
+    """A new slide-sized figure and its axes, or the figure of the axes given."""
+    if ax is not None:
+        return ax.figure, ax
     fig = _figure()
-    ax = fig.add_subplot()
-    draw_field(ax, run["obstacles"], box)
+    return fig, fig.add_subplot()
+
+
+def _field_figure(run: dict, box, ax=None) -> Figure:
+    """The field of realization 0: obstacles by population, the pinned line at the CRSS with its
+    periodic copies, its pins and the relaxed Orowan loops, with a legend of each (``ax``: draw
+    there instead of a new figure)."""
+    fig, ax = _axes(ax)
+    handles = draw_field(ax, run["obstacles"], box)
     line = run["line"]
     if line is not None and len(line["x_nm"]):
-        draw_line(ax, line["x_nm"], line["y_nm"], line["pinned"].astype(bool), box)
-    loops = run["loops"]
+        handles = list(draw_line(ax, line["x_nm"], line["y_nm"], line["pinned"].astype(bool),
+                                 box)) + handles
+    loops = draw_loops(ax, run["loops"], box)
     if loops is not None:
-        for k in np.unique(loops["loop"]):
-            sel = loops["loop"] == k
-            lx, ly = np.append(loops["x_nm"][sel], loops["x_nm"][sel][:1]), \
-                np.append(loops["y_nm"][sel], loops["y_nm"][sel][:1])
-            # Under the line (zorder 2.5), so the final configuration stays readable.
-            ax.plot(*wrap_polyline(lx, ly, box), color="C1", linewidth=1.0, zorder=2.5)
+        handles.insert(2, loops)
     ax.set_xlabel("x (nm)")
     ax.set_ylabel("glide direction y (nm)")
     ax.set_title(_field_title(run["result"]))
+    # below the box, so it hides no obstacle (beside it, the square axes and a long legend
+    # overflowed the figure under the constrained layout)
+    ax.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, -0.13), ncol=3,
+              frameon=False, fontsize="small", columnspacing=1.0, handlelength=1.5)
     return fig
 
 
@@ -348,38 +470,99 @@ def _mpa(value) -> str:
     return "no CRSS" if value is None else f"{value:.4g} MPa"
 
 
-def _area_figure(run: dict, box) -> Figure:
-    """Stress against the area swept from the straight start (mean glide × Lx)."""
+def run_estimates(res: dict) -> dict[str, float]:
+    """The analytic estimates of a run as applied stresses (MPa): each obstacle estimate plus
+    the friction stress, so they compare with the CRSS; ``{label: value}``."""
+    from .analytic import ESTIMATES
+
+    est = res.get("estimates_MPa") or {}
+    friction = res.get("friction_MPa") or 0.0
+    return {ESTIMATES.get(k, (k.replace("_", " "), ""))[0]: v + friction
+            for k, v in est.items() if v is not None and np.isfinite(v)}
+
+
+def _area_figure(run: dict, box, ax=None) -> Figure:
+    """Stress against the mean glide distance from the straight start (swept area / Lx, in
+    L_s), every realization (realization 0 highlighted with its states and bracket), the mean
+    CRSS and the analytic estimates as labelled horizontal lines (``ax``: draw there)."""
     hist, res = run["history"], run["result"]
-    if "realization" in hist:       # the curve of realization 0, with its own CRSS and bracket
-        sel = hist["realization"] == 0
-        hist = {k: v[sel] for k, v in hist.items()}
-    first = res["realizations"][0]
-    area = hist["mean_glide_nm"] * box[0]
-    stress = hist["stress_MPa"]
+    spacing = res["spacing_nm"]
+    glide = hist["mean_glide_nm"] / spacing
+    real = hist["realization"] if "realization" in hist else np.zeros(glide.shape)
     pinned = hist["state"] == "pinned"
-    top = AREA_AXIS_MARGIN * area[pinned].max() if pinned.any() and area[pinned].max() > 0 else None
-    fig = _figure()
-    ax = fig.add_subplot()
-    lo, hi = first["crss_bracket_MPa"]
+    top = AREA_AXIS_MARGIN * glide[pinned].max() if pinned.any() and glide[pinned].max() > 0 \
+        else None
+    fig, ax = _axes(ax)
+    several = len(np.unique(real)) > 1
+    for r in np.unique(real)[::-1]:         # realization 0 last, on top
+        sel = pinned & (real == r)
+        order = np.argsort(glide[sel])
+        label = ("realization 0" if r == 0 else "other realizations" if r == 1 else None)
+        ax.plot(glide[sel][order], hist["stress_MPa"][sel][order],
+                color="C0" if r == 0 else "0.7", linewidth=2.0 if r == 0 else 1.0,
+                zorder=3 if r == 0 else 2, label=label if several else None)
+    first = res["realizations"][0]
     if first["crss_MPa"] is not None:
-        ax.axhspan(lo, hi, color="C2", alpha=0.25, linewidth=0)
-        who = "realization 0 " if res["realizations_count"] > 1 else ""
-        ax.axhline(first["crss_MPa"], color="C2", linestyle="--",
-                   label=f"{who}CRSS {first['crss_MPa']:.4g} MPa")
-    order = np.argsort(area[pinned])
-    ax.plot(area[pinned][order], stress[pinned][order], color="0.6", linewidth=1.0)
-    for state, marker in STATE_MARKERS.items():
-        sel = hist["state"] == state
-        if sel.any():
-            xs = np.minimum(area[sel], top) if top else area[sel]
-            ax.plot(xs, stress[sel], marker, linestyle="none", label=state, clip_on=False)
+        ax.axhspan(*first["crss_bracket_MPa"], color="C2", alpha=0.25, linewidth=0,
+                   label="realization 0 CRSS bracket")
+    if res["crss_MPa"] is not None:
+        n = res["realizations_count"]
+        ax.axhline(res["crss_MPa"], color="C2", linestyle="--",
+                   label=(f"mean CRSS of {n} realizations " if n > 1 else "CRSS ")
+                   + f"{res['crss_MPa']:.4g} MPa")
+    _state_markers(ax, glide[real == 0], hist["stress_MPa"][real == 0],
+                   hist["state"][real == 0], top)
     if top:
-        ax.set_xlim(0, top)
-    ax.set_xlabel("area swept from the straight start (nm$^2$)")
+        ax.set_xlim(0, top * (1 + FLOW_MARKER_PAD))
+    ax.set_xlabel("mean glide from the straight start ($L_s$)")
     ax.set_ylabel("applied stress τ (MPa)")
-    ax.legend(loc="lower right", frameon=False)
+    ax.set_ylim(bottom=0)
+    _estimate_lines(ax, run_estimates(res))
+    # below the axes: inside, it would cover the curve or the estimates' labels
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.14), ncol=2, frameon=False,
+              fontsize="small")
     return fig
+
+
+#: Flowing relaxations sit at the right edge of the glide axis; the axis runs this fraction
+#: beyond it so their markers are drawn whole.
+FLOW_MARKER_PAD = 0.06
+
+
+def _state_markers(ax, glide, stress, state, top) -> None:
+    """Realization 0's relaxations by state; those that glided beyond the axis at its edge."""
+    for name, (marker, colour) in STATE_MARKERS.items():
+        sel = state == name
+        if sel.any():
+            beyond = top is not None and (glide[sel] > top).any()
+            xs = np.minimum(glide[sel], top) if top else glide[sel]
+            ax.plot(xs, stress[sel], marker, color=colour, linestyle="none", zorder=4,
+                    label=name + (" (glided beyond the axis)" if beyond else ""))
+
+
+def _estimate_lines(ax, estimates: dict[str, float]) -> None:
+    """Horizontal lines at the analytic estimates, each labelled at the right end; labels of
+    close values are moved apart (at least LABEL_GAP of the axes height) so none overlap."""
+    if not estimates:
+        return
+    lo, hi = ax.get_ylim()
+    hi = max(hi, max(estimates.values()) * (1 + LABEL_GAP))
+    ax.set_ylim(lo, hi)
+    order = sorted(estimates.items(), key=lambda kv: kv[1])
+    place = [(v - lo) / (hi - lo) for _, v in order]
+    for k in range(1, len(place)):
+        place[k] = max(place[k], place[k - 1] + LABEL_GAP)
+    for k, ((label, value), at) in enumerate(zip(order, place)):
+        ax.axhline(value, color="0.35", linestyle=ESTIMATE_STYLES[k % len(ESTIMATE_STYLES)],
+                   linewidth=1.2, zorder=1)
+        ax.annotate(f"{label} {value:.4g} MPa", (0.99, at), xycoords="axes fraction",
+                    ha="right", va="bottom", fontsize="x-small", color="0.25",
+                    annotation_clip=False)
+
+
+#: Smallest distance between two estimate labels, as a fraction of the axes height (an x-small
+#: label is about 3 % of a slide figure's axes).
+LABEL_GAP = 0.04
 
 
 def plot_dir(folder, quantity: str = "crss") -> list[Path]:
