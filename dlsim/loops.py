@@ -18,13 +18,19 @@ Every loop's work is bounded (a loop around a cluster of points once looped for 
   relaxation with status ``full`` (the loop is kept as it is then);
 - obstacles are found through the periodic cell list of the field (the cells the area a segment
   sweeps covers), never by a scan of every obstacle;
-- the two sides of a loop that meet (between two obstacles it holds, both pushed inward) end
-  the relaxation with status ``pinched``: the loop is kept as it is then, no splitting queue.
+- where the two sides of a loop meet, the part that holds nothing is cut off and dropped (the
+  tails of a freshly cut loop, a free lobe); when both parts hold obstacles (the sides meet
+  between two obstacles it holds) the relaxation ends with status ``pinched`` and the loop is
+  kept as it is then: no splitting queue.  A cut removes at least LOOP_CONTACT_GAP - 1 nodes and
+  takes one of the ``max_steps`` passes.
 
 Statuses (:data:`LOOP_STATUS_NAMES`): ``relaxed`` (equilibrium within the tolerance),
 ``collapsed`` (shrank below three minimal segments: an empty loop is dropped, a loop round a point
 obstacle of zero size is kept as the tiny polygon it became), ``unrelaxed`` (the step budget ran
-out), ``full``, ``pinched``.
+out), ``full``, ``pinched``, ``expanding``: a stored loop of the opposite sense (clockwise for a
+line along +x gliding +y under τ > 0; the stepper cuts off such loops, e.g. a forward bulge
+pinched off between obstacles, not an Orowan loop) is pushed outward by the stress and would grow
+without bound, so it is left as it was cut off.
 """
 from __future__ import annotations
 
@@ -51,7 +57,8 @@ LOOP_COLLAPSED = 1
 LOOP_UNRELAXED = 2
 LOOP_FULL = 3
 LOOP_PINCHED = 4
-LOOP_STATUS_NAMES = ("relaxed", "collapsed", "unrelaxed", "full", "pinched")
+LOOP_EXPANDING = 5
+LOOP_STATUS_NAMES = ("relaxed", "collapsed", "unrelaxed", "full", "pinched", "expanding")
 
 #: Nodes of one loop at the most (captures or splits beyond it end the relaxation, status full).
 MAX_LOOP_NODES = 2048
@@ -92,8 +99,8 @@ def _loop_velocities(x, y, pin, n, prm, ofc, released_flag, work):
     Forces as in :func:`dlsim.kernels.node_pass`: line tension Γ (t_i − t_{i−1}) plus
     Peach–Koehler ½ τ ẑ × (r_{i+1} − r_{i−1}); at a free node the local stress F·n/l less the
     friction threshold drives the node along the chord normal; a pinned node whose force
-    exceeds its obstacle's critical force is released (and flagged in ``released_flag``, so
-    the loop never captures it again).
+    exceeds its obstacle's critical force is released (it stays flagged in ``released_flag``,
+    so the loop never captures it again).
 
     Returns (largest effective stress on a free node, pins released, perimeter).
     """
@@ -209,9 +216,9 @@ def _remesh_loop(x, y, pin, n, prm, buf):
 
 @njit(**JIT)
 def _sides_meet(x, y, pin, n, dist, order):
-    """Whether two nodes at least LOOP_CONTACT_GAP places apart along the loop, one free, lie
-    closer than ``dist`` with near-antiparallel chord tangents (a sweep over the nodes sorted
-    by x: O(n log n) plus the close pairs)."""
+    """Two nodes at least LOOP_CONTACT_GAP places apart along the loop, one free, closer than
+    ``dist`` with near-antiparallel chord tangents: the loop's sides meeting.  A sweep over the
+    nodes sorted by x (O(n log n) plus the close pairs).  Returns (i, j), i < j, or (-1, -1)."""
     order[:n] = np.argsort(x[:n])
     d2 = dist * dist
     for a in range(n):
@@ -230,8 +237,40 @@ def _sides_meet(x, y, pin, n, dist, order):
             tjx, tjy = x[(j + 1) % n] - x[(j - 1) % n], y[(j + 1) % n] - y[(j - 1) % n]
             norm = np.sqrt((tix * tix + tiy * tiy) * (tjx * tjx + tjy * tjy))
             if norm > 0.0 and tix * tjx + tiy * tjy < LOOP_CONTACT_COS * norm:
-                return True
-    return False
+                return min(i, j), max(i, j)
+    return -1, -1
+
+
+@njit(**JIT)
+def _cut_free_part(x, y, pin, n, i, j):
+    """Where the sides meet at nodes i < j, cut the loop in two at the contact (joined at the
+    midpoint of i and j) and drop the part that holds no obstacle: it is a free loop, which
+    shrinks away (when neither holds one, the shorter is dropped).  Returns the new count, or -1 when both parts hold obstacles (nothing done)."""
+    inner = False
+    for q in range(i + 1, j):
+        inner |= pin[q] >= 0
+    outer = False
+    for q in range(j + 1, n + i):
+        outer |= pin[q % n] >= 0
+    if inner and outer:
+        return -1
+    mx, my = 0.5 * (x[i] + x[j]), 0.5 * (y[i] + y[j])
+    # the part holding obstacles stays; when neither does, the longer (it may still meet some)
+    if inner or (not outer and j - i - 1 > n - (j - i) - 1):    # keep i+1 .. j-1, the joint
+        m = 0
+        for q in range(i + 1, j):
+            x[m], y[m], pin[m] = x[q], y[q], pin[q]
+            m += 1
+    else:              # keep j+1 .. n-1, 0 .. i-1 and the joint
+        m = 0
+        for q in range(i):
+            x[m], y[m], pin[m] = x[q], y[q], pin[q]
+            m += 1
+        for q in range(j + 1, n):
+            x[m], y[m], pin[m] = x[q], y[q], pin[q]
+            m += 1
+    x[m], y[m], pin[m] = mx, my, -1
+    return m + 1
 
 
 @njit(**JIT)
@@ -248,14 +287,16 @@ def relax_loop(loop, n, field, prm):
         Nodes of the loop (>= MIN_LOOP_NODES).
     field : obstacle field tuple (dlsim.contract)
         Its occupancy row ``field[3]`` is this loop's own: zero where an obstacle may hold the
-        loop, set to 1 where the loop released one (never captured again); the caller zeroes it
-        before the next loop.
+        loop; set here to 1 where the loop holds or has released one (never captured again);
+        the caller zeroes it before the next loop.
     prm : LoopParameters
 
     Returns
     -------
     status : int
-        LOOP_RELAXED, LOOP_COLLAPSED, LOOP_UNRELAXED, LOOP_FULL or LOOP_PINCHED.
+        LOOP_RELAXED, LOOP_COLLAPSED, LOOP_UNRELAXED, LOOP_FULL, LOOP_PINCHED or LOOP_EXPANDING
+        (a loop of the opposite sense, clockwise under τ > 0, which the stress would expand
+        without bound: left as it was cut off).
     n : int
         Nodes of the relaxed loop.
     steps : int
@@ -274,6 +315,16 @@ def relax_loop(loop, n, field, prm):
     contact = LOOP_CONTACT_FRACTION * prm.l_min
     if n > cap:
         return LOOP_FULL, n, 0, 0
+    area = 0.0
+    for i in range(n):
+        j = (i + 1) % n
+        area += x[i] * y[j] - x[j] * y[i]
+    if prm.tau * area < 0.0:     # the stress pushes it outward: not a loop round its obstacles
+        return LOOP_EXPANDING, n, 0, 0
+    flags = field[3]
+    for i in range(n):        # what the loop holds is never captured a second time
+        if pin[i] >= 0:
+            flags[pin[i]] = 1
     releases = 0
     for step in range(prm.max_steps):
         max_te, released, perimeter = _loop_velocities(x, y, pin, n, prm, field[2], field[3],
@@ -289,12 +340,19 @@ def relax_loop(loop, n, field, prm):
         if n + ncap > cap:
             return LOOP_FULL, n, step + 1, releases
         n = _insert_captures(x, y, pin, n, ncap, caps)
+        for c in range(ncap):
+            flags[caps[2][c]] = 1
         n_new = _remesh_loop(x, y, pin, n, prm, buf)
         if n_new < 0:
             return LOOP_FULL, n, step + 1, releases
         n = n_new
-        if step % LOOP_CONTACT_EVERY == 0 and _sides_meet(x, y, pin, n, contact, order):
-            return LOOP_PINCHED, n, step + 1, releases
+        if step % LOOP_CONTACT_EVERY == 0:
+            i, j = _sides_meet(x, y, pin, n, contact, order)
+            if i >= 0:
+                n_cut = _cut_free_part(x, y, pin, n, i, j)
+                if n_cut < 0:
+                    return LOOP_PINCHED, n, step + 1, releases
+                n = n_cut
     return LOOP_UNRELAXED, n, prm.max_steps, releases
 
 
@@ -346,7 +404,9 @@ def relax_loops(loops: list, field: tuple, prm: LoopParameters):
         x[:n], y[:n], pin[:n] = lx, ly, lp
         code, m, taken, releases = (relax_loop((x, y, pin), n, field, prm)
                                     if n >= MIN_LOOP_NODES else (LOOP_COLLAPSED, n, 0, 0))
-        if releases:       # the next loop may be held by what this one released
+        flags[lp[lp >= 0]] = 0        # what this loop held, holds or released
+        flags[pin[:m][pin[:m] >= 0]] = 0
+        if releases:
             flags[:] = 0
         status[k], steps[k] = code, taken
         kept[k] = bool((pin[:m] >= 0).any())

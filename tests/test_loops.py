@@ -52,14 +52,27 @@ def teardrop_loop(rho):
     return CENTRE + r * np.cos(t), CENTRE + r * np.sin(t), np.full(t.size, -1, np.int64)
 
 
+def tailed_loop(rho, gap):
+    """A loop round the disc with the arms' long tails, ``gap`` apart, still attached above it
+    (as the stepper cuts a loop off where the arms touch)."""
+    half = np.arcsin(0.5 * gap / (1.5 * rho))
+    t = np.linspace(0.5 * np.pi + half, 2.5 * np.pi - half, 50)
+    cx, cy = CENTRE + 1.5 * rho * np.cos(t), CENTRE + 1.5 * rho * np.sin(t)
+    top = np.linspace(cy[-1], cy[-1] + 4 * rho, 12)[1:]
+    x = np.concatenate([cx, np.full(top.size, cx[-1]), np.full(top.size, cx[0])])
+    y = np.concatenate([cy, top, top[::-1]])
+    return x, y, np.full(x.size, -1, np.int64)
+
+
 def relax(field, loop, prm):
     return relax_loops([loop], field_tuple(field), prm)
 
 
-@pytest.mark.parametrize("shape", ["circle", "teardrop"])
+@pytest.mark.parametrize("shape", ["circle", "teardrop", "tails"])
 def test_loop_around_impenetrable_disc_hugs_the_disc(shape):
     rho = 30.0
-    loop = circle_loop(2.5 * rho) if shape == "circle" else teardrop_loop(rho)
+    loop = {"circle": circle_loop(2.5 * rho), "teardrop": teardrop_loop(rho),
+            "tails": tailed_loop(rho, 0.2 * H)}[shape]
     kept, report = relax(disc_field(rho), loop, params())
     assert report.status[0] == LOOP_RELAXED and len(kept) == 1
     x, y, pin = kept[0]
@@ -72,6 +85,14 @@ def test_loop_around_impenetrable_disc_hugs_the_disc(shape):
     area = 0.5 * abs(np.dot(x, np.roll(y, -1)) - np.dot(y, np.roll(x, -1)))
     assert area == pytest.approx(np.pi * rho ** 2, rel=0.03)
     assert np.count_nonzero(pin >= 0) >= 0.9 * pin.size
+
+
+def test_loop_of_opposite_sense_is_left_as_cut_off():
+    # clockwise under τ > 0: the stress pushes it outward, it would grow without bound
+    x, y, pin = circle_loop(60.0)
+    kept, report = relax(disc_field(30.0), (x[::-1], y[::-1], pin), params())
+    assert LOOP_STATUS_NAMES[report.status[0]] == "expanding" and report.steps[0] == 0
+    assert kept == []       # it holds nothing
 
 
 def test_empty_loop_shrinks_away():
