@@ -245,7 +245,8 @@ def _sides_meet(x, y, pin, n, dist, order):
 def _cut_free_part(x, y, pin, n, i, j):
     """Where the sides meet at nodes i < j, cut the loop in two at the contact (joined at the
     midpoint of i and j) and drop the part that holds no obstacle: it is a free loop, which
-    shrinks away (when neither holds one, the shorter is dropped).  Returns the new count, or -1 when both parts hold obstacles (nothing done)."""
+    shrinks away (when neither holds one, the shorter is dropped).  Returns the new count, or -1
+    when both parts hold obstacles (nothing done)."""
     inner = False
     for q in range(i + 1, j):
         inner |= pin[q] >= 0
