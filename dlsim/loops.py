@@ -84,8 +84,6 @@ LOOP_MOVE_FRACTION = 0.25
 LOOP_CONTACT_FRACTION = 0.5
 LOOP_CONTACT_GAP = 3
 LOOP_CONTACT_COS = -0.5
-#: The sides are searched for contact every this many steps (a sort of the nodes along x).
-LOOP_CONTACT_EVERY = 1
 
 
 # --------------------------------------------------------------------------- kernels
@@ -347,13 +345,12 @@ def relax_loop(loop, n, field, prm):
         if n_new < 0:
             return LOOP_FULL, n, step + 1, releases
         n = n_new
-        if step % LOOP_CONTACT_EVERY == 0:
-            i, j = _sides_meet(x, y, pin, n, contact, order)
-            if i >= 0:
-                n_cut = _cut_free_part(x, y, pin, n, i, j)
-                if n_cut < 0:
-                    return LOOP_PINCHED, n, step + 1, releases
-                n = n_cut
+        i, j = _sides_meet(x, y, pin, n, contact, order)       # every step
+        if i >= 0:
+            n_cut = _cut_free_part(x, y, pin, n, i, j)
+            if n_cut < 0:
+                return LOOP_PINCHED, n, step + 1, releases
+            n = n_cut
     return LOOP_UNRELAXED, n, prm.max_steps, releases
 
 
