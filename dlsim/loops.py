@@ -43,6 +43,7 @@ from numba import njit
 from dlsim.contract import M_NLOOPNODES, M_NLOOPS
 from dlsim.jit import JIT
 from dlsim.kernels import _capture_in_quad, _sort_captures
+from dlsim.solver import field_tuple  # noqa: F401  (the kernels' field group; re-exported)
 
 #: The parameters of a loop relaxation (reduced units): constant line tension Γ (G b²), applied
 #: and friction stress (G), mobility, the remesher's segment bounds (b), the equilibrium
@@ -387,7 +388,7 @@ def loop_parameters(gamma: float, tau: float, tau_f: float, l_min: float, l_max:
 
 
 def relax_loops(loops: list, field: tuple, prm: LoopParameters):
-    """Relax each loop ``(x, y, pin)`` (b) alone in ``field`` (:func:`field_tuple`; its
+    """Relax each loop ``(x, y, pin)`` (b) alone in ``field`` (:func:`dlsim.solver.field_tuple`; its
     occupancy row is overwritten); return the relaxed loops (those still holding an obstacle)
     and a :class:`LoopReport`."""
     flags = field[3]
@@ -411,17 +412,6 @@ def relax_loops(loops: list, field: tuple, prm: LoopParameters):
         if kept[k]:
             out.append((x[:m].copy(), y[:m].copy(), pin[:m].copy()))
     return out, LoopReport(status, steps, kept, float(prm.tau))
-
-
-def field_tuple(obstacles) -> tuple:
-    """The kernels' ``field`` group (dlsim.contract) of an :class:`dlsim.fields.ObstacleField`,
-    occupancy zero (a loop relaxes alone)."""
-    cstart, citems, ncx, ncy = obstacles.cell_list()
-    return (np.ascontiguousarray(obstacles.x, dtype=np.float64),
-            np.ascontiguousarray(obstacles.y, dtype=np.float64),
-            np.ascontiguousarray(obstacles.fc, dtype=np.float64),
-            np.zeros(obstacles.n, np.int64), cstart, citems, int(ncx), int(ncy),
-            float(obstacles.Lx), float(obstacles.Ly))
 
 
 def relax_state_loops(state, obstacles, prm: LoopParameters, field: tuple | None = None

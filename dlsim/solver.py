@@ -186,21 +186,28 @@ class CrssResult:
     counters: dict = field(default_factory=dict)
 
 
+def field_tuple(obstacles: ObstacleField) -> tuple:
+    """The kernels' ``field`` group (dlsim.contract) of ``obstacles``, occupancy zero."""
+    cstart, citems, ncx, ncy = obstacles.cell_list()
+    return (np.ascontiguousarray(obstacles.x, dtype=np.float64),
+            np.ascontiguousarray(obstacles.y, dtype=np.float64),
+            np.ascontiguousarray(obstacles.fc, dtype=np.float64),
+            np.zeros(obstacles.n, np.int64), cstart, citems, int(ncx), int(ncy),
+            float(obstacles.Lx), float(obstacles.Ly))
+
+
 class Relaxer:
     """Relaxes a line at fixed stress in one obstacle field (holds the field's kernel arrays)."""
 
     def __init__(self, obstacles: ObstacleField, model: LineModel):
         self.field = obstacles
         self.model = model
-        self.ox = np.ascontiguousarray(obstacles.x, dtype=np.float64)
-        self.oy = np.ascontiguousarray(obstacles.y, dtype=np.float64)
-        self.ofc = np.ascontiguousarray(obstacles.fc, dtype=np.float64)
-        self.cstart, self.citems, self.ncx, self.ncy = obstacles.cell_list()
+        self._arrays = field_tuple(obstacles)
 
     def field_arrays(self, opin: np.ndarray) -> tuple:
         """The kernels' ``field`` group (dlsim.contract) with the occupancy ``opin``."""
-        return (self.ox, self.oy, self.ofc, opin, self.cstart, self.citems, int(self.ncx),
-                int(self.ncy), float(self.field.Lx), float(self.field.Ly))
+        f = self._arrays
+        return f[:3] + (opin,) + f[4:]
 
     def parameters(self, tau: float, area_ref: float, protocol: Protocol) -> np.record:
         """The kernels' parameter record of a relaxation at stress ``tau`` (dlsim.contract)."""
