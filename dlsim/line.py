@@ -15,6 +15,9 @@ from . import contract as C
 from . import kernels as K
 from .contract import MIN_CAPACITY
 
+#: Rows of segment pairs tested at once by :meth:`LineState.self_crossings` (bounds its memory).
+CROSSING_CHUNK = 512
+
 
 @dataclass
 class LineState:
@@ -119,8 +122,42 @@ class LineState:
         """Mean position of the line in the glide direction (b)."""
         return self.area() / self.Lx
 
+    def self_crossings(self) -> int:
+        """Pairs of non-adjacent segments of one period that cross, images in x included.
+
+        A diagnostic of the final lines (a line that crosses itself holds a loop it should have
+        cut off); O(n²) in chunks, so meant for results and tests, not for a time step.
+        """
+        n = self.n
+        x = np.append(self.x[:n], self.x[0] + self.Lx)
+        y = np.append(self.y[:n], self.y[0])
+        ax, ay, bx, by = x[:-1], y[:-1], x[1:], y[1:]
+        count = 0
+        for shift in (0.0, self.Lx):
+            for lo in range(0, n, CROSSING_CHUNK):
+                i = np.arange(lo, min(n, lo + CROSSING_CHUNK))[:, None]
+                j = np.arange(n)[None, :]
+                hit = _segments_cross(ax[i], ay[i], bx[i], by[i],
+                                      ax[j] + shift, ay[j], bx[j] + shift, by[j])
+                gap = (j - i) % n
+                if shift == 0.0:
+                    hit &= (j > i) & (gap != 1) & (gap != n - 1)
+                else:   # segment j one period to the right: adjacent only across node n = node 0
+                    hit &= ~((i == n - 1) & (j == 0))
+                count += int(np.count_nonzero(hit))
+        return count
+
     def loops(self) -> list[tuple[np.ndarray, np.ndarray, np.ndarray]]:
         """Each recorded loop as (x, y, pin) arrays (b)."""
         off = self.loop_off
         return [(self.loop_x[off[k]:off[k + 1]].copy(), self.loop_y[off[k]:off[k + 1]].copy(),
                  self.loop_pin[off[k]:off[k + 1]].copy()) for k in range(self.n_loops)]
+
+
+def _segments_cross(ax, ay, bx, by, cx, cy, dx, dy) -> np.ndarray:
+    """Whether segments AB and CD cross at a point interior to both (strict orientation test)."""
+    def orient(px, py, qx, qy, rx, ry):
+        return np.sign((qx - px) * (ry - py) - (qy - py) * (rx - px))
+
+    return ((orient(ax, ay, bx, by, cx, cy) * orient(ax, ay, bx, by, dx, dy) < 0)
+            & (orient(cx, cy, dx, dy, ax, ay) * orient(cx, cy, dx, dy, bx, by) < 0))
