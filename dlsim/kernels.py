@@ -8,8 +8,10 @@ a status code, so Python costs nothing per step.
 
 The nodal forces are the energy-consistent forms of docs/physics.md (exact for straight segments):
 line tension ``F_i = Γ (t_i - t_{i-1})`` and Peach–Koehler ``F_i = ½ τ ẑ × (r_{i+1} - r_{i-1})``
-(Hirth & Lothe, *Theory of Dislocations*, 1982, ch. 3 and 6).  Lattice friction is a threshold on
-the local driving stress; motion is overdamped, ``v = M τ_eff n``.
+(Hirth & Lothe, *Theory of Dislocations*, 1982, ch. 3 and 6); a free node is driven by
+``τ_loc = F_t·n/l + τ`` and a pin feels the force of the arcs its arms stand for, so that circular
+arcs of radius Γ/(τb) are exact at any node spacing (ARC_DRIVE, :func:`_arc_pin_force`).  Lattice
+friction is a threshold on the local driving stress; motion is overdamped, ``v = M τ_eff n``.
 """
 from __future__ import annotations
 
@@ -72,6 +74,12 @@ RECONNECT_COS = -0.5
 #: tangents more than 120° apart (RECONNECT_COS) cannot both lie within 60° of +x, so only such
 #: nodes can start a contact.
 TURNED_TX = 0.5
+#: ARC_DRIVE: a free node is driven by τ_loc = F_t·n/l + τ (F_t the line-tension force, n the unit
+#: chord normal, l the nodal length), not by the energy-consistent (F_t + ½ τ ẑ×c)·n/l: nodes on a
+#: circle of radius Γ/(τb) are then exactly at rest whatever the node spacing, where the
+#: energy-consistent form bows the discrete line to Γ/(τb cos θ), θ = asin(l/2R) (a line stiffer
+#: by √(1 + (l/2R)²): +2.6 % on the square-array Orowan stress at 0.2 L, arc construction as the
+#: reference).  Both forms have the same continuum limit.
 #: relax_line's loop runs at most this many passes per time step allowed: a pass that releases
 #: pins or reconnects does not move the line and is followed by another (a bound, never reached
 #: in practice, that keeps a line that would release and reconnect for ever from hanging).
@@ -107,17 +115,40 @@ def nodal_forces(x, y, n, prm, tau_node, fx, fy):
         fy[i] = gamma * (by / b - ay / a) + half * (xp - xm)
 
 
+@njit(**JIT, inline="always")
+def _arc_pin_force(uax, uay, a, ubx, uby, b, curvature_half, gamma):
+    """|Γ (t_b − t_a)| at a pin, t_a, t_b the tangents there of the arcs its two arms stand for.
+
+    Under a uniform stress each arm of a constant-Γ line is, in equilibrium, a circular arc of
+    radius R = Γ/(τb) through its end nodes (docs/physics.md); its tangent at the pin is the chord
+    direction turned by the half-angle θ, sin θ = l/(2R), towards the side the arc bows to.  The
+    force of the arcs on the pin is exactly Γ (t_b − t_a); the chords' Γ (u_b − u_a) plus the
+    Peach–Koehler force of the half-segments reads the arm angle too open by θ_a/2 + θ_b/2, which
+    releases pins late at coarse node spacing.  ``curvature_half`` is τ/(2Γ) = 1/(2R) (b⁻¹, signed
+    with τ); an arm longer than 2R is taken as a half-circle.
+    """
+    sa = min(max(curvature_half * a, -1.0), 1.0)
+    sb = min(max(curvature_half * b, -1.0), 1.0)
+    ca = np.sqrt(1.0 - sa * sa)
+    cb = np.sqrt(1.0 - sb * sb)
+    # t_b = cos θ_b u_b + sin θ_b ẑ×u_b, t_a = cos θ_a u_a − sin θ_a ẑ×u_a
+    fx = (cb * ubx - sb * uby) - (ca * uax + sa * uay)
+    fy = (cb * uby + sb * ubx) - (ca * uay - sa * uax)
+    return gamma * np.sqrt(fx * fx + fy * fy)
+
+
 @njit(**JIT)
 def node_pass(line, n, prm, work_f):
     """Forces, friction and velocities of every node in one pass over the line.
 
-    At a free node the local driving stress ``τ_loc = F·n/l`` (``F`` line tension plus
-    Peach–Koehler, ``n`` the normal of the chord r_{i+1} − r_{i−1}, ``l`` the nodal length) is
+    At a free node the local driving stress ``τ_loc = F_t·n/l + τ`` (``F_t`` the line-tension
+    force, ``n`` the normal of the chord r_{i+1} − r_{i−1}, ``l`` the nodal length; ARC_DRIVE) is
     reduced by the friction threshold τ_f (no motion while |τ_loc| <= τ_f); the node moves along
     ``n`` at ``M τ_eff``.  A pinned node does not move; row W_FPIN receives the magnitude of the
-    force the line exerts on it, with the Peach–Koehler part reduced by friction like everywhere
-    else, and at a free node its line stiffness ``2 M Γ_s/(a b)`` (per time unit, Γ_s =
-    prm.stiffness; STEP_STIFFNESS).  Rows W_FEX, W_FEY hold nodal forces of a line-tension model
+    force the line exerts on it (constant Γ: the arcs' force, :func:`_arc_pin_force`; other
+    models: the chords' line tension plus the Peach–Koehler force of the half-segments), with the
+    stress reduced by friction like everywhere else, and at a free node its line stiffness
+    ``2 M Γ_s/(a b)`` (per time unit, Γ_s = prm.stiffness; STEP_STIFFNESS).  Rows W_FEX, W_FEY hold nodal forces of a line-tension model
     other than the constant one (de Wit–Koehler), added to ``Γ (t_i − t_{i−1})``; row W_TAU_INT
     an internal stress added to τ.  Rows W_NTX, W_NTY receive the unit chord tangent at each node.
     Each segment is computed once and carried to the next node, so every node's data is read once
@@ -193,15 +224,18 @@ def node_pass(line, n, prm, work_f):
             t_pk = max(abs(t_node) - tau_f, 0.0)
             if t_node < 0.0:
                 t_pk = -t_pk
-            px, py = tx - 0.5 * t_pk * cy, ty + 0.5 * t_pk * cx
-            fpin[i] = np.sqrt(px * px + py * py)
+            if gamma > 0.0:
+                fpin[i] = _arc_pin_force(uax, uay, a, ubx, uby, b, t_pk / (2.0 * gamma), gamma)
+            else:
+                px, py = tx - 0.5 * t_pk * cy, ty + 0.5 * t_pk * cx
+                fpin[i] = np.sqrt(px * px + py * py)
             vx[i] = 0.0
             vy[i] = 0.0
         else:
             if tnx < TURNED_TX:
                 turned += 1
-            # normal (-tny, tnx): F·n = ty tnx - tx tny + ½ τ c
-            t_loc = (ty * tnx - tx * tny + 0.5 * t_node * c) / (0.5 * (a + b))
+            # normal (-tny, tnx): τ_loc = F_t·n/l + τ (ARC_DRIVE)
+            t_loc = (ty * tnx - tx * tny) / (0.5 * (a + b)) + t_node
             t_eff = abs(t_loc) - tau_f
             if t_eff <= 0.0:
                 vx[i] = 0.0

@@ -67,12 +67,25 @@ def segment_pass(x, y, pin, Lx, lmin, lmax):
     return s / length[:, None], length, line_area(x, y, Lx), int(bad[0]) if len(bad) else -1
 
 
+def arc_pin_force(x, y, Lx, gamma, tau):
+    """|Γ (t_b − t_a)| at every node, t_a, t_b the end tangents of circular arcs of radius
+    Γ/(τ b) over the two arms, bowed to the side τ pushes (half-angle by arcsin, not by parts)."""
+    prev, nxt = neighbours(x, y, Lx)
+    r = np.stack([x, y], axis=1)
+    sa, sb = r - prev, nxt - r
+    la, lb = np.hypot(*sa.T), np.hypot(*sb.T)
+    ang_a = np.arctan2(sa[:, 1], sa[:, 0]) - np.arcsin(np.clip(tau * la / (2 * gamma), -1, 1))
+    ang_b = np.arctan2(sb[:, 1], sb[:, 0]) + np.arcsin(np.clip(tau * lb / (2 * gamma), -1, 1))
+    return gamma * np.hypot(np.cos(ang_b) - np.cos(ang_a), np.sin(ang_b) - np.sin(ang_a))
+
+
 def node_pass(x, y, pin, Lx, gamma, tau, tau_f, mobility, tau_int):
     """Velocities (n, 2), pin forces (n,), chord tangents (n, 2), max |τ_eff|, stiffness, vmax.
 
-    At a free node the driving stress along the chord normal n is τ_loc = F·n / l (l the nodal
-    length, F from :func:`nodal_forces`), reduced by τ_f; the node moves along n at M τ_eff.  At a
-    pinned node the PK stress is reduced by τ_f and the magnitude of the total force is returned.
+    At a free node the driving stress along the chord normal n is τ_loc = F_t·n / l + τ (l the
+    nodal length, F_t the line-tension force of :func:`nodal_forces`), reduced by τ_f; the node
+    moves along n at M τ_eff.  At a pinned node the PK stress is reduced by τ_f and the force of
+    the arcs the two arms stand for is returned (:func:`arc_pin_force`).
     """
     prev, nxt = neighbours(x, y, Lx)
     r = np.stack([x, y], axis=1)
@@ -83,14 +96,13 @@ def node_pass(x, y, pin, Lx, gamma, tau, tau_f, mobility, tau_int):
     normal = np.stack([-tchord[:, 1], tchord[:, 0]], axis=1)
     t_node = tau + tau_int
     free = pin < 0
-    f = nodal_forces(x, y, Lx, gamma, t_node)
-    t_loc = np.sum(f * normal, axis=1) / (0.5 * (a + b))
+    f = nodal_forces(x, y, Lx, gamma, np.zeros_like(t_node))
+    t_loc = np.sum(f * normal, axis=1) / (0.5 * (a + b)) + t_node
     t_eff = np.maximum(np.abs(t_loc) - tau_f, 0.0)
     speed = np.where(free, mobility * t_eff * np.sign(t_loc), 0.0)
     v = speed[:, None] * normal
     t_pk = np.sign(t_node) * np.maximum(np.abs(t_node) - tau_f, 0.0)
-    f_pin = nodal_forces(x, y, Lx, gamma, t_pk)
-    fpin = np.where(free, 0.0, np.hypot(*f_pin.T))
+    fpin = np.where(free, 0.0, arc_pin_force(x, y, Lx, gamma, t_pk))
     moving = free & (t_eff > 0.0)
     max_te = float(np.max(t_eff[moving], initial=0.0))
     stiff = float(np.max(1.0 / (a * b)[free], initial=0.0))

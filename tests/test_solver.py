@@ -55,6 +55,18 @@ def test_crss_square_array_matches_point_obstacle_formula(phi_deg):
     assert lo <= result.crss_MPa <= hi
 
 
+@pytest.mark.parametrize("phi_deg", [0.0, 60.0, 120.0, 150.0])
+def test_crss_square_array_exact_at_coarse_node_spacing(phi_deg):
+    # Hull & Bacon: τ_c = (2Γ/(bL)) cos(φ_c/2), here with 5 nodes per span: the driving form and
+    # the pins' arc force hold circular arcs of radius Γ/(τb) exactly at any node spacing
+    # (docs/physics.md, "How a node is driven"; the energy-consistent form read +2.6 % at φ_c = 0).
+    # 1e-3 is ten times the bisection bracket (0.02 / 2^8 of 2Γ/(bL)) plus the equilibrium tolerance.
+    result = run_case(square_case(obstacles__critical_angle_deg=phi_deg, line__node_spacing=0.2),
+                      out_dir=False)
+    expected = result.summary["orowan_MPa"] * np.cos(np.radians(phi_deg) / 2)
+    assert result.crss_MPa == pytest.approx(expected, rel=1e-3)
+
+
 def test_bow_out_radius_between_two_pins_is_gamma_over_tau():
     # Line-tension relation (common practice): a segment pinned at both ends bows to R = Γ/(τ b).
     field = square_field(L, 1, 1, np.inf)
