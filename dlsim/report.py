@@ -24,6 +24,7 @@ import os
 import textwrap
 from pathlib import Path
 
+import numpy as np
 from matplotlib.figure import Figure
 from matplotlib.transforms import offset_copy
 
@@ -43,12 +44,12 @@ TEXT_PT = 10.0                  # tables and the case in brief
 LINE_PT = 1.4 * TEXT_PT         # baseline to baseline
 #: Rows of the sweep table drawn at the most; the rest are counted in a last line.
 MAX_TABLE_ROWS = 16
-#: Characters per line of the wrapped columns (at TEXT_PT, about 5.5 pt a character).
-ASSUMES_CHARS = 78
-BRIEF_CHARS = 62
+#: Characters per line of the wrapped column of the result table; the width of a character
+#: of DejaVu Sans in ems, on average over prose (measured on the page: 0.55).
+ASSUMES_CHARS = 76
+CHAR_EM = 0.55
 #: The keys of the result of one run that every report needs (a file without them is damaged).
-REQUIRED_RESULT_KEYS = ("status", "crss_MPa", "realizations_count", "realizations", "box_nm",
-                        "spacing_nm", "case")
+REQUIRED_RESULT_KEYS = ("status", "crss_MPa", "realizations", "box_nm", "spacing_nm", "case")
 
 
 # --------------------------------------------------------------------------- result accessors
@@ -63,9 +64,14 @@ def _crss(res: dict) -> float | None:
 def _crss_interval(res: dict) -> tuple[tuple[float, float] | None, str]:
     """The interval of the CRSS (MPa) and what it is: the 95 % interval of the mean over
     several realizations, or the bracket of one."""
-    if res["realizations_count"] > 1:
+    if _realizations(res) > 1:
         return _pair(res.get("crss_ci95_MPa")), res.get("crss_ci95_method") or "95 % interval"
     return _pair(res.get("crss_bracket_MPa")), "bracket: pinned at lo, flowing at hi"
+
+
+def _realizations(res: dict) -> int:
+    """How many realizations the CRSS is the mean of."""
+    return res.get("realizations_count") or len(res["realizations"])
 
 
 def _delta_sigma(res: dict) -> tuple[float | None, tuple[float, float] | None] | None:
@@ -93,6 +99,10 @@ def _particles(res: dict) -> int | None:
 
 def _loops_left(res: dict) -> int | None:
     return (res.get("loops") or {}).get("loops_after_crossing")
+
+
+def _plural(n: int, word: str) -> str:
+    return f"{n} {word}" + ("" if n == 1 else "s")
 
 
 def _pair(value) -> tuple[float, float] | None:
@@ -134,7 +144,7 @@ def make_report(folder) -> list[Path]:
 
 
 def _check_folder(folder) -> Path:
-    folder = Path(os.path.abspath(os.path.expanduser(os.fspath(folder))))
+    folder = Path(os.path.expanduser(os.fspath(folder)))
     if not os.path.lexists(folder):
         raise DlsimError(f"{str(folder)!r}: no such folder")
     if not folder.is_dir():
@@ -228,8 +238,7 @@ def run_page(folder) -> Figure:
 
     table = _axes_in(fig, 6.4, 0.75, 9.4, 2.75)
     _result_table(table, res)
-    brief = _axes_in(fig, 11.5, 3.6, 4.3, 4.6)
-    _text_rows(brief, "the case", case_brief(res))
+    _text_rows(_axes_in(fig, 11.5, 3.6, 4.3, 4.6), "the case", case_brief(res))
     _footer(fig, res.get("warnings") or [])
     return fig
 
@@ -256,7 +265,7 @@ def _result_table(ax, res: dict) -> None:
     dsig = _delta_sigma(res)
     m, tf = _taylor_factor(res), _friction(res)
     interval, what = _crss_interval(res)
-    n = res["realizations_count"]
+    n = _realizations(res)
     sim = (f"mean of {n} realizations" if n > 1 else "one realization")
     sim += f"; τ_c {_interval(interval)} ({what})"
     if dsig is not None:
@@ -272,7 +281,7 @@ def _result_table(ax, res: dict) -> None:
             + (f" plus the friction τ_f = {tf:.4g} MPa" if tf else "")
             + (f"; Δσ = M τ with M = {m:.3g}" if dsig else "")
             + f"; Orowan 2Γ/(bL) = {_num(res.get('orowan_MPa'))} MPa"]
-    cols = (0.0, 0.215, 0.30, 0.385) if dsig else (0.0, 0.215, 0.30)
+    cols = (0.0, 0.235, 0.32, 0.405) if dsig else (0.0, 0.235, 0.32)
     _table(ax, header, rows, cols, wrap={len(header) - 1: ASSUMES_CHARS}, bold_rows=(0,),
            notes=note, title="CRSS beside the analytic estimates")
 
@@ -297,21 +306,23 @@ def case_brief(res: dict) -> list[tuple[str, str]]:
     box, spacings = res["box_nm"], res.get("box_in_spacings") or [math.nan] * 2
     rows.append(("box", f"{box[0]:.4g} × {box[1]:.4g} nm = {spacings[0]:.3g} × "
                         f"{spacings[1]:.3g} spacings ({res['spacing_nm']:.3g} nm); "
-                        f"{_obstacle_points(res)} obstacle points"))
+                        f"{_obstacle_points(res)} obstacle points"
+                        + (f" for {_plural(_particles(res), 'particle')} (discs are rings of "
+                           "points)" if _particles(res) is not None else "")))
     model = res.get("model") or {}
     rows.append(("line", f"{model.get('line_model', 'constant').replace('_', ' ')} line model, "
                          f"Γ = {res.get('line_tension_nN', math.nan):.3g} nN; friction "
                          f"{_friction(res):.3g} MPa"))
     rows.append(("solver", _solver(res)))
     first = res["realizations"]
-    n = res["realizations_count"]
-    rows.append(("seeds", f"seed {res.get('seed')}; {n} realization"
-                          + ("" if n == 1 else "s, each its own field")
+    n = _realizations(res)
+    rows.append(("seeds", f"seed {res.get('seed')}; {_plural(n, 'realization')}"
+                          + ("" if n == 1 else ", each its own field")
                           + ("" if len(first) < 2 else
                              f" (streams 0–{len(first) - 1} of the seed)")))
     if _loops_left(res) is not None:
-        rows.append(("loops", f"{_loops_left(res)} Orowan loop(s) left after the line crossed "
-                              f"the field (realization 0)"))
+        rows.append(("loops", f"{_plural(_loops_left(res), 'Orowan loop')} left after the line "
+                              "crossed the field (realization 0)"))
     rows.append(("status", f"{res['status']}: {res.get('message', '')}"))
     return rows
 
@@ -348,7 +359,8 @@ def _population(pop: dict, res: dict) -> str:
         strength += f" F_c = {pop['critical_force_nN']:.3g} nN"
     sections = ((res.get("populations") or {}).get(pop.get("name")) or {}).get("count")
     text = f"{amount}, {dist} {size}, {pop.get('arrangement', '')}, {strength}"
-    return text + (f"; {sections} sections (realization 0)" if sections is not None else "")
+    return text + (f"; {_plural(sections, 'section')} (realization 0)" if sections is not None
+                   else "")
 
 
 def _solver(res: dict) -> str:
@@ -408,16 +420,19 @@ def _table(ax, header: list[str], rows: list[list[str]], cols, wrap: dict[int, i
             line += 1
 
 
-def _text_rows(ax, title: str, rows: list[tuple[str, str]]) -> None:
-    """(label, text) rows under a bold title, the text wrapped (the case in brief)."""
+def _text_rows(ax, title: str, rows: list[tuple[str, str]], label_in: float = 1.1) -> None:
+    """(label, text) rows under a bold title, the text wrapped to the width of ``ax`` (the
+    case in brief); labels take ``label_in`` inches."""
     ax.set_axis_off()
+    width_in = ax.get_position().width * PAGE_IN[0]
+    chars = int((width_in - label_in) * 72 / (CHAR_EM * TEXT_PT))
     _put(ax, 0.0, 0, title, fontweight="bold", fontsize=TEXT_PT + 1.5)
     line = 1.3
     for label, text in rows:
         _put(ax, 0.0, line, label, fontweight="bold")
-        parts = textwrap.wrap(text, BRIEF_CHARS - 14) or [""]
+        parts = textwrap.wrap(text, chars) or [""]
         for i, part in enumerate(parts):
-            _put(ax, 0.25, line + i, part)
+            _put(ax, label_in / width_in, line + i, part)
         line += len(parts) + 0.25
 
 
@@ -435,6 +450,64 @@ def _put(ax, x: float, line: float, text: str, **kw) -> None:
 
 
 def sweep_page(folder) -> Figure:
-    """The report page of a sweep folder (not written yet: a one-line error)."""
-    raise DlsimError(f"{str(folder)!r}: the report of a sweep folder is not written yet; "
-                     "`dlsim plot` draws its figures")
+    """The report page of a sweep folder (a :class:`Figure`, not yet saved): Δσ (populations) or
+    the CRSS against the first swept key, the table of the points, the case in brief."""
+    from .sweep import RUNS_FOLDER, is_finished
+
+    folder = Path(folder)
+    meta, table = plots.read_sweep_points(folder, "crss")
+    quantity = "delta_sigma" if "delta_sigma_mean_MPa" in table else "crss"
+    done = [r for r in meta["runs"] if is_finished(folder, r["id"])]
+    if not done:
+        raise DlsimError(f"{str(folder)!r}: no run of the sweep has finished yet")
+    first = _read_checked_run(folder / RUNS_FOLDER / done[0]["id"])["result"]
+    fig = _page()
+    _header(fig, meta.get("title") or f"sweep {Path(meta.get('source') or folder).name}",
+            f"{folder}  ·  {len(done)} of {_plural(len(meta['runs']), 'run')} finished, "
+            f"{_plural(meta['seeds'], 'seed')} per point, {meta['combine']} of "
+            f"{_plural(len(meta['vary']), 'key')}  ·  dlsim {first.get('dlsim_version', '?')}")
+
+    x, curve, rest = plots._roles(meta, table, None)
+    figures = list(plots.sweep_figures(table, rest))
+    combo, rows = figures[0]
+    ax = _axes_in(fig, 0.9, 2.8, 7.2, 5.1)
+    plots.draw_sweep(ax, meta, table, rows, (x, curve), quantity)
+    title = plots.sweep_title({"title": ""}, rest, combo)
+    if len(figures) > 1:
+        title += f" (1 of {len(figures)} figures; `dlsim plot` draws every one)"
+    ax.set_title(title or f"{plots.QUANTITIES[quantity].split(' (')[0]} against "
+                          f"{plots.key_label(x).split(' (')[0]}")
+
+    _points_table(_axes_in(fig, 9.0, 3.6, 6.8, 4.55), meta, table)
+    rows = [("swept", "; ".join(f"{k} = {', '.join(plots._fmt(v) for v in vals)}"
+                                for k, vals in meta["vary"].items()))]
+    brief = [r for r in case_brief(first) if r[0] not in ("status", "loops")]
+    _text_rows(_axes_in(fig, 9.0, 0.3, 6.8, 3.1), f"the case (run {done[0]['id']}; the swept "
+               "keys vary)", rows + brief)
+    return fig
+
+
+def _points_table(ax, meta: dict, table: dict) -> None:
+    """One row per point: the swept values, the runs, the CRSS and Δσ with their intervals."""
+    keys = list(meta["vary"])
+    quantities = [q for q in ("crss", "delta_sigma") if f"{q}_mean_MPa" in table]
+    header = ([plots.key_label(k) for k in keys] + ["n"]
+              + [{"crss": "τ_c (MPa) [95 %]", "delta_sigma": "Δσ (MPa) [95 %]"}[q]
+                 for q in quantities])
+    count = len(table["point"])
+    body = []
+    for i in range(min(count, MAX_TABLE_ROWS)):
+        cells = [plots._fmt(table[k][i]) for k in keys] + [f"{int(table['n'][i])}"]
+        for q in quantities:
+            lo, hi = table[f"{q}_ci95_lo_MPa"][i], table[f"{q}_ci95_hi_MPa"][i]
+            cells.append(f"{_num(table[f'{q}_mean_MPa'][i])} "
+                         + (_interval((lo, hi)).removesuffix(" MPa")
+                            if math.isfinite(lo) else "[—]"))
+        body.append(cells)
+    widths = [max(len(h), 6) for h in header[:len(keys)]] + [3] + [22] * len(quantities)
+    cols = np.concatenate([[0.0], np.cumsum(widths[:-1]) / sum(widths)])
+    notes = ([f"… {count - MAX_TABLE_ROWS} more points in summary_points.csv"]
+             if count > MAX_TABLE_ROWS else [])
+    notes.append("intervals: 95 % Student-t interval of the mean over the seeds of a point "
+                 "(summary_points.csv)")
+    _table(ax, header, body, cols, notes=notes, title="the points of the sweep")

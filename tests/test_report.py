@@ -12,11 +12,13 @@ from pathlib import Path
 import pytest
 
 from dlsim import cli, output
+from dlsim.output import read_table
 from dlsim.errors import EXIT_BAD_INPUT
-from dlsim.report import DPI, PAGE_IN, make_report, run_page
+from dlsim.report import DPI, PAGE_IN, make_report, run_page, sweep_page
 # Two populations (impenetrable discs that leave Orowan loops, shearable points), two
 # realizations: Δσ with its interval and every estimate row of a population case.
-from test_plots import POPULATION_CASE, assert_image, run_folder
+from test_plots import POPULATION_CASE, assert_image, run_folder, small_sweep
+from test_plots import disc_sweep  # noqa: F401 - the fixture: discs with friction, two radii
 from test_sweep import TINY_CASE
 
 PAGE_PX = (round(PAGE_IN[0] * DPI), round(PAGE_IN[1] * DPI))
@@ -32,6 +34,22 @@ def point_run(tmp_path_factory) -> Path:
 @pytest.fixture(scope="module")
 def population_run(tmp_path_factory) -> Path:
     return run_folder(tmp_path_factory, POPULATION_CASE)
+
+
+# Two spacings × two angles, two seeds, of the tiny random field: 8 runs of about a second.
+POINT_SWEEP = """\
+title = "Tiny random field: CRSS against spacing"
+base = "tiny.toml"
+seeds = 2
+[vary]
+"obstacles.spacing_nm" = [25, 50]
+"obstacles.critical_angle_deg" = [100, 140]
+"""
+
+
+@pytest.fixture(scope="module")
+def point_sweep(tmp_path_factory) -> Path:
+    return small_sweep(tmp_path_factory, POINT_SWEEP)
 
 
 def assert_page(path: Path) -> None:
@@ -60,10 +78,9 @@ def legend_of(fig, promised: str) -> list[str]:
     raise AssertionError(f"no legend with {promised!r}")
 
 
-@pytest.mark.parametrize("which", ["point_run", "population_run"])
-def test_report_of_run_writes_png_and_pdf_of_slide_size(which, request):
-    folder = request.getfixturevalue(which)
-    paths = make_report(folder)
+@pytest.mark.parametrize("which", ["point_run", "population_run", "point_sweep", "disc_sweep"])
+def test_report_writes_png_and_pdf_of_slide_size(which, request):
+    paths = make_report(request.getfixturevalue(which))
     assert [p.name for p in paths] == ["report.png", "report.pdf"]
     assert_page(paths[0])
     assert paths[1].read_bytes()[:5] == b"%PDF-"
@@ -96,6 +113,29 @@ def test_run_page_of_population_case_shows_delta_sigma_and_loops(population_run)
     from dlsim.analytic import ESTIMATES
     for key in res["estimates_MPa"]:
         assert ESTIMATES[key][0] in texts, key
+
+
+def test_sweep_page_shows_curves_points_and_case(point_sweep):
+    fig = sweep_page(point_sweep)
+    texts = page_texts(fig)
+    assert "Tiny random field: CRSS against spacing" in texts
+    curves = legend_of(fig, "critical angle = 100°")
+    assert "critical angle = 140°" in curves and "Friedel random array" in curves
+    legend = next(ax.get_legend() for ax in fig.axes if ax.get_legend() is not None)
+    assert legend.get_title().get_text().startswith("error bars: 95 %")
+    assert "the points of the sweep" in texts and "swept" in texts and "material" in texts
+    # one table row per point, with its mean CRSS and interval
+    points = read_table(point_sweep / "summary_points.csv")
+    for mean in points["crss_mean_MPa"]:
+        assert any(t.startswith(f"{mean:.4g} [") for t in texts), mean
+
+
+def test_sweep_page_of_populations_shows_delta_sigma_with_estimates(disc_sweep):
+    fig = sweep_page(disc_sweep)
+    ax = next(ax for ax in fig.axes if ax.get_legend() is not None)
+    assert ax.get_ylabel().startswith("yield strength increment Δσ")
+    assert "Foreman–Makin random array" in [t.get_text() for t in ax.get_legend().get_texts()]
+    assert "Δσ (MPa) [95 %]" in page_texts(fig)
 
 
 def test_report_leaves_the_run_files_alone_and_no_temporaries(tmp_path, point_run):
@@ -159,7 +199,26 @@ def _report_is_a_folder(tmp, run):
     return folder, "cannot be written"
 
 
-BAD_FOLDERS = [_missing, _a_file, _foreign, _truncated, _emptied, _report_is_a_folder]
+def _sweep_without_runs(tmp, run):
+    folder = tmp / "sweep"
+    (folder / "runs").mkdir(parents=True)
+    (folder / output.SWEEP).write_text(json.dumps({"title": "", "combine": "grid", "seeds": 1,
+                                                   "vary": {"obstacles.spacing_nm": [30]},
+                                                   "scales": {}, "runs": [
+        {"id": "p000_s00", "point": 0, "seed_index": 0, "seed": 1,
+         "params": {"obstacles.spacing_nm": 30}, "case": {}}]}))
+    return folder, "no run of the sweep has finished"
+
+
+def _truncated_sweep(tmp, run):
+    folder = tmp / "sweep"
+    folder.mkdir()
+    (folder / output.SWEEP).write_text('{"title": "", "runs": [')
+    return folder, "truncated"
+
+
+BAD_FOLDERS = [_missing, _a_file, _foreign, _truncated, _emptied, _report_is_a_folder,
+               _sweep_without_runs, _truncated_sweep]
 
 
 @pytest.mark.parametrize("make", BAD_FOLDERS, ids=lambda f: f.__name__.strip("_"))
