@@ -262,3 +262,11 @@ def test_cli_report_prints_the_files(point_run, capsys):
     assert cli.main(["report", str(point_run)]) == 0
     out, _ = capsys.readouterr()
     assert out.splitlines() == [str(point_run / "report.png"), str(point_run / "report.pdf")]
+
+
+def test_report_of_run_without_history_says_so(tmp_path, point_run):
+    folder = tmp_path / "run"
+    shutil.copytree(point_run, folder, ignore=NO_REPORT)
+    (folder / output.HISTORY).unlink()
+    assert f"no {output.HISTORY}" in page_texts(run_page(folder))
+    assert_page(make_report(folder)[0])
