@@ -266,9 +266,13 @@ def write_file_atomic(path, data: bytes) -> None:
     """Write one file through a temporary beside it and a rename (readers never see half)."""
     path = Path(path)
     tmp = path.with_name(f"{TMP_TAG}{path.name}-{os.getpid()}")
-    with open(tmp, "wb") as fh:
-        fh.write(data)
-    os.replace(tmp, path)
+    try:
+        with open(tmp, "wb") as fh:
+            fh.write(data)
+        os.replace(tmp, path)
+    except BaseException:  # a full disk, a folder in the way, Ctrl-C: leave no temporary
+        tmp.unlink(missing_ok=True)
+        raise
 
 
 def clear_leftovers(folder) -> None:
