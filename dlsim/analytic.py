@@ -72,7 +72,7 @@ def strength_increment(crss: float, taylor_factor: float = TAYLOR_FCC) -> float:
     return taylor_factor * crss
 
 
-#: What each estimate of ``estimates_MPa`` assumes, in a phrase (tables and legends).
+#: What each estimate (``estimates`` keys ``<model>_MPa``) assumes, in a phrase (tables, legends).
 ESTIMATES = {
     "orowan_square": ("Orowan, square array", "2Γ/(bL): impenetrable points on a square array of "
                                               "the same spacing"),

@@ -157,7 +157,7 @@ def sweep_figure(meta: dict, table: dict, rows: np.ndarray, roles: tuple[str, st
 def read_sweep_points(folder: Path, quantity: str) -> tuple[dict, dict]:
     """``sweep.json`` and ``summary_points.csv`` of a sweep folder (the summary written first if
     missing), refusing a quantity the runs do not report."""
-    from .sweep import SUMMARY_POINTS, read_sweep_json, summarize_sweep
+    from .sweep import SUMMARY_POINTS, column_name, read_sweep_json, summarize_sweep
 
     meta = read_sweep_json(folder)
     if quantity not in QUANTITIES:
@@ -165,6 +165,8 @@ def read_sweep_points(folder: Path, quantity: str) -> tuple[dict, dict]:
     if not (folder / SUMMARY_POINTS).is_file():
         summarize_sweep(folder)
     table = read_table(folder / SUMMARY_POINTS)
+    for key in meta["vary"]:            # swept keys by their dotted names (CSV: column_name)
+        table.setdefault(key, table.get(column_name(key)))
     if f"{quantity}_mean_MPa" not in table:
         raise DlsimError(f"{str(folder)!r}: the runs report no {quantity} values")
     return meta, table
@@ -214,7 +216,7 @@ def draw_sweep(ax, meta: dict, table: dict, rows: np.ndarray, roles: tuple[str, 
     # below the axes: inside, a legend sits on the points of some sweep or other
     ax.legend([handles[k] for k in order], [labels[k] for k in order], loc="upper center",
               bbox_to_anchor=(0.5, -0.16), ncol=legend_ncol, frameon=False, fontsize="small",
-              title=_bars_note(table["n"][rows]), title_fontsize="x-small")
+              title=_bars_note(table["n_runs"][rows]), title_fontsize="x-small")
 
 
 def _bars_note(n: np.ndarray) -> str:
@@ -261,7 +263,7 @@ CURVE_MARKERS = ("o", "s", "^", "D", "v", "P")
 
 def _as_quantity(meta: dict, table: dict, quantity: str) -> dict:
     """The summary with its estimate columns as the quantity drawn: the CRSS estimates plus each
-    point's friction stress (the CRSS includes it; ``estimates_MPa`` does not), the Δσ
+    point's friction stress (the CRSS includes it; ``estimates`` do not), the Δσ
     estimates M times the obstacles' estimate (Δσ = M (τ_c − τ_f), docs/physics.md)."""
     from .analytic import TAYLOR_FCC
 
@@ -280,11 +282,18 @@ def _as_quantity(meta: dict, table: dict, quantity: str) -> dict:
 
 
 def estimate_label(column: str) -> str:
-    """``"estimate_foreman_makin_MPa"`` → its name in :data:`dlsim.analytic.ESTIMATES`."""
+    """``"estimate_foreman_makin_mean_MPa"`` (or ``..._MPa``) → its name in
+    :data:`dlsim.analytic.ESTIMATES`."""
     from .analytic import ESTIMATES
 
-    key = column.removeprefix("estimate_").removesuffix("_MPa")
+    key = estimate_model(column)
     return ESTIMATES.get(key, (key.replace("_", " "),))[0]
+
+
+def estimate_model(column: str) -> str:
+    """The model of an estimate column or key: ``"estimate_friedel_mean_MPa"``,
+    ``"estimate_friedel_MPa"`` and ``"friedel_MPa"`` → ``"friedel"``."""
+    return column.removeprefix("estimate_").removesuffix("_MPa").removesuffix("_mean")
 
 
 def _draw_curves(ax, table: dict, rows: np.ndarray, x: str, curve: str | None, q: str) -> None:
@@ -309,10 +318,10 @@ def _draw_curves(ax, table: dict, rows: np.ndarray, x: str, curve: str | None, q
                     zorder=3, **style)
         curves.append((sel, xs, style))
     for col in estimates:
-        colour = ESTIMATE_COLOURS.get(col[len("estimate_"):-len("_MPa")], OTHER_ESTIMATE)
+        colour = ESTIMATE_COLOURS.get(estimate_model(col), OTHER_ESTIMATE)
         _draw_per_curve(ax, table, curves, x, col, colour, estimate_label(col), "--")
-    if not estimates and q == "crss" and "orowan_MPa" in table:
-        _draw_per_curve(ax, table, curves, x, "orowan_MPa", "0.35", "Orowan 2Γ/(bL)", ":")
+    if not estimates and q == "crss" and "orowan_mean_MPa" in table:
+        _draw_per_curve(ax, table, curves, x, "orowan_mean_MPa", "0.35", "Orowan 2Γ/(bL)", ":")
 
 
 def _draw_per_curve(ax, table, curves, x, col, colour, label, linestyle) -> None:
@@ -542,7 +551,7 @@ def plot_run(folder) -> list[Path]:
     """
     folder = Path(folder)
     run = read_run(folder)
-    box = tuple(run["result"]["box_nm"])
+    box = output.box_nm(run["result"])
     paths = _save(_field_figure(run, box), folder, "field")
     if run["history"] is not None and len(run["history"]["index"]):
         paths += _save(_area_figure(run, box), folder, "stress_vs_area")
@@ -584,8 +593,8 @@ def _field_title(res: dict) -> str:
     """The field figure shows realization 0: its own CRSS, and the mean when there are more."""
     first = res["realizations"][0]
     text = f"pinned line at the CRSS, {_mpa(first['crss_MPa'])}"
-    if res["realizations_count"] > 1:
-        text = (f"realization 0 of {res['realizations_count']}: {_mpa(first['crss_MPa'])} "
+    if res["n_realizations"] > 1:
+        text = (f"realization 0 of {res['n_realizations']}: {_mpa(first['crss_MPa'])} "
                 f"(mean {_mpa(res['crss_MPa'])})")
     return text
 
@@ -599,10 +608,11 @@ def run_estimates(res: dict) -> dict[str, float]:
     the friction stress, so they compare with the CRSS; ``{label: value}``."""
     from .analytic import ESTIMATES
 
-    est = res.get("estimates_MPa") or {}
+    est = res.get("estimates") or {}
     friction = res.get("friction_MPa") or 0.0
-    return {ESTIMATES.get(k, (k.replace("_", " "), ""))[0]: v + friction
-            for k, v in est.items() if v is not None and np.isfinite(v)}
+    return {ESTIMATES.get(m, (m.replace("_", " "), ""))[0]: v + friction
+            for m, v in ((k.removesuffix("_MPa"), v) for k, v in est.items())
+            if v is not None and np.isfinite(v)}
 
 
 def _area_figure(run: dict, box, ax=None) -> Figure:
@@ -627,10 +637,10 @@ def _area_figure(run: dict, box, ax=None) -> Figure:
                 zorder=3 if r == 0 else 2, label=label if several else None)
     first = res["realizations"][0]
     if first["crss_MPa"] is not None:
-        ax.axhspan(*first["crss_bracket_MPa"], color="C2", alpha=0.25, linewidth=0,
+        ax.axhspan(first["crss_lo_MPa"], first["crss_hi_MPa"], color="C2", alpha=0.25, linewidth=0,
                    label="realization 0 CRSS bracket")
     if res["crss_MPa"] is not None:
-        n = res["realizations_count"]
+        n = res["n_realizations"]
         ax.axhline(res["crss_MPa"], color="C2", linestyle="--",
                    label=(f"mean CRSS of {n} realizations " if n > 1 else "CRSS ")
                    + f"{res['crss_MPa']:.4g} MPa")

@@ -49,11 +49,12 @@ MAX_TABLE_ROWS = 16
 ASSUMES_CHARS = 76
 CHAR_EM = 0.55
 #: The keys of the result of one run that every report needs (a file without them is damaged).
-REQUIRED_RESULT_KEYS = ("status", "crss_MPa", "realizations", "box_nm", "spacing_nm", "case")
+REQUIRED_RESULT_KEYS = ("status", "crss_MPa", "realizations", "box_length_nm", "box_height_nm",
+                        "spacing_nm", "case")
 
 
 # --------------------------------------------------------------------------- result accessors
-# result.json keys named once (DEVELOPERS.md, "Output folder").
+# result.json keys named once (docs/outputs.md).
 
 
 def _crss(res: dict) -> float | None:
@@ -65,20 +66,22 @@ def _crss_interval(res: dict) -> tuple[tuple[float, float] | None, str]:
     """The interval of the CRSS (MPa) and what it is: the 95 % interval of the mean over
     several realizations, or the bracket of one."""
     if _realizations(res) > 1:
-        return _pair(res.get("crss_ci95_MPa")), res.get("crss_ci95_method") or "95 % interval"
-    return _pair(res.get("crss_bracket_MPa")), "bracket: pinned at lo, flowing at hi"
+        return (_pair(res, "crss_ci95_lo_MPa", "crss_ci95_hi_MPa"),
+                res.get("crss_ci95_method") or "95 % interval")
+    return _pair(res, "crss_lo_MPa", "crss_hi_MPa"), "bracket: pinned at lo, flowing at hi"
 
 
 def _realizations(res: dict) -> int:
     """How many realizations the CRSS is the mean of."""
-    return res.get("realizations_count") or len(res["realizations"])
+    return res.get("n_realizations") or len(res["realizations"])
 
 
 def _delta_sigma(res: dict) -> tuple[float | None, tuple[float, float] | None] | None:
     """Δσ (MPa) and its 95 % interval (population cases; None otherwise)."""
     if "delta_sigma_MPa" not in res:
         return None
-    return res["delta_sigma_MPa"], _pair(res.get("delta_sigma_ci95_MPa"))
+    return res["delta_sigma_MPa"], _pair(res, "delta_sigma_ci95_lo_MPa",
+                                         "delta_sigma_ci95_hi_MPa")
 
 
 def _taylor_factor(res: dict) -> float:
@@ -98,15 +101,17 @@ def _particles(res: dict) -> int | None:
 
 
 def _loops_left(res: dict) -> int | None:
-    return (res.get("loops") or {}).get("loops_after_crossing")
+    return (res.get("loops") or {}).get("n_loops_left")
 
 
 def _plural(n: int, word: str) -> str:
     return f"{n} {word}" + ("" if n == 1 else "s")
 
 
-def _pair(value) -> tuple[float, float] | None:
-    if not isinstance(value, (list, tuple)) or len(value) != 2 or None in value:
+def _pair(res: dict, lo: str, hi: str) -> tuple[float, float] | None:
+    """The interval given by the keys ``lo`` and ``hi`` (None when either is missing)."""
+    value = (res.get(lo), res.get(hi))
+    if None in value:
         return None
     return float(value[0]), float(value[1])
 
@@ -216,7 +221,7 @@ def run_page(folder) -> Figure:
     folder = Path(folder)
     run = _read_checked_run(folder)
     res = run["result"]
-    box = tuple(res["box_nm"])
+    box = output.box_nm(res)
     fig = _page()
     case = res["case"]
     _header(fig, case.get("title") or folder.name,
@@ -272,10 +277,11 @@ def _result_table(ax, res: dict) -> None:
         sim += f"; Δσ 95 % {_interval(dsig[1])}"
     header = ["", "τ_c (MPa)"] + (["Δσ (MPa)"] if dsig else []) + ["interval / what it assumes"]
     rows = [["simulation", _num(_crss(res))] + ([_num(dsig[0])] if dsig else []) + [sim]]
-    for key, value in (res.get("estimates_MPa") or {}).items():
+    for key, value in (res.get("estimates") or {}).items():
         if value is None or not math.isfinite(value):
             continue
-        name, assumes = ESTIMATES.get(key, (key.replace("_", " "), ""))
+        model = plots.estimate_model(key)
+        name, assumes = ESTIMATES.get(model, (model.replace("_", " "), ""))
         rows.append([name, _num(value + tf)] + ([_num(m * value)] if dsig else []) + [assumes])
     note = ["estimates are the obstacles' contribution"
             + (f" plus the friction τ_f = {tf:.4g} MPa" if tf else "")
@@ -303,7 +309,8 @@ def case_brief(res: dict) -> list[tuple[str, str]]:
             rows.append((pop.get("name", "population"), _population(pop, res)))
     elif case.get("obstacles"):
         rows.append(("obstacles", _obstacles(case["obstacles"], res)))
-    box, spacings = res["box_nm"], res.get("box_in_spacings") or [math.nan] * 2
+    box = output.box_nm(res)
+    spacings = (res.get("box_length_spacings", math.nan), res.get("box_height_spacings", math.nan))
     rows.append(("box", f"{box[0]:.4g} × {box[1]:.4g} nm = {spacings[0]:.3g} × "
                         f"{spacings[1]:.3g} spacings ({res['spacing_nm']:.3g} nm); "
                         f"{_obstacle_points(res)} obstacle points"
@@ -457,14 +464,14 @@ def sweep_page(folder) -> Figure:
     folder = Path(folder)
     meta, table = plots.read_sweep_points(folder, "crss")
     quantity = "delta_sigma" if "delta_sigma_mean_MPa" in table else "crss"
-    done = [r for r in meta["runs"] if is_finished(folder, r["id"])]
+    done = [r for r in meta["runs"] if is_finished(folder, r["run_id"])]
     if not done:
         raise DlsimError(f"{str(folder)!r}: no run of the sweep has finished yet")
-    first = _read_checked_run(folder / RUNS_FOLDER / done[0]["id"])["result"]
+    first = _read_checked_run(folder / RUNS_FOLDER / done[0]["run_id"])["result"]
     fig = _page()
     _header(fig, meta.get("title") or f"sweep {Path(meta.get('source') or folder).name}",
             f"{folder}  ·  {len(done)} of {_plural(len(meta['runs']), 'run')} finished, "
-            f"{_plural(meta['seeds'], 'seed')} per point, {meta['combine']} of "
+            f"{_plural(meta['n_seeds'], 'seed')} per point, {meta['combine']} of "
             f"{_plural(len(meta['vary']), 'key')}  ·  dlsim {first.get('dlsim_version', '?')}")
 
     x, curve, rest = plots._roles(meta, table, None)
@@ -482,7 +489,7 @@ def sweep_page(folder) -> Figure:
     rows = [("swept", "; ".join(f"{k} = {', '.join(plots._fmt(v) for v in vals)}"
                                 for k, vals in meta["vary"].items()))]
     brief = [r for r in case_brief(first) if r[0] not in ("status", "loops")]
-    _text_rows(_axes_in(fig, 9.0, 0.3, 6.8, 3.1), f"the case (run {done[0]['id']}; the swept "
+    _text_rows(_axes_in(fig, 9.0, 0.3, 6.8, 3.1), f"the case (run {done[0]['run_id']}; the swept "
                "keys vary)", rows + brief)
     return fig
 
@@ -497,7 +504,7 @@ def _points_table(ax, meta: dict, table: dict) -> None:
     count = len(table["point"])
     body = []
     for i in range(min(count, MAX_TABLE_ROWS)):
-        cells = [plots._fmt(table[k][i]) for k in keys] + [f"{int(table['n'][i])}"]
+        cells = [plots._fmt(table[k][i]) for k in keys] + [f"{int(table['n_runs'][i])}"]
         for q in quantities:
             lo, hi = table[f"{q}_ci95_lo_MPa"][i], table[f"{q}_ci95_hi_MPa"][i]
             cells.append(f"{_num(table[f'{q}_mean_MPa'][i])} "

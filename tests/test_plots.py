@@ -9,6 +9,7 @@ import numpy as np
 import pytest
 from PIL import Image
 
+from dlsim import output
 from dlsim.api import run_case
 from dlsim.errors import DlsimError
 from dlsim.plots import (DPI, FIG_SIZE_IN, _area_figure, _field_figure, _figure, _roles,
@@ -169,7 +170,7 @@ def test_wrap_polyline_breaks_at_box_sides():
 def test_field_figure_legend_names_line_pins_loops_and_each_population(population_run):
     run = read_run(population_run)
     assert run["loops"] is not None, "the disc case should leave Orowan loops"
-    texts = legend_texts(_field_figure(run, tuple(run["result"]["box_nm"])))
+    texts = legend_texts(_field_figure(run, output.box_nm(run["result"])))
     for promised in ("dislocation line", "pinned points", "Orowan loops", "dispersoids",
                      "precipitates"):
         assert any(t.startswith(promised) for t in texts), (promised, texts)
@@ -179,7 +180,7 @@ def test_field_figure_populations_in_distinct_colours(population_run):
     from matplotlib.colors import to_rgb
 
     run = read_run(population_run)
-    legend = _field_figure(run, tuple(run["result"]["box_nm"])).axes[0].get_legend()
+    legend = _field_figure(run, output.box_nm(run["result"])).axes[0].get_legend()
     colours = {}
     for handle, text in zip(legend.legend_handles, legend.get_texts()):
         colour = (handle.get_facecolor() if hasattr(handle, "get_facecolor")
@@ -190,7 +191,7 @@ def test_field_figure_populations_in_distinct_colours(population_run):
 
 def test_run_figures_draw_on_given_axes(population_run):
     run = read_run(population_run)
-    box = tuple(run["result"]["box_nm"])
+    box = output.box_nm(run["result"])
     fig = _figure()
     left, right = fig.subplots(1, 2)
     assert _field_figure(run, box, ax=left) is fig
@@ -200,7 +201,7 @@ def test_run_figures_draw_on_given_axes(population_run):
 
 def test_area_figure_shows_every_realization_mean_and_estimates(population_run):
     run = read_run(population_run)
-    fig = _area_figure(run, tuple(run["result"]["box_nm"]))
+    fig = _area_figure(run, output.box_nm(run["result"]))
     texts = legend_texts(fig)
     assert "realization 0" in texts and "other realizations" in texts
     assert any(t.startswith("mean CRSS of 2 realizations") for t in texts)
@@ -214,7 +215,7 @@ def test_area_figure_shows_every_realization_mean_and_estimates(population_run):
 
 def test_area_figure_flowing_markers_inside_the_axis(population_run):
     run = read_run(population_run)
-    ax = _area_figure(run, tuple(run["result"]["box_nm"])).axes[0]
+    ax = _area_figure(run, output.box_nm(run["result"])).axes[0]
     flowing = [ln for ln in ax.get_lines() if ln.get_label().startswith("flowing")]
     assert flowing
     x_max = ax.get_xlim()[1]
@@ -381,7 +382,7 @@ def test_sweep_crss_estimates_include_each_points_friction(three_key_sweep):
     ax = fig.axes[0]
     friedel = estimate_lines(ax)["Friedel random array"]
     plotted = np.sort(np.concatenate([ln.get_ydata() for ln in friedel]))
-    expected = np.sort(table["estimate_friedel_MPa"][rows] + table["friction.stress_MPa"][rows])
+    expected = np.sort(table["estimate_friedel_mean_MPa"][rows] + table["friction.stress_MPa"][rows])
     np.testing.assert_allclose(plotted, expected)
 
 
@@ -394,5 +395,5 @@ def test_delta_sigma_plot_draws_the_estimates_times_the_taylor_factor(disc_sweep
     ys = lines["Foreman–Makin random array"][0].get_ydata()
     # the case keeps the default Taylor factor of a random FCC polycrystal
     np.testing.assert_allclose(np.sort(ys),
-                               np.sort(TAYLOR_FCC * table["estimate_foreman_makin_MPa"]))
+                               np.sort(TAYLOR_FCC * table["estimate_foreman_makin_mean_MPa"]))
     assert_image(plot_sweep(disc_sweep, quantity="delta_sigma")[0])
