@@ -244,9 +244,7 @@ def node_pass(line, n, prm, work_f):
                 t_pk = -t_pk
             if gamma > 0.0:
                 fpin[i] = _arc_pin_force(uax, uay, a, ubx, uby, b, t_pk / (2.0 * gamma), gamma)
-            elif _arms_crossed(uax, uay, ubx, uby, t_pk):
-                fpin[i] = np.inf
-            else:
+            else:   # other models: the chords (crossed arms are left to find_crossing)
                 px, py = tx - 0.5 * t_pk * cy, ty + 0.5 * t_pk * cx
                 fpin[i] = np.sqrt(px * px + py * py)
             vx[i] = 0.0
