@@ -125,16 +125,34 @@ def _arc_pin_force(uax, uay, a, ubx, uby, b, curvature_half, gamma):
     force of the arcs on the pin is exactly Γ (t_b − t_a); the chords' Γ (u_b − u_a) plus the
     Peach–Koehler force of the half-segments reads the arm angle too open by θ_a/2 + θ_b/2, which
     releases pins late at coarse node spacing.  ``curvature_half`` is τ/(2Γ) = 1/(2R) (b⁻¹, signed
-    with τ); an arm longer than 2R is taken as a half-circle.
+    with τ); an arm longer than 2R is taken as a half-circle.  A pin whose arms have crossed
+    (:func:`_arms_crossed`) gets an infinite force, so that it is released.
     """
     sa = min(max(curvature_half * a, -1.0), 1.0)
     sb = min(max(curvature_half * b, -1.0), 1.0)
     ca = np.sqrt(1.0 - sa * sa)
     cb = np.sqrt(1.0 - sb * sb)
     # t_b = cos θ_b u_b + sin θ_b ẑ×u_b, t_a = cos θ_a u_a − sin θ_a ẑ×u_a
-    fx = (cb * ubx - sb * uby) - (ca * uax + sa * uay)
-    fy = (cb * uby + sb * ubx) - (ca * uay - sa * uax)
+    tbx, tby = cb * ubx - sb * uby, cb * uby + sb * ubx
+    tax, tay = ca * uax + sa * uay, ca * uay - sa * uax
+    if _arms_crossed(tax, tay, tbx, tby, curvature_half):
+        return np.inf
+    fx, fy = tbx - tax, tby - tay
     return gamma * np.sqrt(fx * fx + fy * fy)
+
+
+@njit(**JIT, inline="always")
+def _arms_crossed(tax, tay, tbx, tby, stress):
+    """Whether the arms of a pin have swung past each other (arm angle φ below zero).
+
+    A line pushed by τ > 0 turns left (counter-clockwise) at every pin, by π − φ; past φ = 0 the
+    turn reads as a right turn of more than 90°.  Such a pin holds nothing any more: its arms have
+    crossed behind it (an impenetrable point is bypassed so, Foreman & Makin 1966), and the
+    crossing lies at the pin itself, where no two segments of the line cross at interior points.
+    ``stress`` carries only the sign of τ.
+    """
+    turn = tax * tby - tay * tbx
+    return tax * tbx + tay * tby < 0.0 and turn * stress < 0.0
 
 
 @njit(**JIT)
@@ -226,7 +244,7 @@ def node_pass(line, n, prm, work_f):
                 t_pk = -t_pk
             if gamma > 0.0:
                 fpin[i] = _arc_pin_force(uax, uay, a, ubx, uby, b, t_pk / (2.0 * gamma), gamma)
-            else:
+            else:   # other models: the chords (crossed arms are left to find_crossing)
                 px, py = tx - 0.5 * t_pk * cy, ty + 0.5 * t_pk * cx
                 fpin[i] = np.sqrt(px * px + py * py)
             vx[i] = 0.0
@@ -1006,6 +1024,208 @@ def _join(line, n, i, j, shift, work_f):
     return m + 1
 
 
+@njit(**JIT, inline="always")
+def _node_at(x, y, n, k, Lx):
+    """Node k of the unwrapped line (k >= 0; node k + n is node k shifted by Lx)."""
+    return x[k % n] + (k // n) * Lx, y[k % n]
+
+
+@njit(**JIT, inline="always")
+def _cross_param(ax, ay, bx, by, cx, cy, dx, dy):
+    """Where segment AB crosses segment CD: the fraction along AB, or -1 if they do not cross at a
+    point interior to both (parallel and touching segments do not cross)."""
+    ex, ey = bx - ax, by - ay
+    fx, fy = dx - cx, dy - cy
+    den = ex * fy - ey * fx
+    if den == 0.0:
+        return -1.0
+    gx, gy = cx - ax, cy - ay
+    t = (gx * fy - gy * fx) / den
+    u = (gx * ey - gy * ex) / den
+    if t <= 0.0 or t >= 1.0 or u <= 0.0 or u >= 1.0:
+        return -1.0
+    return t
+
+
+@njit(**JIT)
+def _mark_backward_bins(x, n, Lx, ncx, width, marked):
+    """Mark the x bins (mod Lx) that a segment running backwards (x decreasing) spans; return how
+    many segments run backwards."""
+    marked[:] = False
+    count = 0
+    for k in range(n):
+        xa = x[k]
+        xb = x[k + 1] if k < n - 1 else x[0] + Lx
+        if xb < xa:
+            count += 1
+            i0 = int(np.floor(xb / width))
+            for i in range(i0, min(int(np.floor(xa / width)), i0 + ncx - 1) + 1):
+                marked[i & (ncx - 1)] = True
+    return count
+
+
+@njit(**JIT)
+def find_crossing(line, n, prm):
+    """The crossing of two segments of the line that cuts off the smallest loop.
+
+    A line without a segment running backwards is a graph y(x) over its period and cannot cross
+    itself; where parts fold back, the vertical through a crossing point also meets a backwards
+    segment, so only segments whose x span shares a bin (mod Lx) with a backwards one are
+    candidates.  They go into a hashed grid of cells at least l_max wide (each segment in every
+    cell its box covers) and the pairs of each cell are tested exactly, images in x included.
+
+    Returns
+    -------
+    (P, Q, t) : (int, int, float)
+        Segments P (0 <= P < n) and Q (unwrapped: segment Q mod n shifted by (Q // n) Lx;
+        P + 2 <= Q <= P + n + 1 - MIN_NODES, so the line keeps MIN_NODES) cross at the fraction
+        t along segment P; the loop is the unwrapped nodes P+1..Q.  P = -1 when the line does not
+        cross itself.
+    """
+    x, y = line[0], line[1]
+    Lx = prm.Lx
+    hc = prm.l_max
+    ncx = _pow2_at_most(Lx / hc)
+    width = Lx / ncx
+    marked = np.empty(ncx, np.bool_)
+    if _mark_backward_bins(x, n, Lx, ncx, width, marked) == 0:
+        return -1, -1, -1.0
+    ncy = _pow2_at_most(max(1.0, 2.0 * n / ncx + 1.0))
+    mx, my = ncx - 1, ncy - 1
+    # candidates and their cells: count, then fill (CSR over cells)
+    cand = np.empty(n, np.bool_)
+    entries = 0
+    for k in range(n):
+        ax, ay = x[k], y[k]
+        bx, by = _node_at(x, y, n, k + 1, Lx)
+        i0, i1 = int(np.floor(min(ax, bx) / width)), int(np.floor(max(ax, bx) / width))
+        i1 = min(i1, i0 + ncx - 1)
+        hit = False
+        for i in range(i0, i1 + 1):
+            hit = hit or marked[i & mx]
+        cand[k] = hit
+        if hit:
+            j0, j1 = int(np.floor(min(ay, by) / hc)), int(np.floor(max(ay, by) / hc))
+            entries += (i1 - i0 + 1) * (min(j1, j0 + ncy - 1) - j0 + 1)
+    start = np.zeros(ncx * ncy + 1, np.int64)
+    seg = np.empty(entries, np.int64)
+    for phase in range(2):
+        for k in range(n):
+            if not cand[k]:
+                continue
+            ax, ay = x[k], y[k]
+            bx, by = _node_at(x, y, n, k + 1, Lx)
+            i0, i1 = int(np.floor(min(ax, bx) / width)), int(np.floor(max(ax, bx) / width))
+            j0, j1 = int(np.floor(min(ay, by) / hc)), int(np.floor(max(ay, by) / hc))
+            for i in range(i0, min(i1, i0 + ncx - 1) + 1):
+                for j in range(j0, min(j1, j0 + ncy - 1) + 1):
+                    c = (i & mx) + ncx * (j & my)
+                    if phase == 0:
+                        start[c + 1] += 1
+                    else:
+                        seg[start[c]] = k
+                        start[c] += 1
+        if phase == 0:
+            for c in range(ncx * ncy):
+                start[c + 1] += start[c]
+        else:   # the fill advanced every start to the next cell's: shift back
+            for c in range(ncx * ncy, 0, -1):
+                start[c] = start[c - 1]
+            start[0] = 0
+    best_p, best_q, best_t, best_size = -1, -1, -1.0, n
+    for c in range(ncx * ncy):
+        for e in range(start[c], start[c + 1]):
+            k1 = seg[e]
+            for f in range(e + 1, start[c + 1]):
+                k2 = seg[f]
+                gap = (k2 - k1) % n
+                if gap <= 1 or gap >= n - 1:
+                    continue
+                # the image of k2 nearest to k1
+                m = int(np.floor((x[k1] - x[k2]) / Lx + 0.5))
+                ax, ay = x[k1], y[k1]
+                bx, by = _node_at(x, y, n, k1 + 1, Lx)
+                cx, cy = x[k2] + m * Lx, y[k2]
+                dx, dy = _node_at(x, y, n, k2 + 1, Lx)
+                t = _cross_param(ax, ay, bx, by, cx, cy, dx + m * Lx, dy)
+                if t < 0.0:
+                    continue
+                q = k2 + m * n              # k2's image, unwrapped, relative to k1
+                if q > k1:
+                    p, size = k1, q - k1
+                else:                       # k1's image, in k2's frame, comes later
+                    p, size = k2, k1 - q
+                    t = _cross_param(cx - m * Lx, cy, dx, dy, ax - m * Lx, ay, bx - m * Lx, by)
+                # the line keeps n - size + 1 nodes: at least MIN_NODES
+                if 2 <= size <= n + 1 - MIN_NODES and size < best_size and t > 0.0:
+                    best_p, best_q, best_t, best_size = p, p + size, t, size
+    return best_p, best_q, best_t
+
+
+@njit(**JIT)
+def cut_crossing(line, n, p, q, t, meta, loops, field, work_f):
+    """Cut the loop of the unwrapped nodes p+1..q off where segments p and q cross
+    (:func:`find_crossing`); return the new node count, -1 if the loop buffers are full.
+
+    The line keeps ``.. p, X, q+1 ..`` (X the crossing point, a free node).  What the loop holds
+    decides what it is: two pins or more, an Orowan loop, stored with its obstacles still held (as
+    :func:`reconnect` stores one); one pin, the arms of that pin have crossed behind it (its arm
+    angle is below zero, past any critical angle): a shearable obstacle is released and the loop
+    dropped, an impenetrable one is bypassed the Orowan way and keeps its loop; no pin, a loop
+    that line tension would shrink away, dropped.
+    """
+    x, y, pin = line[0], line[1], line[2]
+    opin = field[3]
+    Lx = field[8]
+    ax, ay = x[p], y[p]
+    bx, by = _node_at(x, y, n, p + 1, Lx)
+    cx, cy = ax + t * (bx - ax), ay + t * (by - ay)
+    pins = 0
+    held = -1
+    for k in range(p + 1, q + 1):
+        if pin[k % n] >= 0:
+            pins += 1
+            held = k % n
+    keep = pins >= 2 or (pins == 1 and field[2][pin[held]] == np.inf)
+    if keep:        # the loop's nodes, then the crossing point that closes it
+        lx, ly, lpin, loff = loops
+        if (meta[M_NLOOPNODES] + q - p + 1 > lx.shape[0]
+                or not _store_loop(x, y, pin, n, p + 1, q, Lx, meta, loops)):
+            return -1
+        used = meta[M_NLOOPNODES]
+        lx[used], ly[used], lpin[used] = cx, cy, -1
+        meta[M_NLOOPNODES] = used + 1
+        loff[meta[M_NLOOPS]] = used + 1
+    elif pins == 1:
+        opin[pin[held]] -= 1
+        meta[M_RELEASES] += 1
+    return _rejoin(line, n, p, q, cx, cy, work_f)
+
+
+@njit(**JIT)
+def _rejoin(line, n, p, q, cx, cy, work_f):
+    """The line without the unwrapped nodes p+1..q, joined through the free node (cx, cy); return
+    the node count."""
+    x, y, pin, ign = line
+    rx, ry, rad = work_f[W_RX], work_f[W_RY], work_f[W_RAD]
+    if q < n:       # line = [0 .. p] + [X] + [q+1 .. n-1]
+        m = p + 1
+        x[m], y[m], pin[m], ign[m], rad[m] = cx, cy, -1, -1, UNKNOWN
+        m += 1
+        for k in range(q + 1, n):
+            x[m], y[m], pin[m], ign[m] = x[k], y[k], pin[k], ign[k]
+            rx[m], ry[m], rad[m] = rx[k], ry[k], rad[k]
+            m += 1
+        return m
+    m = 0           # across the seam: line = [q+1-n .. p] + [X]
+    for k in range(q + 1 - n, p + 1):
+        x[m], y[m], pin[m], ign[m] = x[k], y[k], pin[k], ign[k]
+        rx[m], ry[m], rad[m] = rx[k], ry[k], rad[k]
+        m += 1
+    x[m], y[m], pin[m], ign[m], rad[m] = cx, cy, -1, -1, UNKNOWN
+    return m + 1
+
+
 @njit(**JIT)
 def _reconnect_all(line, n, prm, meta, loops, field, work_f, work_i):
     """Reconnect every contact of the line; return (node count, whether the loop buffers ran
@@ -1044,8 +1264,15 @@ def _reconnect_all(line, n, prm, meta, loops, field, work_f, work_i):
             limit = i
             if across:
                 break
-        if not done:
-            return n, False
+        if not done:   # no contact left: cut where the line crosses itself, if it does
+            p, q, t = find_crossing(line, n, prm)
+            if p < 0:
+                return n, False
+            n_new = cut_crossing(line, n, p, q, t, meta, loops, field, work_f)
+            if n_new < 0:
+                return n, True
+            n = n_new
+            meta[M_RECONNECT] += 1
         _chord_tangents(x, y, n, Lx, work_f[W_NTX], work_f[W_NTY])
 
 
@@ -1071,17 +1298,28 @@ def _chord_tangents(x, y, n, Lx, ntx, nty):
 
 
 @njit(**JIT)
-def _release(line, n, ofc, opin, fpin):
-    """Free every pinned node whose force ``fpin`` exceeds its obstacle's strength ``ofc``;
-    return the count."""
-    pin, ign = line[2], line[3]
+def _release(line, n, field, fpin, meta, loops):
+    """Free every pinned node whose force ``fpin`` exceeds its obstacle's strength; return the
+    count, -1 if the loop buffers are full (nothing more is released: grow them, call again).
+
+    A pin whose arms have crossed behind it (``fpin`` infinite, :func:`_arms_crossed`) is past
+    any critical angle: a shearable obstacle is released; an impenetrable one (infinite strength)
+    is bypassed the Orowan way, by a loop of zero size left round it (one node at the obstacle,
+    which keeps it held), while the line node leaves it.
+    """
+    x, y, pin, ign = line
+    ofc, opin = field[2], field[3]
     released = 0
     for i in range(n):
         k = pin[i]
-        if k >= 0 and fpin[i] > ofc[k]:
+        if k >= 0 and (fpin[i] > ofc[k] or fpin[i] == np.inf):
+            if ofc[k] == np.inf:
+                if not _store_loop(x, y, pin, n, i, i, 0.0, meta, loops):
+                    return -1
+            else:
+                opin[k] -= 1
             pin[i] = -1
             ign[i] = k
-            opin[k] -= 1
             released += 1
     return released
 
@@ -1293,7 +1531,10 @@ def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
         if (area - prm.area_ref) / Lx > prm.flow:
             meta[M_N] = n
             return FLOWING
-        released = _release(line, n, field[2], field[3], work_f[W_FPIN])
+        released = _release(line, n, field, work_f[W_FPIN], meta, loops)
+        if released < 0:
+            meta[M_N] = n
+            return CAPACITY
         if released > 0:
             meta[M_RELEASES] += released
             work_f[W_RAD, :n] = UNKNOWN   # a freed obstacle may lie in any node's disc

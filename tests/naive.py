@@ -76,7 +76,11 @@ def arc_pin_force(x, y, Lx, gamma, tau):
     la, lb = np.hypot(*sa.T), np.hypot(*sb.T)
     ang_a = np.arctan2(sa[:, 1], sa[:, 0]) - np.arcsin(np.clip(tau * la / (2 * gamma), -1, 1))
     ang_b = np.arctan2(sb[:, 1], sb[:, 0]) + np.arcsin(np.clip(tau * lb / (2 * gamma), -1, 1))
-    return gamma * np.hypot(np.cos(ang_b) - np.cos(ang_a), np.sin(ang_b) - np.sin(ang_a))
+    force = gamma * np.hypot(np.cos(ang_b) - np.cos(ang_a), np.sin(ang_b) - np.sin(ang_a))
+    # arms swung past each other: the turn from t_a to t_b is a right turn of more than 90°
+    turn = np.sin(ang_b - ang_a)
+    crossed = (np.cos(ang_b - ang_a) < 0) & (turn * np.sign(tau) < 0)
+    return np.where(crossed, np.inf, force)
 
 
 def node_pass(x, y, pin, Lx, gamma, tau, tau_f, mobility, tau_int):
@@ -208,3 +212,29 @@ def move_and_pin(x, y, pin, ign, v, dt, captures):
         out.extend((cx, cy, k, -1) for seg, _, k, cx, cy in order if seg == i)
     xo, yo, po, io = (np.array(col) for col in zip(*out))
     return xo.astype(float), yo.astype(float), po.astype(np.int64), io.astype(np.int64)
+
+
+def smallest_crossing_loop(x, y, Lx, min_nodes):
+    """Node count of the smallest loop a self-crossing of the periodic line cuts off (unwrapped
+    nodes P+1..Q for segment P crossing segment Q, Q an image index), 0 if it does not cross:
+    every pair of segments against every image, one by one."""
+    n = len(x)
+    xc, yc = closed(x, y, Lx)
+    best = 0
+
+    def orient(p, q, r):
+        return np.sign((q[0] - p[0]) * (r[1] - p[1]) - (q[1] - p[1]) * (r[0] - p[0]))
+
+    for k1 in range(n):
+        a, b = (xc[k1], yc[k1]), (xc[k1 + 1], yc[k1 + 1])
+        for k2 in range(n):
+            if (k2 - k1) % n in (0, 1, n - 1):
+                continue
+            for m in (-1, 0, 1):
+                c = (xc[k2] + m * Lx, yc[k2])
+                d = (xc[k2 + 1] + m * Lx, yc[k2 + 1])
+                if orient(a, b, c) * orient(a, b, d) < 0 and orient(c, d, a) * orient(c, d, b) < 0:
+                    size = abs(k2 + m * n - k1)
+                    if 2 <= size <= n + 1 - min_nodes and (best == 0 or size < best):
+                        best = size
+    return best

@@ -553,6 +553,99 @@ def test_reconnect_leaves_line_and_loop():
     assert naive.line_area(xs[:m], ys[:m], Lx) < naive.line_area(x, y, Lx)
 
 
+def folded_line(seed, n=40, Lx=100.0):
+    """A random periodic walk that folds back on itself in places."""
+    rng = np.random.default_rng(seed)
+    x = np.sort(rng.uniform(0, Lx, n)) + rng.normal(0, 6, n)
+    return x, np.cumsum(rng.normal(0, 4, n)) * np.linspace(1, 0.2, n), Lx
+
+
+def crossing_setup(x, y, pin, Lx, extra=64):
+    n = len(x)
+    cap = 4 * n + extra
+    line = (padded(x, cap, 0.0), padded(y, cap, 0.0), padded(pin, cap, -1), np.full(cap, -1))
+    loops = (np.zeros(cap), np.zeros(cap), np.full(cap, -1), np.zeros(cap, np.int64))
+    cstart, citems, ncx, ncy = cells([], [], Lx, 100.0, 50.0)
+    opin = np.zeros(max(pin.max() + 1, 1), np.int64)
+    np.add.at(opin, pin[pin >= 0], 1)
+    field = field_tuple(np.zeros(len(opin)), np.zeros(len(opin)), opin, cstart, citems, ncx,
+                        ncy, Lx, 100.0)
+    return line, loops, field, Work(cap)
+
+
+@pytest.mark.parametrize("seed", range(12))
+def test_find_crossing_finds_the_smallest_loop_of_brute_force(seed):
+    x, y, Lx = folded_line(seed)
+    n = len(x)
+    line, *_ = crossing_setup(x, y, np.full(n, -1), Lx)
+    p, q, t = K.find_crossing(line, n, params(Lx, lmax=12.0))
+    size = naive.smallest_crossing_loop(x, y, Lx, C.MIN_NODES)
+    assert (p >= 0) == (size > 0)
+    if p >= 0:
+        assert q - p == size and 0.0 < t < 1.0
+
+
+def test_find_crossing_none_on_a_graph_line():
+    rng = np.random.default_rng(4)
+    x, y = wavy_line(rng, 60, 600.0, 80.0)
+    line, *_ = crossing_setup(x, y, np.full(60, -1), 600.0)
+    assert K.find_crossing(line, 60, params(600.0, lmax=15.0))[0] == -1
+
+
+@pytest.mark.parametrize("strength", [np.inf, 1.0])
+@pytest.mark.parametrize("seed", range(8))
+def test_cutting_every_crossing_leaves_a_simple_periodic_line(seed, strength):
+    x, y, Lx = folded_line(seed)
+    n = len(x)
+    rng = np.random.default_rng(seed)
+    pin = np.where(rng.uniform(size=n) < 0.3, np.arange(n), -1)
+    line, loops, field, w = crossing_setup(x, y, pin, Lx)
+    field[2][:] = strength
+    meta = np.zeros(C.N_META, np.int64)
+    prm = params(Lx, lmax=12.0)
+    held0 = int(field[3].sum())
+    for _ in range(n):
+        p, q, t = K.find_crossing(line, n, prm)
+        if p < 0:
+            break
+        pins = np.count_nonzero(line[2][np.arange(p + 1, q + 1) % n] >= 0)
+        loops_before, released = meta[C.M_NLOOPS], meta[C.M_RELEASES]
+        m = K.cut_crossing(line, n, p, q, t, meta, loops, field, w.f)
+        assert m == n - (q - p) + 1
+        # two pins or more: an Orowan loop; one: an impenetrable point keeps its loop, a
+        # shearable one is released; none: dropped
+        kept = pins >= 2 or (pins == 1 and strength == np.inf)
+        assert meta[C.M_NLOOPS] - loops_before == kept
+        assert meta[C.M_RELEASES] - released == (pins == 1 and not kept)
+        n = m
+    state = LineState.straight(Lx, 0.0, Lx / n)
+    state.x[:n], state.y[:n] = line[0][:n], line[1][:n]
+    assert state.self_crossings() == 0
+    # every obstacle still counted as held is held by the line or a stored loop
+    held = np.count_nonzero(line[2][:n] >= 0) + np.count_nonzero(
+        loops[2][: meta[C.M_NLOOPNODES]] >= 0)
+    assert int(field[3].sum()) == held == held0 - meta[C.M_RELEASES]
+
+
+def test_arms_crossed_behind_a_point_release_it():
+    # a point whose two arms have crossed behind it (arm angle below zero, past any critical
+    # angle) is bypassed: Foreman & Makin 1966, the point-obstacle rule of docs/physics.md
+    Lx = 100.0
+    x = np.array([10.0, 30.0, 52.0, 50.0, 48.0, 70.0, 90.0])
+    y = np.array([0.0, 0.0, 20.0, 30.0, 20.0, 0.0, 0.0])
+    pin = np.array([-1, -1, -1, 7, -1, -1, -1])
+    line, loops, field, w = crossing_setup(x, y, pin, Lx)
+    meta = np.zeros(C.N_META, np.int64)
+    p, q, t = K.find_crossing(line, 7, params(Lx, lmax=30.0))
+    assert (p, q) == (1, 4)
+    field[2][7] = 2 * GAMMA * np.cos(np.radians(30))   # shearable (φ_c = 60°): released
+    m = K.cut_crossing(line, 7, p, q, t, meta, loops, field, w.f)
+    assert m == 5 and meta[C.M_NLOOPS] == 0 and field[3][7] == 0
+    assert np.all(line[2][:m] == -1)
+    # the line runs through the crossing point, on the segment 30 -> 52 (x = 30 + 22 t)
+    assert line[0][2] == pytest.approx(30.0 + 22.0 * t) and line[1][2] > 0.0
+
+
 def test_move_and_capture_point_implicit_step():
     # a node moves by v dt/(1 + k dt), and never more than MAX_MOVE_FRACTION l_min
     Lx, n = 100.0, 4
@@ -641,9 +734,9 @@ def inside_polygon(px, py, x, y):
     xc, yc = np.append(x, x[0]), np.append(y, y[0])
     ax, bx, ay, by = xc[:-1], xc[1:], yc[:-1], yc[1:]
     straddle = (ay[None, :] <= py[:, None]) != (by[None, :] <= py[:, None])
-    with np.errstate(divide="ignore", invalid="ignore"):
+    with np.errstate(divide="ignore", invalid="ignore"):   # one-node loops: zero-length edges
         s = (py[:, None] - ay[None, :]) / (by - ay)[None, :]
-    xx = ax[None, :] + s * (bx - ax)[None, :]
+        xx = ax[None, :] + s * (bx - ax)[None, :]
     return np.sum(straddle & (xx > px[:, None]), axis=1) % 2 == 1
 
 
