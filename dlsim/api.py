@@ -358,7 +358,12 @@ def thermal_search(case: Case, obstacles: ObstacleField, athermal: CrssResult, s
 
     model, protocol, _ = model_and_protocol(case, obstacles.spacing)
     m = case.material
-    tm = thermal_model(case.thermal, m.shear_modulus_GPa, m.burgers_nm)
+    energy = None
+    if case.populations:                 # each population its ΔF0, else the [thermal] one
+        per_pop = np.array([case.thermal.activation_energy_eV if p.activation_energy_eV is None
+                            else p.activation_energy_eV for p in case.populations])
+        energy = per_pop[np.asarray(obstacles.population, np.int64)]
+    tm = thermal_model(case.thermal, m.shear_modulus_GPa, m.burgers_nm, energy)
     return find_thermal_stress(obstacles, model, protocol, tm,
                                math.log(case.thermal.strain_rate_per_s), athermal.hi, seed)
 

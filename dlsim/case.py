@@ -316,8 +316,8 @@ SCHEMA: dict[str, Section] = {
                                      between(1e6, 1e18, closed=True)),
         "attempt_frequency_Hz": Key(float, "the attempt frequency ν0 in Hz", 1e11,
                                     between(1e6, 1e15, closed=True)),
-        "activation_energy_eV": Key(float, "the activation energy ΔF0 at zero force in eV, one "
-                                           "value for every obstacle", 1.0,
+        "activation_energy_eV": Key(float, "the activation energy ΔF0 at zero force in eV, of "
+                                           "every obstacle (a population may give its own)", 1.0,
                                     between(1e-3, 100.0, closed=True)),
         "p": Key(float, "the exponent p of ΔG = ΔF0 [1 - (F/F_c)^p]^q, 0 < p <= 1", 0.5,
                  Check(lambda v: 0.0 < v <= 1.0, "{noun} in (0, 1]")),
@@ -391,6 +391,9 @@ ARRAY_SCHEMA: dict[str, Section] = {
                         between(0, 10, closed=True)),
         "critical_angle_deg": Key(float, "the critical angle φ_c in degrees (point)", None,
                                   between(0, 180, closed=True)),
+        "activation_energy_eV": Key(float, "this population's activation energy ΔF0 in eV "
+                                           "(default: `thermal.activation_energy_eV`)", None,
+                                    between(1e-3, 100.0, closed=True)),
     }, at_most_one=(("volume_fraction", "number_density_per_um3"),)),
 }
 #: Keys each choice needs; a key of another choice is refused (it would be silently ignored).
@@ -481,6 +484,7 @@ class PopulationSpec:
     exponent: float | None
     critical_angle_deg: float | None
     areal_density_per_nm2: float
+    activation_energy_eV: float | None = None
     source: str = field(default=DICT_SOURCE, compare=False, repr=False)
     key: str = field(default="populations[1]", compare=False, repr=False)
     #: The sizes read from ``sizes_file`` (distribution = "measured"), read once when resolved.

@@ -66,6 +66,7 @@ def log_rate(x, barrier, p, q):
 @njit(**JIT)
 def pin_log_rates(W, s, barrier, p, q, slots, lnr):
     """Fill slots[:n], lnr[:n] with the line's pins and their ln(r/ν0) at stress s; returns n.
+    ``barrier`` (m,) is ΔF0/kT of every obstacle.
 
     The force on a pin is 2Γ cos(φ/2) (φ its arm angle) and F_c = 2Γ cos(φ_c/2), so F/F_c is the
     ratio of the cosines.  An impenetrable obstacle (φ_c = 0) is never activated: -inf.
@@ -76,13 +77,14 @@ def pin_log_rates(W, s, barrier, p, q, slots, lnr):
         return 0
     i, n = i0, 0
     for _ in range(slots.shape[0]):
-        phic = OB[2, PI[A.PK, i]]
+        k = PI[A.PK, i]
+        phic = OB[2, k]
         slots[n] = i
         if phic <= 0.0:
             lnr[n] = -np.inf
         else:
             x = math.cos(0.5 * A._pin_phi(W, i, s)) / math.cos(0.5 * phic)
-            lnr[n] = log_rate(x, barrier, p, q)
+            lnr[n] = log_rate(x, barrier[k], p, q)
         n += 1
         i = PI[A.PNEXT, i]
         if i == i0:
@@ -122,8 +124,10 @@ def kmc_events(W, s, barrier, p, q, u, Q, slots, lnr, waits):
         The arc construction's work arrays, stable at stress s (``arcs._Run.tuple``).
     s : float
         Stress τ/(2Γ) (b⁻¹), fixed.
-    barrier, p, q : float
-        ΔF0/kT and the exponents of ΔG.
+    barrier : (m,) float64
+        ΔF0/kT of every obstacle.
+    p, q : float
+        The exponents of ΔG.
     u : (2 n,) float64
         Uniform numbers in (0, 1]: event k picks its pin with u[2k] and its waiting time with
         u[2k+1].
@@ -197,11 +201,11 @@ def kmc_events(W, s, barrier, p, q, u, Q, slots, lnr, waits):
 class ThermalModel:
     """Activation parameters in the units the kernels need.
 
-    ``barrier`` is ΔF0/kT, ``p`` and ``q`` the exponents, ``ln_nu0`` ln(ν0/Hz), ``ln_rate_scale``
+    ``barrier`` is ΔF0/kT (a number for every obstacle, or an (m,) array of each obstacle's), ``p`` and ``q`` the exponents, ``ln_nu0`` ln(ν0/Hz), ``ln_rate_scale``
     ln(ρ_m b · b) (ε̇ = ρ_m b v with v in m/s and glide in b), ``kT`` in G b³ (for V*).
     """
 
-    barrier: float
+    barrier: float | np.ndarray
     p: float
     q: float
     ln_nu0: float
@@ -211,12 +215,15 @@ class ThermalModel:
     sequences: int
 
 
-def thermal_model(spec, shear_modulus_GPa: float, burgers_nm: float) -> ThermalModel:
-    """A :class:`ThermalModel` from a case's ``[thermal]`` spec and its material."""
+def thermal_model(spec, shear_modulus_GPa: float, burgers_nm: float,
+                  activation_energy_eV: np.ndarray | None = None) -> ThermalModel:
+    """A :class:`ThermalModel` from a case's ``[thermal]`` spec and its material;
+    ``activation_energy_eV`` (m,) gives each obstacle its own ΔF0 (default the spec's)."""
     kT_eV = K_B_EV * spec.temperature_K
     b_m = burgers_nm * 1e-9
     kT_reduced = kT_eV * EV_J / (shear_modulus_GPa * 1e9 * b_m ** 3)
-    return ThermalModel(spec.activation_energy_eV / kT_eV, spec.p, spec.q,
+    energy = spec.activation_energy_eV if activation_energy_eV is None else activation_energy_eV
+    return ThermalModel(energy / kT_eV, spec.p, spec.q,
                         math.log(spec.attempt_frequency_Hz),
                         math.log(spec.mobile_density_per_m2 * b_m * b_m), kT_reduced,
                         spec.events, spec.sequences)
@@ -273,10 +280,12 @@ def log_velocity(obstacles: ObstacleField, model: LineModel, protocol: Protocol,
     Q[Q_LNT], Q[Q_LNT0], Q[Q_PENDING] = -np.inf, -np.inf, 1.0
     Q[Q_WARM] = int(WARMUP_FRACTION * (u.shape[0] // 2))
     waits = np.full(u.shape[0] // 2, np.nan) if waits is None else waits
+    barrier = np.ascontiguousarray(np.broadcast_to(np.asarray(tm.barrier, float),
+                                                   (obstacles.n,)))
     while True:
         C = run.capacity
         slots, lnr = np.zeros(C + 1, np.int64), np.zeros(C + 1)
-        st = kmc_events(run.tuple(), s, tm.barrier, tm.p, tm.q, u, Q, slots, lnr, waits)
+        st = kmc_events(run.tuple(), s, barrier, tm.p, tm.q, u, Q, slots, lnr, waits)
         if st != K_GROW:
             break
         run.grow()

@@ -192,3 +192,23 @@ def test_random_field_stress_falls_with_temperature_to_the_athermal_crss():
     assert all(a > b for a, b in zip(crss, crss[1:])), crss
     assert crss[0] < athermal
     assert 1.0 - crss[0] / athermal < 3 * (1.0 - kaa_stress_over_fc(2.0))
+
+
+def population_case(energy_eV):
+    """Point obstacles of one population (φc = 90°), ΔF0 given by the population."""
+    return {"title": "clusters", "seed": 5, "material": {"symbol": "Al"}, "line": {"length": 16},
+            "populations": [{"name": "clusters", "number_density_per_um3": 2e4,
+                             "distribution": "single", "radius_nm": 1.0, "strength": "point",
+                             "critical_angle_deg": PHIC_DEG, "activation_energy_eV": energy_eV}],
+            "thermal": {"temperature_K": 300.0, "activation_energy_eV": 1.0, "events": 200,
+                        "sequences": 1}}
+
+
+def test_population_activation_energy_replaces_the_thermal_one():
+    # a population's own ΔF0 is used: the same value as [thermal] gives the same stress, a
+    # larger one a higher stress (ΔG grows with ΔF0; Kocks, Argon & Ashby 1975)
+    same = api.run_case(population_case(1.0), out_dir=False).summary["crss_MPa"]
+    c = population_case(1.0)
+    del c["populations"][0]["activation_energy_eV"]
+    assert api.run_case(c, out_dir=False).summary["crss_MPa"] == same
+    assert api.run_case(population_case(3.0), out_dir=False).summary["crss_MPa"] > 1.5 * same
