@@ -72,7 +72,7 @@ def strength_increment(crss: float, taylor_factor: float = TAYLOR_FCC) -> float:
     return taylor_factor * crss
 
 
-#: What each estimate of ``estimates_MPa`` assumes, in a phrase (tables and legends).
+#: What each estimate (``estimates`` keys ``<model>_MPa``) assumes, in a phrase (tables, legends).
 ESTIMATES = {
     "orowan_square": ("Orowan, square array", "2Γ/(bL): impenetrable points on a square array of "
                                               "the same spacing"),
@@ -80,10 +80,12 @@ ESTIMATES = {
                                             "square array"),
     "orowan_finite": ("Orowan, finite discs", "2Γ/(b(L_s − 2⟨ρ⟩)): the free span between "
                                               "impenetrable discs"),
-    "foreman_makin": ("Foreman–Makin", "0.81 · 2Γ/(b L_s): random impenetrable points (Foreman & "
-                                       "Makin 1966, from memory)"),
-    "friedel": ("Friedel", "(2Γ/(b L_s)) cos^(3/2)(φc/2): random weak points (Friedel 1964), "
-                           "mean F_c of the sheared particles"),
+    "foreman_makin": ("Foreman–Makin random array",
+                      "0.81 · 2Γ/(b L_s): random impenetrable points (Foreman & Makin 1966, from "
+                      "memory)"),
+    "friedel": ("Friedel random array",
+                "(2Γ/(b L_s)) cos^(3/2)(φc/2): random weak points (Friedel 1964), mean F_c of the "
+                "sheared particles"),
     "superposition_linear": ("linear superposition", "Σ τ_i of the populations' own estimates"),
     "superposition_pythagorean": ("Pythagorean superposition", "(Σ τ_i²)^(1/2) of the "
                                                                "populations' own estimates"),

@@ -9,9 +9,9 @@ keeps its own CRSS and bracket (``realizations`` in ``result.json``), and the fi
 configuration (``line.csv``, ``obstacles.csv``, ``loops.csv``, ``snapshots.npz``) are those of
 realization 0, as ``result.json`` says.  ``history.csv`` holds every realization's relaxations.
 
-Names in ``result.json`` and the CSV files follow one rule: quantity, then statistic, then unit
-(``crss_MPa``, ``crss_mean_MPa``, ``crss_ci95_MPa``); a pair [lo, hi] in JSON is two CSV columns
-``..._lo_MPa``, ``..._hi_MPa``.
+Names in ``result.json`` and the CSV files follow one rule (docs/outputs.md): quantity, then
+statistic, then unit (``crss_MPa``, ``crss_mean_MPa``, ``crss_ci95_lo_MPa``); an interval is two
+keys ``..._lo_<unit>``, ``..._hi_<unit>``, never a JSON pair; counts are ``n_<things>``.
 """
 from __future__ import annotations
 
@@ -57,6 +57,8 @@ STATUS_OK = "ok"                      # every realization bracketed its CRSS
 STATUS_UNCONVERGED = "unconverged"    # bracketed, but some relaxations used every allowed step
 STATUS_NO_CRSS = "no_crss"            # some realization found no CRSS (see ``message``)
 STATUS_INTERRUPTED = "interrupted"    # stopped by the user; the finished realizations are kept
+#: The estimate the run summary prints as its Orowan reference (``estimates`` key).
+OROWAN_ESTIMATE = "orowan_square_MPa"
 
 
 @dataclass
@@ -121,8 +123,8 @@ class RunResult:
     @property
     def bracket_MPa(self) -> tuple[float, float]:
         """The CRSS bracket of realization 0 (each realization has its own, see ``summary``)."""
-        lo, hi = self.summary["realizations"][0]["crss_bracket_MPa"]
-        return lo, hi
+        first = self.summary["realizations"][0]
+        return first["crss_lo_MPa"], first["crss_hi_MPa"]
 
 
 def line_tension(case: Case) -> float:
@@ -187,8 +189,8 @@ def model_record(case: Case) -> dict:
     else:
         rec.update(core_radius_nm=e.core_radius_nm, outer_radius_nm=e.outer_radius_nm)
     if e.model == "self_stress":
-        rec.update(images=e.images, cutoff_nm=e.cutoff_nm, refresh=e.refresh,
-                   loops_interact=True)
+        rec.update(n_image_periods=e.images, cutoff_nm=e.cutoff_nm,
+                   n_refresh_steps=e.refresh, loops_interact=True)
     return rec
 
 
@@ -397,7 +399,7 @@ def thermal_record(case: Case, runs: list[Realization]) -> dict:
     return {"temperature_K": t.temperature_K, "strain_rate_per_s": t.strain_rate_per_s,
             "crss_athermal_MPa": float(np.mean([mpa(x.athermal) for x in th])),
             "crss_sequences_MPa": [mpa(x) for x in stress], "crss_sequence_std_MPa": iv.std,
-            "crss_sequence_ci95_MPa": [iv.lo, iv.hi],
+            "crss_sequence_ci95_lo_MPa": iv.lo, "crss_sequence_ci95_hi_MPa": iv.hi,
             "activation_volume_b3": float(vstar.mean()),
             "activation_volume_std_b3": float(vstar.std(ddof=1)) if vstar.size > 1 else None,
             "n_sequences": int(stress.size), "n_events_per_sequence": t.events}
@@ -537,19 +539,18 @@ def _realization_record(case: Case, real: Realization) -> dict:
     # populations draw realization r from SeedSequence(seed, spawn_key=(r, population))
     stream = {} if case.obstacles is not None else {"spawn_key": [real.index]}
     return {"realization": real.index, "seed": real.seed, **stream, "status": _search_status(s),
-            "message": s.message, "crss_MPa": mpa(s.crss), "crss_bracket_MPa": [mpa(s.lo),
-                                                                                 mpa(s.hi)],
-            "crss_per_pass_MPa": [mpa(p[1].crss) for p in real.passes],
-            "n_obstacle_points": real.field.n, "relaxations": len(s.history),
-            "time_steps": int(sum(h.steps for h in s.history)), "events": _events(s)}
+            "message": s.message, "crss_MPa": mpa(s.crss), "crss_lo_MPa": mpa(s.lo),
+            "crss_hi_MPa": mpa(s.hi), "crss_per_pass_MPa": [mpa(p[1].crss) for p in real.passes],
+            "n_obstacle_points": real.field.n, "n_relaxations": len(s.history),
+            "n_time_steps": int(sum(h.steps for h in s.history)), "events": _events(s)}
 
 
 def _events(search: CrssResult) -> dict:
-    """Counters of the CRSS search, named for what they count."""
+    """Counters of the CRSS search, named for what they count (``n_loops_cut``: the Orowan loops
+    the line had cut off when pinned at the lower end of its bracket)."""
     c = search.counters
-    return {"captures": c.get("captures", 0), "releases": c.get("releases", 0),
-            "reconnections": c.get("reconnections", 0),
-            "loops_at_crss": c.get("loops", 0)}
+    return {"n_captures": c.get("captures", 0), "n_releases": c.get("releases", 0),
+            "n_reconnections": c.get("reconnections", 0), "n_loops_cut": c.get("loops", 0)}
 
 
 def summarize(case: Case, runs: list[Realization], wall: float, interrupted: bool = False
@@ -579,20 +580,22 @@ def summarize(case: Case, runs: list[Realization], wall: float, interrupted: boo
         "solver": case.solver.solver,
         "crss_MPa": crss,
         "crss_over_orowan": None if crss is None else float(u.stress(crss) / tau_ref),
-        "realizations_count": len(runs),
+        "n_realizations": len(runs),
     }
     if len(runs) == 1:
-        summary["crss_bracket_MPa"] = records[0]["crss_bracket_MPa"]
+        summary.update(crss_lo_MPa=records[0]["crss_lo_MPa"],
+                       crss_hi_MPa=records[0]["crss_hi_MPa"])
     else:
         summary.update(crss_mean_MPa=crss, crss_std_MPa=iv.std,
-                       crss_ci95_MPa=[iv.lo, iv.hi], crss_ci95_method=iv.method)
+                       crss_sem_MPa=iv.sem, crss_ci95_lo_MPa=iv.lo,
+                       crss_ci95_hi_MPa=iv.hi, crss_ci95_method=iv.method)
     summary.update({
         "realizations": records,
         "orowan_MPa": mpa(tau_ref),
         "friction_MPa": case.friction.stress_MPa,
         "n_obstacle_points": first.field.n,
-        "box_nm": [float(u.length_nm(Lx)), float(u.length_nm(Ly))],
-        "box_in_spacings": box,
+        "box_length_nm": float(u.length_nm(Lx)), "box_height_nm": float(u.length_nm(Ly)),
+        "box_length_spacings": box[0], "box_height_spacings": box[1],
         "spacing_nm": float(u.length_nm(L)),
         "line_tension_nN": float(u.force_nN(line_tension(case))),
         "seed": case.seed,
@@ -606,7 +609,7 @@ def summarize(case: Case, runs: list[Realization], wall: float, interrupted: boo
     est = estimate_case(case)
     if case.obstacles is None:
         summary.update(population_summary(case, runs, iv, status, est))
-    summary["estimates_MPa"] = est["estimates_MPa"]
+    summary["estimates"] = est["estimates"]
     summary.update(warnings=warnings, wall_time_s=wall, dlsim_version=__version__,
                    case=case.to_dict())
     return summary
@@ -620,7 +623,7 @@ def loop_relaxation_record(case: Case, real: Realization) -> dict:
         return {}
     rep = real.loops[0]
     return {"stress_MPa": float(case.units.stress_MPa(rep.tau)), **rep.counts(),
-            "steps_max": int(rep.steps.max(initial=0))}
+            "n_steps_max": int(rep.steps.max(initial=0))}
 
 
 def _message(status: str, records: list[dict], count: int, case: Case) -> str:
@@ -660,14 +663,15 @@ def population_summary(case: Case, runs: list[Realization], iv: statistics.Inter
         "taylor_factor": M,
         "crss_per_pass_MPa": passes,
         "n_particles": first.field.table.n,
-        "loops": {"loops_after_crossing": len(held),
-                  "particles_looped": int(np.count_nonzero(counts)),
-                  "loops_max_per_particle": int(counts.max(initial=0))},
+        "loops": {"n_loops_left": len(held), "n_loops_stored": len(first.swept.loops()),
+                  "n_particles_looped": int(np.count_nonzero(counts)),
+                  "n_loops_per_particle_max": int(counts.max(initial=0))},
         "passes_model": "each looped particle becomes an impenetrable disc enlarged by "
                         f"loop_spacing_nm = {case.strength.loop_spacing_nm:g} nm per loop",
     }
     if len(runs) > 1 and ok:
-        out["delta_sigma_ci95_MPa"] = [M * (iv.lo - tau_f), M * (iv.hi - tau_f)]
+        out["delta_sigma_ci95_lo_MPa"] = M * (iv.lo - tau_f)
+        out["delta_sigma_ci95_hi_MPa"] = M * (iv.hi - tau_f)
     out.update({k: est[k] for k in ("N_A_per_um2", "L_s_nm", "populations", "statistics_source")})
     return out
 
@@ -703,10 +707,21 @@ def _obstacle_estimates(case: Case) -> dict:
     return est
 
 
+def _in_MPa(estimates: dict) -> dict:
+    """Estimates keyed by model as output keys: ``{"foreman_makin_MPa": value}``."""
+    return {f"{k}_MPa": v for k, v in estimates.items()}
+
+
+def estimate_model(key: str) -> str:
+    """The model of an estimate key: ``"foreman_makin_MPa"`` → ``"foreman_makin"``."""
+    return key.removesuffix("_MPa")
+
+
 def estimate_case(case) -> dict:
     """Closed-form strength estimates of a case, without simulating.
 
-    For ``[obstacles]``: ``orowan_square`` 2Γ/(bL) and either ``square_array`` (the exact CRSS of
+    Keys of ``estimates`` (and ``delta_sigma_estimates``) are ``<model>_MPa``.  For
+    ``[obstacles]``: ``orowan_square`` 2Γ/(bL) and either ``square_array`` (the exact CRSS of
     the square array), ``foreman_makin`` (random impenetrable points, 0.81 · 2Γ/(bL_s), from
     memory) or ``friedel`` (random shearable points).  Every estimate is of the obstacles' own
     contribution: compare it with ``crss_MPa − friction_MPa``.
@@ -718,14 +733,14 @@ def estimate_case(case) -> dict:
     ``orowan_square`` 2Γ/(b L_s), ``orowan_finite`` 2Γ/(b(L_s − 2⟨ρ⟩)), ``foreman_makin``,
     ``friedel`` (with the mean F_c, when some particles are sheared), and for several populations
     ``superposition_linear`` and ``superposition_pythagorean`` of the per-population estimates
-    (each with its own L_s); ``delta_sigma_MPa`` (M × each estimate); ``N_A_per_um2``, ``L_s_nm``,
-    ``populations``.
+    (each with its own L_s); ``delta_sigma_estimates`` (M × each estimate); ``N_A_per_um2``,
+    ``L_s_nm``, ``populations``.
     """
     from . import particles as P
 
     case = load_case(case)
     if case.obstacles is not None:
-        return {"estimates_MPa": _obstacle_estimates(case)}
+        return {"estimates": _in_MPa(_obstacle_estimates(case))}
     u, gamma = case.units, line_tension(case)
     table, sections = populations_table(case, 0)
     area_nm2 = case.line.length_nm * case.line.height_nm
@@ -747,11 +762,11 @@ def estimate_case(case) -> dict:
         tau_i = mpa(_population_estimate(gamma, ls_i, fc, rho)) if fc.size else 0.0
         own.append(tau_i)
         pops[pop.name] = {
-            "count": int(stats["count"]), "N_A_per_um2": stats["areal_density_per_um2"],
+            "n_sections": int(stats["count"]), "N_A_per_um2": stats["areal_density_per_um2"],
             "L_s_nm": stats["mean_square_spacing_nm"], "rho_mean_nm": stats["rho_mean_nm"],
             "rho_std_nm": stats["rho_std_nm"], "rho2_mean_nm2": stats["rho2_mean_nm2"],
-            "fraction_sheared": float(np.mean(np.isfinite(fc))) if fc.size else float("nan"),
-            "fraction_bypassed": float(np.mean(np.isinf(fc))) if fc.size else float("nan"),
+            "sheared_fraction": float(np.mean(np.isfinite(fc))) if fc.size else float("nan"),
+            "bypassed_fraction": float(np.mean(np.isinf(fc))) if fc.size else float("nan"),
             "estimate_MPa": tau_i,
             "expected": None if pop.arrangement == "file" else P.expected_section_stats(
                 pop.size_distribution(), pop.volume_fraction, pop.number_density_per_nm3)}
@@ -759,8 +774,9 @@ def estimate_case(case) -> dict:
         est["superposition_linear"] = analytic.superpose(own, 1.0)
         est["superposition_pythagorean"] = analytic.superpose(own, 2.0)
     M = case.strength.taylor_factor
-    return {"estimates_MPa": est,
-            "delta_sigma_MPa": {k: analytic.strength_increment(v, M) for k, v in est.items()},
+    return {"estimates": _in_MPa(est),
+            "delta_sigma_estimates": _in_MPa({k: analytic.strength_increment(v, M)
+                                              for k, v in est.items()}),
             "N_A_per_um2": float(table.n / area_nm2 * 1e6), "L_s_nm": float(u.length_nm(L_s)),
             "populations": pops,
             "statistics_source": "sections of realization 0 (sampled, as in the run); spacing: "
@@ -771,7 +787,7 @@ def estimate_case(case) -> dict:
 
 
 def run_files(result: RunResult) -> dict[str, bytes]:
-    """The files of a run folder (name → bytes), formats in DEVELOPERS.md.
+    """The files of a run folder (name → bytes), formats in docs/outputs.md.
 
     obstacles.csv, line.csv, loops.csv and snapshots.npz show realization 0 (obstacles.csv has
     one row per particle: a disc's ring points are not listed; loops.csv lists the nodes of the
@@ -851,16 +867,22 @@ def _describe_model(m: dict) -> str:
             f"(0 screw, 90 edge), ν = {m['poisson_ratio']:g}, core {m['core_radius_nm']:g} nm")
     if m["line_model"] == "dewit_koehler":
         return text + f", outer cut-off {m['outer_radius_nm']:g} nm"
-    return text + f", {m['images']} image period(s) each side" + (
+    return text + f", {m['n_image_periods']} image period(s) each side" + (
         f", cutoff {m['cutoff_nm']:g} nm" if m["cutoff_nm"] > 0 else "")
+
+
+def estimate_name(key: str) -> str:
+    """The readable name of an estimate key (``"foreman_makin_MPa"`` → ``"Foreman–Makin"``),
+    the same in the estimates table and the run summary."""
+    model = estimate_model(key)
+    return analytic.ESTIMATES.get(model, (model.replace("_", " "), ""))[0]
 
 
 def format_estimates(estimates: dict) -> str:
     """The estimates of :func:`estimate_case` as a table: name, value, Δσ, what it assumes."""
-    est, dsig = estimates["estimates_MPa"], estimates.get("delta_sigma_MPa", {})
-    rows = [(analytic.ESTIMATES.get(k, (k, ""))[0], f"{v:9.2f}",
-             f"{dsig[k]:9.1f}" if k in dsig else " " * 9, analytic.ESTIMATES.get(k, ("", ""))[1])
-            for k, v in est.items()]
+    est, dsig = estimates["estimates"], estimates.get("delta_sigma_estimates", {})
+    rows = [(estimate_name(k), f"{v:9.2f}", f"{dsig[k]:9.1f}" if k in dsig else " " * 9,
+             analytic.ESTIMATES.get(estimate_model(k), ("", ""))[1]) for k, v in est.items()]
     width = max(len(r[0]) for r in rows)
     head = f"{'estimate':{width}s}  τ_c (MPa)  Δσ (MPa)  assumes"
     lines = [head, "-" * len(head)] + [f"{a:{width}s}  {b}  {c}  {d}" for a, b, c, d in rows]
@@ -875,17 +897,17 @@ def format_estimates(estimates: dict) -> str:
 
 def _describe_population(name: str, pop: dict) -> str:
     """One line per population: its sections in realization 0 and where its sizes came from."""
-    text = (f"{name}: {pop['count']} sections (realization 0), L_s {pop['L_s_nm']:.3g} nm, "
-            f"⟨ρ⟩ {pop['rho_mean_nm']:.3g} nm, {100 * pop['fraction_sheared']:.0f}% sheared")
+    text = (f"{name}: {pop['n_sections']} sections (realization 0), L_s {pop['L_s_nm']:.3g} nm, "
+            f"⟨ρ⟩ {pop['rho_mean_nm']:.3g} nm, {100 * pop['sheared_fraction']:.0f}% sheared")
     measured = (pop.get("expected") or {}).get("measured")
     if measured:
-        text += (f"; sizes: {measured['count']} measured {measured['sizes_are']} "
+        text += (f"; sizes: {measured['n_sizes']} measured {measured['sizes_are']} "
                  f"({measured['size_kind']}s) from {measured['file']}")
         unfolding = measured.get("unfolding")
         if unfolding:
-            text += (f", unfolded by {measured['method']} in {unfolding['classes']} classes"
-                     + (f", {unfolding['negative_classes']} negative classes fitted non-negative"
-                        if unfolding["negative_classes"] else ""))
+            text += (f", unfolded by {measured['method']} in {unfolding['n_classes']} classes"
+                     + (f", {unfolding['n_negative_classes']} negative classes fitted non-negative"
+                        if unfolding["n_negative_classes"] else ""))
     return text
 
 
@@ -895,50 +917,62 @@ def _fmt(value, spec: str = ".2f") -> str:
 
 def format_summary(result: RunResult) -> str:
     """A few readable lines for the terminal: the CRSS (mean and interval over realizations,
-    then each realization's value and bracket), the field, the model, the status."""
+    then each realization's value and bracket), the field, the model, the status.
+
+    Every figure says what it counts, under the name ``result.json`` and the estimates table
+    give it: particles and obstacle points (a disc is a ring of points), the Orowan estimate
+    (``estimates.orowan_square_MPa``, "Orowan, square array"), and each loop count.
+    """
     s, case = result.summary, result.case
-    n = s["realizations_count"]
+    n = s["n_realizations"]
     kind = "particles" if case.obstacles is None else case.obstacles.kind
-    field_line = (f"field     {kind}: {s['n_obstacle_points']} obstacle points"
-                  + (f" for {s['n_particles']} particles (discs are rings of points)"
-                     if "n_particles" in s else "")
-                  + f"; box {s['box_nm'][0]:.0f} x {s['box_nm'][1]:.0f} nm = "
-                  f"{s['box_in_spacings'][0]:.1f} x {s['box_in_spacings'][1]:.1f} "
-                  f"{'L' if kind == 'square' else 'L_s'} (spacing {s['spacing_nm']:.1f} nm)")
+    what = (f"{s['n_particles']} particles, {s['n_obstacle_points']} obstacle points (particle "
+            "sections and the ring points of impenetrable discs)" if "n_particles" in s
+            else f"{s['n_obstacle_points']} obstacle points")
+    field_line = (f"field     {kind}: {what}; box {s['box_length_nm']:.0f} x "
+                  f"{s['box_height_nm']:.0f} nm = {s['box_length_spacings']:.1f} x "
+                  f"{s['box_height_spacings']:.1f} {'L' if kind == 'square' else 'L_s'} "
+                  f"(spacing {s['spacing_nm']:.1f} nm)")
     lines = [f"case      {case.source}" + (f"  ({case.title})" if case.title else ""), field_line]
     if n == 1:
-        lo, hi = s["crss_bracket_MPa"]
-        lines.append(f"CRSS      {_fmt(s['crss_MPa'])} MPa, bracket [{lo:.2f}, {hi:.2f}] MPa")
+        lines.append(f"CRSS      {_fmt(s['crss_MPa'])} MPa, bracket [{_fmt(s['crss_lo_MPa'])}, "
+                     f"{_fmt(s['crss_hi_MPa'])}] MPa")
     else:
-        lo, hi = s.get("crss_ci95_MPa", [None, None])
         lines.append(f"CRSS      {_fmt(s['crss_MPa'])} MPa, mean of {n} realizations, 95% "
-                     f"interval [{_fmt(lo)}, {_fmt(hi)}] MPa (Student t)")
+                     f"interval [{_fmt(s.get('crss_ci95_lo_MPa'))}, "
+                     f"{_fmt(s.get('crss_ci95_hi_MPa'))}] MPa (Student t)")
         for rec in s["realizations"]:
-            rlo, rhi = rec["crss_bracket_MPa"]
             seed = (f"seed {rec['seed']}" if "spawn_key" not in rec else
                     f"seed {rec['seed']}, stream {rec['spawn_key'][0]}")
             lines.append(f"  realization {rec['realization']} ({seed}): "
-                         f"{_fmt(rec['crss_MPa'])} MPa, bracket [{_fmt(rlo)}, {_fmt(rhi)}] "
-                         f"MPa, {rec['status']}")
-    ratio = s["crss_over_orowan"]
-    lines.append(f"reference Orowan 2Γ/(bL) = {s['orowan_MPa']:.2f} MPa; CRSS / Orowan = "
-                 f"{_fmt(ratio, '.3f')}")
+                         f"{_fmt(rec['crss_MPa'])} MPa, bracket [{_fmt(rec['crss_lo_MPa'])}, "
+                         f"{_fmt(rec['crss_hi_MPa'])}] MPa, {rec['status']}")
+    orowan = s["estimates"].get(OROWAN_ESTIMATE, s["orowan_MPa"])
+    lines.append(f"reference {estimate_name(OROWAN_ESTIMATE)} 2Γ/(bL) = {orowan:.2f} MPa "
+                 f"(estimate {estimate_model(OROWAN_ESTIMATE)}); CRSS / Orowan = "
+                 f"{_fmt(s['crss_over_orowan'], '.3f')}")
     if "delta_sigma_MPa" in s:
-        ci = s.get("delta_sigma_ci95_MPa")
-        loops = s["loops"]
+        lo, hi = s.get("delta_sigma_ci95_lo_MPa"), s.get("delta_sigma_ci95_hi_MPa")
         lines.append(f"strength  Δσ = M (τ_c − τ_f) = {_fmt(s['delta_sigma_MPa'], '.1f')} MPa "
                      f"(M = {s['taylor_factor']:g})"
-                     + (f", 95% [{ci[0]:.1f}, {ci[1]:.1f}] MPa" if ci else "")
+                     + (f", 95% [{lo:.1f}, {hi:.1f}] MPa" if lo is not None else "")
                      + f"; per pass {', '.join(f'{v:.2f}' for v in s['crss_per_pass_MPa'])} MPa")
-        lines.append(f"loops     {loops['loops_after_crossing']} Orowan loops left after the line "
-                     f"crossed the field once, around {loops['particles_looped']} particles "
-                     f"(realization 0)")
+        lines.append(format_loops(s))
     lines.append(f"model     {_describe_model(s['model'])}")
-    rel = sum(r["relaxations"] for r in s["realizations"])
-    steps = sum(r["time_steps"] for r in s["realizations"])
+    rel = sum(r["n_relaxations"] for r in s["realizations"])
+    steps = sum(r["n_time_steps"] for r in s["realizations"])
     lines.append(f"status    {s['status']}: {s['message']}; {rel} relaxations, {steps} time "
                  f"steps, {s['wall_time_s']:.1f} s")
     lines += [f"warning   {w}" for w in s["warnings"]]
     if result.out_dir is not None:
         lines.append(f"written   {result.out_dir}")
     return "\n".join(lines)
+
+
+def format_loops(s: dict) -> str:
+    """The loop counts of a population run (realization 0), each named for what it counts."""
+    loops = s["loops"]
+    return (f"loops     realization 0: {s['events']['n_loops_cut']} cut off by the line pinned "
+            f"at the CRSS; {loops['n_loops_left']} left after it crossed the field once, "
+            f"{loops['n_loops_stored']} stored in loops.csv; {loops['n_particles_looped']} "
+            f"particles enclosed by loops (at most {loops['n_loops_per_particle_max']} on one)")

@@ -998,7 +998,7 @@ def _resolve_measured(source: str, prefix: str, p: dict, base: Path
         _refuse(source, _join(prefix, "unfold_classes"), p["unfold_classes"],
                 f"only for a per-row file; the bins of {p['sizes_file']} are the classes")
     elif unfolding is not None:
-        p["unfold_classes"] = unfolding["classes"]
+        p["unfold_classes"] = unfolding["n_classes"]
     return sizes
 
 

@@ -78,6 +78,14 @@ def _cmd_plot(args: argparse.Namespace) -> int:
     return 0
 
 
+def _cmd_report(args: argparse.Namespace) -> int:
+    from .report import make_report
+
+    for path in make_report(args.folder):
+        print(path)
+    return 0
+
+
 def _cmd_movie(args: argparse.Namespace) -> int:
     from .movie import make_movie
 
@@ -88,7 +96,7 @@ def _cmd_movie(args: argparse.Namespace) -> int:
 
 
 def _add_sweep_commands(sub) -> None:
-    """Sub-commands of the sweep layer: sweep, plot, movie."""
+    """Sub-commands of the sweep layer: sweep, plot, report, movie."""
     sweep = sub.add_parser("sweep", help="run (or resume) every case of a sweep file")
     sweep.add_argument("sweep", help="sweep file (TOML)")
     sweep.add_argument("--out", default=None, help="sweep folder (overrides [output] folder)")
@@ -105,6 +113,11 @@ def _add_sweep_commands(sub) -> None:
     plot.add_argument("--quantity", choices=("crss", "delta_sigma"), default="crss",
                       help="what a sweep figure shows (default: crss)")
     plot.set_defaults(func=_cmd_plot)
+
+    report = sub.add_parser("report", help="one-page report (report.png, report.pdf) of a run "
+                                           "or a sweep folder")
+    report.add_argument("folder", help="run folder or sweep folder")
+    report.set_defaults(func=_cmd_report)
 
     movie = sub.add_parser("movie", help="animate the snapshots of a run folder")
     movie.add_argument("run_dir", help="run folder with snapshots.npz")

@@ -55,6 +55,9 @@ CONFIDENCE = 0.95
 NORMAL_95 = 1.959963984540054
 CONVERGE_JSON = "converge.json"
 CONVERGE_CSV = "converge.csv"
+#: converge.csv: one row per box size (docs/outputs.md).
+CONVERGE_COLUMNS = ("box_length_spacings", "n_obstacles_expected", "n_realizations",
+                    "crss_mean_MPa", "crss_std_MPa", "crss_sem_MPa")
 
 
 @dataclass
@@ -89,8 +92,8 @@ class Fit:
 
     def to_dict(self) -> dict:
         return {"form": self.form, "crss_infinite_MPa": self.tau_inf,
-                "crss_infinite_ci95_MPa": [self.lo, self.hi], "slope_MPa": self.slope,
-                "chi2": self.chi2, "dof": self.dof}
+                "crss_infinite_ci95_lo_MPa": self.lo, "crss_infinite_ci95_hi_MPa": self.hi,
+                "slope_MPa": self.slope, "chi2": self.chi2, "n_dof": self.dof}
 
 
 def fit_form(sizes: list[SizeRuns], form: str) -> Fit:
@@ -206,7 +209,8 @@ def converge_case(case, out_dir=None, progress: bool = False) -> dict:
     Returns
     -------
     dict
-        What converge.json holds: ``crss_infinite_MPa``, ``crss_infinite_ci95_MPa``, the form,
+        What converge.json holds (docs/outputs.md): ``crss_infinite_MPa``,
+        ``crss_infinite_ci95_lo_MPa``, ``crss_infinite_ci95_hi_MPa``, the form,
         every form's fit, the box sizes, their realizations and means, status and message.
     """
     case = load_case(case)
@@ -267,7 +271,8 @@ def _record(case: Case, sizes, fit: Fit, fits, used: int, reached: bool, wall: f
     return {
         "status": "ok" if reached else "budget_spent", "message": message,
         "solver": case.solver.solver,
-        "crss_infinite_MPa": fit.tau_inf, "crss_infinite_ci95_MPa": [fit.lo, fit.hi],
+        "crss_infinite_MPa": fit.tau_inf, "crss_infinite_ci95_lo_MPa": fit.lo,
+        "crss_infinite_ci95_hi_MPa": fit.hi,
         "form": fit.form, "fit": fit.to_dict(),
         "forms": [{**f.to_dict(), "accepted": acceptable(f)} for f in fits],
         "model": "τ(L) = τ_∞ + A x(L), weighted least squares on the size means (weights 1/SE²),"
@@ -275,9 +280,9 @@ def _record(case: Case, sizes, fit: Fit, fits, used: int, reached: bool, wall: f
                  "form whose χ² lies within its 95 % quantile (each normal from the propagated "
                  "errors while χ²/dof <= 1, else Student t with n_sizes − 2 dof and the "
                  "covariance scaled by χ²/dof)",
-        "realizations_count": used,
-        "boxes": [{"box_in_spacings": s.side, "n_obstacles_expected": s.n_obstacles,
-                   "realizations": len(s.values), "crss_mean_MPa": s.interval().mean,
+        "n_realizations": used,
+        "boxes": [{"box_length_spacings": s.side, "n_obstacles_expected": s.n_obstacles,
+                   "n_realizations": len(s.values), "crss_mean_MPa": s.interval().mean,
                    "crss_std_MPa": s.interval().std,
                    "crss_sem_MPa": s.interval().std / math.sqrt(len(s.values)),
                    "crss_realizations_MPa": s.values} for s in sizes],
@@ -288,12 +293,9 @@ def _record(case: Case, sizes, fit: Fit, fits, used: int, reached: bool, wall: f
 
 def converge_files(result: dict) -> dict[str, bytes]:
     """converge.json, converge.csv (one row per box size) and the figure (PNG, PDF)."""
-    rows = [(b["box_in_spacings"], b["n_obstacles_expected"], b["realizations"],
-             b["crss_mean_MPa"], b["crss_std_MPa"], b["crss_sem_MPa"]) for b in result["boxes"]]
+    rows = [tuple(b[c] for c in CONVERGE_COLUMNS) for b in result["boxes"]]
     files = {CONVERGE_JSON: output.json_bytes(result),
-             CONVERGE_CSV: output.table_bytes(("box_in_spacings", "n_obstacles_expected",
-                                               "realizations", "crss_mean_MPa", "crss_std_MPa",
-                                               "crss_sem_MPa"), rows)}
+             CONVERGE_CSV: output.table_bytes(CONVERGE_COLUMNS, rows)}
     files.update(_figure_bytes(result))
     return files
 
@@ -307,18 +309,18 @@ def _figure_bytes(result: dict) -> dict[str, bytes]:
 
     boxes, fit = result["boxes"], result["fit"]
     x_of = FORMS[result["form"]]
-    L = np.array([b["box_in_spacings"] for b in boxes])
+    L = np.array([b["box_length_spacings"] for b in boxes])
     with matplotlib.rc_context({"font.size": 14, "axes.labelsize": 16, "legend.fontsize": 13}):
         fig = Figure(figsize=(8.0, 6.0), dpi=100, layout="constrained")
         ax = fig.add_subplot()
-        half = [statistics.t_quantile(b["realizations"]) * b["crss_sem_MPa"] for b in boxes]
+        half = [statistics.t_quantile(b["n_realizations"]) * b["crss_sem_MPa"] for b in boxes]
         ax.errorbar(x_of(L), [b["crss_mean_MPa"] for b in boxes], yerr=half, fmt="o",
                     color="C0", capsize=4,
                     label="mean over realizations, 95 % interval")
         xs = np.linspace(0.0, float(x_of(L).max()) * 1.05, 50)
         ax.plot(xs, fit["crss_infinite_MPa"] + fit["slope_MPa"] * xs, color="C1",
                 label=f"fit τ_∞ + A·{result['form']}")
-        lo, hi = result["crss_infinite_ci95_MPa"]
+        lo, hi = result["crss_infinite_ci95_lo_MPa"], result["crss_infinite_ci95_hi_MPa"]
         ax.errorbar([0.0], [result["crss_infinite_MPa"]], yerr=[[result["crss_infinite_MPa"] - lo],
                                                                [hi - result["crss_infinite_MPa"]]],
                     fmt="s", color="C3", capsize=6,
@@ -340,13 +342,13 @@ def _figure_bytes(result: dict) -> dict[str, bytes]:
 
 def format_converge(result: dict) -> str:
     """A few lines for the terminal."""
-    lo, hi = result["crss_infinite_ci95_MPa"]
+    lo, hi = result["crss_infinite_ci95_lo_MPa"], result["crss_infinite_ci95_hi_MPa"]
     lines = [f"CRSS of the infinite box  {result['crss_infinite_MPa']:.2f} MPa, 95% [{lo:.2f}, "
              f"{hi:.2f}] MPa (form {result['form']}, {result['solver']} solver)"]
     for b in result["boxes"]:
-        lines.append(f"  box {b['box_in_spacings']:6.1f} L_s ({b['n_obstacles_expected']:.0f} "
+        lines.append(f"  box {b['box_length_spacings']:6.1f} L_s ({b['n_obstacles_expected']:.0f} "
                      f"obstacles): {b['crss_mean_MPa']:.2f} ± {b['crss_sem_MPa']:.2f} MPa over "
-                     f"{b['realizations']} realizations")
+                     f"{b['n_realizations']} realizations")
     lines.append("forms     " + "; ".join(
         f"{f['form']}: τ_∞ {f['crss_infinite_MPa']:.2f} MPa, χ² {f['chi2']:.2f}"
         + ("" if f["accepted"] else " (rejected)") for f in result["forms"]))

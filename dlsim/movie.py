@@ -18,7 +18,7 @@ import numpy as np
 from matplotlib.figure import Figure
 
 from .errors import DlsimError
-from .output import read_run, read_snapshots
+from .output import box_nm, read_run, read_snapshots
 from .plots import (LOOP_COLOUR, STYLE, close_period, draw_field, draw_line, periodic_polyline)
 
 MOVIE_FORMATS = ("gif", "mp4")
@@ -143,7 +143,7 @@ def _scene(run: dict, snaps: dict):
     """The figure (field, scale bar) and a function drawing frame ``i`` on it."""
     from mpl_toolkits.axes_grid1.anchored_artists import AnchoredSizeBar
 
-    box = tuple(run["result"]["box_nm"])
+    box = box_nm(run["result"])
     fig = Figure(figsize=MOVIE_SIZE_IN, layout="constrained")
     ax = fig.add_subplot()
     draw_field(ax, run["obstacles"], box)

@@ -1,6 +1,6 @@
 """Run folders: what they hold, how they are written (atomically, whole) and how they are read.
 
-This module is the one owner of the files of a run folder (formats in DEVELOPERS.md).  Values
+This module is the one owner of the files of a run folder (formats in docs/outputs.md).  Values
 arrive already converted to file units (nm, MPa); here they are only rendered, written and read.
 
 Rules, so that a folder never mixes two runs and nothing computed is lost:
@@ -40,8 +40,10 @@ LOOPS = "loops.csv"
 SNAPSHOTS = "snapshots.npz"
 SWEEP = "sweep.json"
 
+#: history.csv: one row per relaxation (docs/outputs.md).
 HISTORY_COLUMNS = ("realization", "index", "phase", "stress_MPa", "state", "mean_glide_nm",
-                   "swept_area_nm2", "pinned", "plastic_strain_increment", "steps", "nodes")
+                   "swept_area_nm2", "n_pinned_nodes", "plastic_strain_increment", "n_steps",
+                   "n_nodes")
 #: Columns a thermally activated run adds to history.csv (velocity against stress).
 THERMAL_HISTORY_COLUMNS = ("velocity_m_per_s", "strain_rate_per_s", "sequence")
 #: loops.csv: one row per node of each Orowan loop; ``relaxation`` is how the loop was relaxed
@@ -268,9 +270,13 @@ def write_file_atomic(path, data: bytes) -> None:
     """Write one file through a temporary beside it and a rename (readers never see half)."""
     path = Path(path)
     tmp = path.with_name(f"{TMP_TAG}{path.name}-{os.getpid()}")
-    with open(tmp, "wb") as fh:
-        fh.write(data)
-    os.replace(tmp, path)
+    try:
+        with open(tmp, "wb") as fh:
+            fh.write(data)
+        os.replace(tmp, path)
+    except BaseException:  # a full disk, a folder in the way, Ctrl-C: leave no temporary
+        tmp.unlink(missing_ok=True)
+        raise
 
 
 def clear_leftovers(folder) -> None:
@@ -308,11 +314,64 @@ def is_run_folder(folder) -> bool:
 
 
 def read_result(folder) -> dict:
-    """``result.json`` of a run folder."""
+    """``result.json`` of a run folder, in the current names (:func:`upgrade_result`)."""
     folder = Path(folder)
     if not is_run_folder(folder):
         raise DlsimError(f"{str(folder)!r} is not a run folder (no {RESULT})")
-    return read_json(folder / RESULT, "result file")
+    return upgrade_result(read_json(folder / RESULT, "result file"))
+
+
+def box_nm(result: dict) -> tuple[float, float]:
+    """The box (Lx, Ly) in nm of a ``result.json``."""
+    return result["box_length_nm"], result["box_height_nm"]
+
+
+# --------------------------------------------------------------------------- earlier names
+
+#: Keys renamed when the output names were brought under one rule (docs/outputs.md): old → new.
+#: Run folders written before are read under the new names, so sweeps resume from them.
+RENAMED = {"realizations_count": "n_realizations", "relaxations": "n_relaxations",
+           "time_steps": "n_time_steps", "captures": "n_captures", "releases": "n_releases",
+           "reconnections": "n_reconnections", "loops_at_crss": "n_loops_cut",
+           "loops_after_crossing": "n_loops_left", "particles_looped": "n_particles_looped",
+           "loops_max_per_particle": "n_loops_per_particle_max", "steps_max": "n_steps_max",
+           "images": "n_image_periods", "refresh": "n_refresh_steps"}
+#: JSON pairs [lo, hi] (or [x, y]) that became two keys: old → (first, second).
+SPLIT = {"crss_bracket_MPa": ("crss_lo_MPa", "crss_hi_MPa"),
+         "crss_ci95_MPa": ("crss_ci95_lo_MPa", "crss_ci95_hi_MPa"),
+         "delta_sigma_ci95_MPa": ("delta_sigma_ci95_lo_MPa", "delta_sigma_ci95_hi_MPa"),
+         "box_nm": ("box_length_nm", "box_height_nm"),
+         "box_in_spacings": ("box_length_spacings", "box_height_spacings")}
+#: history.csv columns renamed: old → new.
+RENAMED_HISTORY = {"pinned": "n_pinned_nodes", "steps": "n_steps", "nodes": "n_nodes"}
+
+
+def _renamed(record: dict) -> dict:
+    out = {}
+    for key, value in record.items():
+        if key in SPLIT and isinstance(value, list) and len(value) == 2:
+            out.update(zip(SPLIT[key], value))
+        elif key == "estimates_MPa" and isinstance(value, dict):
+            out["estimates"] = {f"{k}_MPa": v for k, v in value.items()}
+        elif key in ("events", "loops", "loop_relaxation", "model") and isinstance(value, dict):
+            out[key] = {RENAMED.get(k, k): v for k, v in value.items()}
+        else:
+            out[RENAMED.get(key, key)] = value
+    return out
+
+
+def upgrade_result(data: dict) -> dict:
+    """A ``result.json`` in the current names: one written before the naming rule
+    (``realizations_count``, ``crss_bracket_MPa`` pairs, ``estimates_MPa``) is renamed key by
+    key (:data:`RENAMED`, :data:`SPLIT`); the resolved ``case`` is left as it is."""
+    if "realizations_count" not in data and "estimates_MPa" not in data:
+        return data
+    out = _renamed({k: v for k, v in data.items() if k != "case"})
+    out["realizations"] = [_renamed(r) for r in data.get("realizations", [])
+                           if isinstance(r, dict)]
+    if "case" in data:
+        out["case"] = data["case"]
+    return out
 
 
 def read_table(path) -> dict[str, np.ndarray]:
@@ -349,6 +408,8 @@ def read_run(folder) -> dict:
     for name in (OBSTACLES, LINE, HISTORY, LOOPS):
         path = folder / name
         run[name.removesuffix(".csv")] = read_table(path) if path.is_file() else None
+    if run["history"] is not None and "steps" in run["history"]:   # before the naming rule
+        run["history"] = {RENAMED_HISTORY.get(k, k): v for k, v in run["history"].items()}
     return run
 
 

@@ -738,10 +738,10 @@ def unfold_sections(edges_nm, counts) -> tuple[np.ndarray, dict]:
     n_v : ndarray, shape (k,)
         Spheres per unit volume of radius edges[j + 1] (counts per area divided by a length).
     info : dict
-        ``classes`` k; ``negative_classes``, the classes the plain solution made negative;
+        ``n_classes`` k; ``n_negative_classes``, the classes the plain solution made negative;
         ``negative_fraction``, their share Σ|N_V(j) < 0| / Σ|N_V(j)| of the plain solution;
-        ``residual``, ||A N_V - N_A|| / ||N_A|| of the returned solution (0 to round-off without
-        negatives).
+        ``residual_ratio``, ||A N_V - N_A|| / ||N_A|| of the returned solution (0 to round-off
+        without negatives).
     """
     a = saltykov_matrix(edges_nm)
     b = _float_array(counts)
@@ -750,9 +750,9 @@ def unfold_sections(edges_nm, counts) -> tuple[np.ndarray, dict]:
     raw = solve_triangular(a, b, lower=False)
     negative = raw < 0.0
     n_v = nnls(a, b, maxiter=NNLS_ITERATIONS_PER_CLASS * b.size)[0] if negative.any() else raw
-    info = {"classes": int(b.size), "negative_classes": int(negative.sum()),
+    info = {"n_classes": int(b.size), "n_negative_classes": int(negative.sum()),
             "negative_fraction": float(np.abs(raw[negative]).sum() / np.abs(raw).sum()),
-            "residual": float(np.linalg.norm(a @ n_v - b) / np.linalg.norm(b))}
+            "residual_ratio": float(np.linalg.norm(a @ n_v - b) / np.linalg.norm(b))}
     return n_v, info
 
 
@@ -1475,7 +1475,7 @@ def read_measured_sizes(path, key: str, *, sizes_are: str, size_kind: str = "rad
     -------
     Measured or PlanarSizes
         With ``notes``: ``file``, ``format`` ("rows" or "bins"), ``sizes_are``, ``size_kind``,
-        ``count`` (particles measured) and, after unfolding, the ``unfolding`` diagnostics of
+        ``n_sizes`` (particles measured) and, after unfolding, the ``unfolding`` diagnostics of
         :func:`unfold_sections` plus ``method`` and ``class_width_nm``.
 
     Raises
@@ -1495,7 +1495,7 @@ def read_measured_sizes(path, key: str, *, sizes_are: str, size_kind: str = "rad
     if binned:
         lower, upper, count = _read_bins(path, key, rows, header)
         lower, upper = lower * half, upper * half
-        notes["count"] = int(count.sum())
+        notes["n_sizes"] = int(count.sum())
     else:
         name = column or f"{size_kind}_nm"
         v, lines = _columns(path, key, rows, header, (name,), MAX_MEASURED_SIZES)
@@ -1504,7 +1504,7 @@ def read_measured_sizes(path, key: str, *, sizes_are: str, size_kind: str = "rad
         _check_sizes(path, key, v[name], lines, name)
         lower = upper = v[name] * half
         count = np.ones(lower.size)
-        notes["count"] = int(lower.size)
+        notes["n_sizes"] = int(lower.size)
     if sizes_are == "particles":
         return Measured(lower, upper, count, notes, source=os.fspath(path), key=key)
     if sections_as == "in_plane":

@@ -6,7 +6,9 @@ Every figure is written as PNG (for slides and quick looks) and PDF (for papers)
 work with any backend.
 
 - sweep folder: ``<q>_vs_<param>`` — CRSS (or Δσ) against the first swept key with 95 % CI error
-  bars, one curve per value of the second swept key, analytic estimates as lines;
+  bars (said in the legend's title), one curve per value of the second swept key, each analytic
+  estimate as a line of its own colour (the CRSS's plus the friction, Δσ's times M), the legend
+  below the axes;
 - run folder: ``field`` — obstacles, the final line and any Orowan loops; ``stress_vs_area`` — the
   stress of each relaxation against the area swept from the straight start.
 """
@@ -17,6 +19,7 @@ from pathlib import Path
 
 import numpy as np
 from matplotlib.collections import EllipseCollection
+from matplotlib.container import Container
 from matplotlib.figure import Figure
 
 from . import output
@@ -35,7 +38,7 @@ QUANTITIES = {"crss": "CRSS τ$_c$ (MPa)", "delta_sigma": "yield strength increm
 # Unit suffixes of case keys (DEVELOPERS.md: keys carry their unit in their name).
 UNIT_SUFFIXES = {"_nm": "nm", "_MPa": "MPa", "_GPa": "GPa", "_nN": "nN", "_deg": "°",
                  "_per_um2": "µm$^{-2}$", "_um": "µm"}
-ESTIMATE_STYLES = ("--", ":", "-.", (0, (5, 1, 1, 1)))
+ESTIMATE_STYLES = ("--", ":", "-.", (0, (5, 1, 1, 1)))    # run figures: estimates in grey
 STATE_MARKERS = {"pinned": ("o", "C0"), "flowing": (">", "C1"), "unresolved": ("^", "C3")}
 # Flowing relaxations glide far more than the pinned ones; the glide axis stops at this multiple of
 # the largest pinned glide and flowing points sit at its edge.
@@ -71,8 +74,17 @@ def _styled(func):
     return wrapper
 
 
+#: Case keys given in obstacle spacings (L, or L_s of a random field; DEVELOPERS.md, "Case
+#: file"), with the name their axis takes.
+IN_SPACINGS = {"line.length": "box width", "line.height": "box height",
+               "line.node_spacing": "node spacing", "loading.flow_distance": "flow distance"}
+
+
 def key_label(key: str) -> str:
-    """Axis label of a dotted case key: ``"obstacles.spacing_nm"`` → ``"spacing (nm)"``."""
+    """Axis label of a dotted case key: ``"obstacles.spacing_nm"`` → ``"spacing (nm)"``,
+    ``"line.length"`` → ``"box width (obstacle spacings)"``."""
+    if key in IN_SPACINGS:
+        return f"{IN_SPACINGS[key]} (obstacle spacings)"
     name = key.rsplit(".", 1)[-1]
     for suffix, unit in UNIT_SUFFIXES.items():
         if name.endswith(suffix):
@@ -119,40 +131,100 @@ def plot_sweep(folder, quantity: str = "crss", x: str | None = None) -> list[Pat
     list of Path
         The PNG and PDF files, ``<quantity>_vs_<key>[_<other>-<value>...]``.
     """
-    from .sweep import SUMMARY_POINTS, read_sweep_json, summarize_sweep
-
     folder = Path(folder)
+    meta, table = read_sweep_points(folder, quantity)
+    x, curve, rest = _roles(meta, table, x)
+    names = _short_names(list(meta["vary"]))
+    paths = []
+    for combo, rows in sweep_figures(table, rest):
+        fig = sweep_figure(meta, table, rows, (x, curve), quantity, sweep_title(meta, rest, combo))
+        suffix = "".join(f"_{names[k]}-{_fmt(v)}" for k, v in zip(rest, combo))
+        paths += _save(fig, folder, f"{quantity}_vs_{names[x]}{suffix}")
+    return paths
+
+
+@_styled
+def sweep_figure(meta: dict, table: dict, rows: np.ndarray, roles: tuple[str, str | None],
+                 quantity: str, title: str) -> Figure:
+    """One slide-sized sweep figure (:func:`draw_sweep` on a new figure, with its title)."""
+    fig = _figure()
+    ax = fig.add_subplot()
+    draw_sweep(ax, meta, table, rows, roles, quantity)
+    ax.set_title(title)
+    return fig
+
+
+def read_sweep_points(folder: Path, quantity: str) -> tuple[dict, dict]:
+    """``sweep.json`` and ``summary_points.csv`` of a sweep folder (the summary written first if
+    missing), refusing a quantity the runs do not report."""
+    from .sweep import SUMMARY_POINTS, column_name, read_sweep_json, summarize_sweep
+
     meta = read_sweep_json(folder)
     if quantity not in QUANTITIES:
         raise DlsimError(f"unknown quantity {quantity!r}; allowed: {', '.join(QUANTITIES)}")
     if not (folder / SUMMARY_POINTS).is_file():
         summarize_sweep(folder)
     table = read_table(folder / SUMMARY_POINTS)
+    for key in meta["vary"]:            # swept keys by their dotted names (CSV: column_name)
+        table.setdefault(key, table.get(column_name(key)))
     if f"{quantity}_mean_MPa" not in table:
         raise DlsimError(f"{str(folder)!r}: the runs report no {quantity} values")
-    x, curve, rest = _roles(meta, table, x)
-    names = _short_names(list(meta["vary"]))
-    paths = []
+    return meta, table
+
+
+def sweep_figures(table: dict, rest: list[str]):
+    """``(combination, rows)`` of every combination of the keys ``rest`` that has points."""
     for combo in itertools.product(*(_distinct(table[k]) for k in rest)):
         rows = np.ones(len(table["point"]), dtype=bool)
         for k, v in zip(rest, combo):
             rows &= table[k] == v
-        if not rows.any():
-            continue
-        fig = _figure()
-        ax = fig.add_subplot()
-        _draw_curves(ax, table, rows, x, curve, quantity)
-        ax.set_xlabel(key_label(x))
-        ax.set_ylabel(QUANTITIES[quantity])
-        if meta["scales"].get(x) == "log":
-            ax.set_xscale("log")
-            _log_ticks(ax, table[x][rows])
-        ax.set_title(", ".join([meta["title"]] * bool(meta.get("title"))
-                               + [value_label(k, v) for k, v in zip(rest, combo)]))
-        ax.legend(loc="best", frameon=False)
-        suffix = "".join(f"_{names[k]}-{_fmt(v)}" for k, v in zip(rest, combo))
-        paths += _save(fig, folder, f"{quantity}_vs_{names[x]}{suffix}")
-    return paths
+        if rows.any():
+            yield combo, rows
+
+
+#: Characters of a sweep figure's title line (16 pt on an 8 in wide figure); longer titles wrap.
+TITLE_CHARS = 60
+
+
+def sweep_title(meta: dict, rest: list[str], combo) -> str:
+    """The sweep's title and the values of the keys held fixed, wrapped to fit the figure."""
+    import textwrap
+
+    text = ", ".join([meta["title"]] * bool(meta.get("title"))
+                     + [value_label(k, v) for k, v in zip(rest, combo)])
+    return "\n".join(textwrap.wrap(text, TITLE_CHARS))
+
+
+def draw_sweep(ax, meta: dict, table: dict, rows: np.ndarray, roles: tuple[str, str | None],
+               quantity: str, legend_ncol: int = 2) -> None:
+    """One sweep figure's content on ``ax``: the curves with their 95 % bars, the estimates, the
+    axis labels and scale, and the legend below the axes (what the error bars are in its title).
+
+    ``roles`` is ``(x, curve)``: the key on the horizontal axis and the key of the curves (None:
+    one curve).
+    """
+    x, curve = roles
+    _draw_curves(ax, _as_quantity(meta, table, quantity), rows, x, curve, quantity)
+    ax.set_xlabel(key_label(x))
+    ax.set_ylabel(QUANTITIES[quantity])
+    if meta["scales"].get(x) == "log":
+        ax.set_xscale("log")
+        _log_ticks(ax, table[x][rows])
+    # the simulated curves first, then the estimates
+    handles, labels = ax.get_legend_handles_labels()
+    order = sorted(range(len(handles)), key=lambda k: not isinstance(handles[k], Container))
+    # below the axes: inside, a legend sits on the points of some sweep or other
+    ax.legend([handles[k] for k in order], [labels[k] for k in order], loc="upper center",
+              bbox_to_anchor=(0.5, -0.16), ncol=legend_ncol, frameon=False, fontsize="small",
+              title=_bars_note(table["n_runs"][rows]), title_fontsize="x-small")
+
+
+def _bars_note(n: np.ndarray) -> str:
+    """What the error bars are, for the legend's title."""
+    counts = sorted({int(v) for v in n if np.isfinite(v)})
+    seeds = (f"{counts[0]} seeds" if len(counts) == 1 else
+             f"{counts[0]}–{counts[-1]} seeds") if counts else "the seeds"
+    return f"error bars: 95 % Student-t interval of the mean over {seeds} per point"
 
 
 def _distinct(col: np.ndarray) -> list:
@@ -177,34 +249,95 @@ def _roles(meta: dict, table: dict, x: str | None) -> tuple[str, str | None, lis
     return x, curve, others[1:]
 
 
-def _draw_curves(ax, table: dict, rows: np.ndarray, x: str, curve: str | None, q: str) -> None:
-    """Simulated means with CI bars per curve; estimates in the curve's colour.
+#: Colours of the analytic estimates, one each, set apart from the curves' colours (the
+#: colour-blind-safe set of Okabe & Ito 2008, and black); others take :data:`OTHER_ESTIMATE`.
+ESTIMATE_COLOURS = {"orowan_square": "#000000", "square_array": "#D55E00",
+                    "orowan_finite": "#CC79A7", "foreman_makin": "#009E73", "friedel": "#E69F00",
+                    "superposition_linear": "#56B4E9", "superposition_pythagorean": "#882255"}
+OTHER_ESTIMATE = "0.5"
+#: Colours and markers of the simulated curves (blues, purples, dark greens and browns, apart
+#: from the estimates' colours).
+CURVE_COLOURS = ("C0", "#6A3D9A", "#1B7837", "#8C510A", "#2166AC", "#762A83")
+CURVE_MARKERS = ("o", "s", "^", "D", "v", "P")
 
-    Without estimates in the results, the Orowan stress 2Γ/(bL) (always reported) is drawn for
-    CRSS: once in grey when every curve has the same values, otherwise per curve.
+
+def _as_quantity(meta: dict, table: dict, quantity: str) -> dict:
+    """The summary with its estimate columns as the quantity drawn: the CRSS estimates plus each
+    point's friction stress (the CRSS includes it; ``estimates`` do not), the Δσ
+    estimates M times the obstacles' estimate (Δσ = M (τ_c − τ_f), docs/physics.md)."""
+    from .analytic import TAYLOR_FCC
+
+    cases = {}
+    for run in meta["runs"]:
+        cases.setdefault(run["point"], run.get("case") or {})
+    points = [cases.get(int(p), {}) for p in table["point"]]
+    if quantity == "crss":
+        shift = np.array([c.get("friction", {}).get("stress_MPa", 0.0) for c in points])
+        scale = np.ones_like(shift)
+    else:
+        scale = np.array([c.get("strength", {}).get("taylor_factor", TAYLOR_FCC)
+                          for c in points])
+        shift = np.zeros_like(scale)
+    return {k: (scale * v + shift if k.startswith("estimate_") else v) for k, v in table.items()}
+
+
+def estimate_label(column: str) -> str:
+    """``"estimate_foreman_makin_mean_MPa"`` (or ``..._MPa``) → its name in
+    :data:`dlsim.analytic.ESTIMATES`."""
+    from .analytic import ESTIMATES
+
+    key = estimate_model(column)
+    return ESTIMATES.get(key, (key.replace("_", " "),))[0]
+
+
+def estimate_model(column: str) -> str:
+    """The model of an estimate column or key: ``"estimate_friedel_mean_MPa"``,
+    ``"estimate_friedel_MPa"`` and ``"friedel_MPa"`` → ``"friedel"``."""
+    return column.removeprefix("estimate_").removesuffix("_MPa").removesuffix("_mean")
+
+
+def _draw_curves(ax, table: dict, rows: np.ndarray, x: str, curve: str | None, q: str) -> None:
+    """Simulated means with their 95 % bars per curve, each analytic estimate in its own colour.
+
+    An estimate that is the same for every curve is drawn once; one that differs is drawn per
+    curve, with that curve's marker (hollow).  Without estimates in the results, the Orowan
+    stress 2Γ/(bL) (always reported) is drawn for the CRSS, once in grey when every curve has the
+    same values, otherwise per curve.
     """
     estimates = [c for c in table if c.startswith("estimate_")]
     values = _distinct(table[curve][rows]) if curve else [None]
-    orowan = []
+    curves = []
     for i, value in enumerate(values):
         sel = rows & (table[curve] == value) if curve else rows
         xs, (mean, lo, hi) = _sorted(table, sel, x, [f"{q}_mean_MPa", f"{q}_ci95_lo_MPa",
                                                      f"{q}_ci95_hi_MPa"])
-        label = value_label(curve, value) if curve else "simulation"
-        bars = ax.errorbar(xs, mean, yerr=[np.nan_to_num(mean - lo), np.nan_to_num(hi - mean)],
-                           marker="o", capsize=4, label=label)
-        colour = bars[0].get_color()
-        for style, col in zip(itertools.cycle(ESTIMATE_STYLES), estimates if q == "crss" else []):
-            name = col.removeprefix("estimate_").removesuffix("_MPa").replace("_", " ")
-            ax.plot(xs, _sorted(table, sel, x, [col])[1][0], linestyle=style, color=colour,
-                    linewidth=1.5, label=f"{name} estimate" if i == 0 else None)
-        if not estimates and q == "crss" and "orowan_MPa" in table:
-            orowan.append((xs, _sorted(table, sel, x, ["orowan_MPa"])[1][0], colour))
-    shared = all(len(o[0]) == len(orowan[0][0]) and np.array_equal(o[0], orowan[0][0]) and
-                 np.allclose(o[1], orowan[0][1]) for o in orowan)
-    for k, (xs, tau, colour) in enumerate(orowan[:1] if shared else orowan):
-        ax.plot(xs, tau, linestyle=":", linewidth=1.5, color="0.35" if shared else colour,
-                label="Orowan 2Γ/(bL)" if k == 0 else None)
+        style = {"color": CURVE_COLOURS[i % len(CURVE_COLOURS)],
+                 "marker": CURVE_MARKERS[i % len(CURVE_MARKERS)]}
+        ax.errorbar(xs, mean, yerr=[np.nan_to_num(mean - lo), np.nan_to_num(hi - mean)],
+                    capsize=4, label=value_label(curve, value) if curve else "simulation",
+                    zorder=3, **style)
+        curves.append((sel, xs, style))
+    for col in estimates:
+        colour = ESTIMATE_COLOURS.get(estimate_model(col), OTHER_ESTIMATE)
+        _draw_per_curve(ax, table, curves, x, col, colour, estimate_label(col), "--")
+    if not estimates and q == "crss" and "orowan_mean_MPa" in table:
+        _draw_per_curve(ax, table, curves, x, "orowan_mean_MPa", "0.35", "Orowan 2Γ/(bL)", ":")
+
+
+def _draw_per_curve(ax, table, curves, x, col, colour, label, linestyle) -> None:
+    """The column ``col`` against ``x`` as thin lines: once when every curve has the same values
+    (within 1e-9), else once per curve with the curve's hollow marker; one legend entry."""
+    lines = [(xs, _sorted(table, sel, x, [col])[1][0], style) for sel, xs, style in curves]
+    lines = [ln for ln in lines if np.isfinite(ln[1]).any()]
+    if not lines:
+        return
+    shared = all(len(ln[0]) == len(lines[0][0]) and np.array_equal(ln[0], lines[0][0])
+                 and np.allclose(ln[1], lines[0][1], rtol=1e-9, equal_nan=True) for ln in lines)
+    for k, (xs, ys, style) in enumerate(lines[:1] if shared else lines):
+        marker = {} if shared else {"marker": style["marker"], "markerfacecolor": "none",
+                                    "markersize": 5}
+        ax.plot(xs, ys, linestyle=linestyle, color=colour, linewidth=1.5, zorder=2,
+                label=label if k == 0 else None, **marker)
 
 
 def _sorted(table: dict, sel: np.ndarray, x: str, cols: list[str]):
@@ -418,7 +551,7 @@ def plot_run(folder) -> list[Path]:
     """
     folder = Path(folder)
     run = read_run(folder)
-    box = tuple(run["result"]["box_nm"])
+    box = output.box_nm(run["result"])
     paths = _save(_field_figure(run, box), folder, "field")
     if run["history"] is not None and len(run["history"]["index"]):
         paths += _save(_area_figure(run, box), folder, "stress_vs_area")
@@ -460,8 +593,8 @@ def _field_title(res: dict) -> str:
     """The field figure shows realization 0: its own CRSS, and the mean when there are more."""
     first = res["realizations"][0]
     text = f"pinned line at the CRSS, {_mpa(first['crss_MPa'])}"
-    if res["realizations_count"] > 1:
-        text = (f"realization 0 of {res['realizations_count']}: {_mpa(first['crss_MPa'])} "
+    if res["n_realizations"] > 1:
+        text = (f"realization 0 of {res['n_realizations']}: {_mpa(first['crss_MPa'])} "
                 f"(mean {_mpa(res['crss_MPa'])})")
     return text
 
@@ -475,10 +608,11 @@ def run_estimates(res: dict) -> dict[str, float]:
     the friction stress, so they compare with the CRSS; ``{label: value}``."""
     from .analytic import ESTIMATES
 
-    est = res.get("estimates_MPa") or {}
+    est = res.get("estimates") or {}
     friction = res.get("friction_MPa") or 0.0
-    return {ESTIMATES.get(k, (k.replace("_", " "), ""))[0]: v + friction
-            for k, v in est.items() if v is not None and np.isfinite(v)}
+    return {ESTIMATES.get(m, (m.replace("_", " "), ""))[0]: v + friction
+            for m, v in ((k.removesuffix("_MPa"), v) for k, v in est.items())
+            if v is not None and np.isfinite(v)}
 
 
 def _area_figure(run: dict, box, ax=None) -> Figure:
@@ -503,10 +637,10 @@ def _area_figure(run: dict, box, ax=None) -> Figure:
                 zorder=3 if r == 0 else 2, label=label if several else None)
     first = res["realizations"][0]
     if first["crss_MPa"] is not None:
-        ax.axhspan(*first["crss_bracket_MPa"], color="C2", alpha=0.25, linewidth=0,
+        ax.axhspan(first["crss_lo_MPa"], first["crss_hi_MPa"], color="C2", alpha=0.25, linewidth=0,
                    label="realization 0 CRSS bracket")
     if res["crss_MPa"] is not None:
-        n = res["realizations_count"]
+        n = res["n_realizations"]
         ax.axhline(res["crss_MPa"], color="C2", linestyle="--",
                    label=(f"mean CRSS of {n} realizations " if n > 1 else "CRSS ")
                    + f"{res['crss_MPa']:.4g} MPa")

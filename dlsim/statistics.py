@@ -39,6 +39,11 @@ class Interval:
         return 0.5 * (self.hi - self.lo)
 
     @property
+    def sem(self) -> float:
+        """Standard error of the mean, std/√n (NaN for n < 2)."""
+        return self.std / math.sqrt(self.n) if self.n >= 2 else math.nan
+
+    @property
     def method(self) -> str:
         if self.n < 2:
             return "one value: no spread to estimate"

@@ -37,6 +37,7 @@ import json
 import math
 import multiprocessing
 import os
+import re
 import signal
 import threading
 import tomllib
@@ -146,11 +147,11 @@ class Sweep:
             "source": self.source,
             "title": self.title,
             "combine": self.combine,
-            "seeds": self.seeds,
+            "n_seeds": self.seeds,
             "vary": self.vary,
             "scales": self.scales,
             "runs": [
-                {"id": r.run_id, "point": r.point, "seed_index": r.seed_index, "seed": r.seed,
+                {"run_id": r.run_id, "point": r.point, "seed_index": r.seed_index, "seed": r.seed,
                  "params": r.params, "case": r.case}
                 for r in self.runs
             ],
@@ -538,7 +539,8 @@ def _prepare_folder(sw: Sweep, out: Path) -> None:
     stored = out / SWEEP_JSON
     expanded = sw.to_json()
     if stored.exists():
-        _check_same_sweep(output.read_json(stored, "sweep record"), expanded, sw.source, out)
+        _check_same_sweep(upgrade_sweep_record(output.read_json(stored, "sweep record")),
+                          expanded, sw.source, out)
     else:
         output.write_file_atomic(stored, json.dumps(expanded, indent=1, sort_keys=False).encode())
     output.clear_leftovers(runs)
@@ -553,7 +555,7 @@ def _check_same_sweep(old: dict, new: dict, source: str, out: Path) -> None:
     if len(old_runs) != len(new_runs):
         detail = f"{len(old_runs)} runs there, {len(new_runs)} now"
     else:
-        first = next((n["id"] for o, n in zip(old_runs, new_runs) if o != n), "vary")
+        first = next((n["run_id"] for o, n in zip(old_runs, new_runs) if o != n), "vary")
         detail = f"first difference at {first}"
     raise CaseError(source, "", f"differs from the sweep already in {str(out)!r} ({SWEEP_JSON}: "
                                 f"{detail}); use a new --out folder or delete that one")
@@ -723,30 +725,60 @@ def summarize_sweep(out_dir) -> tuple[Path, Path]:
     Returns
     -------
     (Path, Path)
-        The two CSV files.  Columns of the run table: ``run_id, point, seed_index, seed``, one
-        per swept key, ``crss_MPa, crss_bracket_lo_MPa, crss_bracket_hi_MPa, orowan_MPa, status,
-        converged``, then
-        ``delta_sigma_MPa`` and ``estimate_<model>_MPa`` when any run reports them.  The point
-        table has the swept keys, ``n`` and, per quantity, ``<q>_mean_MPa, <q>_std_MPa,
-        <q>_ci95_lo_MPa, <q>_ci95_hi_MPa`` (Student t), then the mean Orowan stress and the mean of
-        each estimate.
+        The two CSV files (docs/outputs.md).  Columns of the run table: ``run_id, point,
+        seed_index, seed``, one per swept key (named by :func:`column_name`), ``crss_MPa,
+        crss_lo_MPa, crss_hi_MPa, orowan_MPa, status, converged``, then ``delta_sigma_MPa`` and
+        ``estimate_<model>_MPa`` when any run reports them.  The point table has the swept keys,
+        ``n_runs`` and, per quantity, ``<q>_mean_MPa, <q>_std_MPa, <q>_sem_MPa,
+        <q>_ci95_lo_MPa, <q>_ci95_hi_MPa`` (Student t), then ``orowan_mean_MPa`` and
+        ``estimate_<model>_mean_MPa``, the means over the point's runs.
     """
     out = Path(out_dir)
     meta = read_sweep_json(out)
     keys = list(meta["vary"])
-    rows = [_run_row(out, r, keys) for r in meta["runs"] if is_finished(out, r["id"])]
+    cols = [column_name(k) for k in keys]
+    rows = [_run_row(out, r, keys) for r in meta["runs"] if is_finished(out, r["run_id"])]
     extra = _extra_columns(rows)
-    run_cols = ["run_id", "point", "seed_index", "seed", *keys, "crss_MPa", "crss_bracket_lo_MPa",
-                "crss_bracket_hi_MPa", "orowan_MPa", "status", "converged", *extra]
+    run_cols = ["run_id", "point", "seed_index", "seed", *cols, "crss_MPa", "crss_lo_MPa",
+                "crss_hi_MPa", "orowan_MPa", "status", "converged", *extra]
     runs_path = _write_csv(out / SUMMARY_RUNS, run_cols, rows)
     points = _point_rows(meta["runs"], rows, keys, extra)
     quantities = ["crss"] + (["delta_sigma"] if "delta_sigma_MPa" in extra else [])
-    point_cols = ["point", *keys, "n"]
+    point_cols = ["point", *cols, "n_runs"]
     for q in quantities:
-        point_cols += [f"{q}_mean_MPa", f"{q}_std_MPa", f"{q}_ci95_lo_MPa", f"{q}_ci95_hi_MPa"]
-    point_cols += ["orowan_MPa"] + [c for c in extra if c.startswith("estimate_")]
+        point_cols += [f"{q}_{stat}_MPa" for stat in POINT_STATISTICS]
+    point_cols += [_mean_column(c) for c in ["orowan_MPa", *extra] if c != "delta_sigma_MPa"]
     points_path = _write_csv(out / SUMMARY_POINTS, point_cols, points)
     return runs_path, points_path
+
+
+#: Statistics of the point table, per quantity: ``<q>_<statistic>_MPa``.
+POINT_STATISTICS = ("mean", "std", "sem", "ci95_lo", "ci95_hi")
+
+
+def column_name(key: str) -> str:
+    """The summary-CSV column of a swept case key: ``populations[i].`` becomes ``pop<i>_``
+    (i counted from 1, as in the sweep file and in error messages) and every other dot ``_``, so
+    ``"populations[1].radius_nm"`` → ``"pop1_radius_nm"``, ``"obstacles.spacing_nm"`` →
+    ``"obstacles_spacing_nm"``, ``"seed"`` → ``"seed"`` (the unit suffix stays last)."""
+    return re.sub(r"populations\[(\d+)\]\.", r"pop\1_", key).replace(".", "_")
+
+
+def _mean_column(name: str) -> str:
+    """``"estimate_friedel_MPa"`` → ``"estimate_friedel_mean_MPa"`` (the point's mean)."""
+    return name.removesuffix("_MPa") + "_mean_MPa"
+
+
+def upgrade_sweep_record(data: dict) -> dict:
+    """A ``sweep.json`` in the current names (``n_seeds``, runs' ``run_id``): one written before
+    the naming rule (``seeds``, ``id``) is renamed, so a sweep resumes in its old folder."""
+    if "seeds" in data and "n_seeds" not in data:
+        data = {("n_seeds" if k == "seeds" else k): v for k, v in data.items()}
+    runs = data.get("runs")
+    if isinstance(runs, list) and runs and isinstance(runs[0], dict) and "id" in runs[0]:
+        data["runs"] = [{("run_id" if k == "id" else k): v for k, v in r.items()}
+                        if isinstance(r, dict) else r for r in runs]
+    return data
 
 
 def read_sweep_json(out_dir) -> dict:
@@ -754,24 +786,24 @@ def read_sweep_json(out_dir) -> dict:
     path = Path(out_dir) / SWEEP_JSON
     if not path.is_file():
         raise DlsimError(f"{str(out_dir)!r} is not a sweep folder (no {SWEEP_JSON})")
-    data = output.read_json(path, "sweep record")
+    data = upgrade_sweep_record(output.read_json(path, "sweep record"))
     if not isinstance(data.get("runs"), list) or not isinstance(data.get("vary"), dict):
         raise DlsimError(f"{str(path)!r}: not a dlsim sweep record (no runs or vary)")
     return data
 
 
 def _run_row(out: Path, run: dict, keys: list[str]) -> dict:
-    res = output.read_result(out / RUNS_FOLDER / run["id"])
-    lo, hi = res.get("crss_bracket_MPa") or [math.nan, math.nan]
-    row = {"run_id": run["id"], "point": run["point"], "seed_index": run["seed_index"],
-           "seed": run["seed"], **{k: run["params"][k] for k in keys},
-           "crss_MPa": res["crss_MPa"], "crss_bracket_lo_MPa": lo, "crss_bracket_hi_MPa": hi,
+    res = output.read_result(out / RUNS_FOLDER / run["run_id"])
+    row = {"run_id": run["run_id"], "point": run["point"], "seed_index": run["seed_index"],
+           "seed": run["seed"], **{column_name(k): run["params"][k] for k in keys},
+           "crss_MPa": res["crss_MPa"], "crss_lo_MPa": res.get("crss_lo_MPa", math.nan),
+           "crss_hi_MPa": res.get("crss_hi_MPa", math.nan),
            "orowan_MPa": res.get("orowan_MPa"), "status": res.get("status"),
            "converged": res.get("converged")}
     if "delta_sigma_MPa" in res:
         row["delta_sigma_MPa"] = res["delta_sigma_MPa"]
-    for model, value in (res.get("estimates_MPa") or {}).items():
-        row[f"estimate_{model}_MPa"] = value
+    for key, value in (res.get("estimates") or {}).items():
+        row[f"estimate_{key}"] = value
     return row
 
 
@@ -789,13 +821,13 @@ def _point_rows(runs: list[dict], rows: list[dict], keys: list[str], extra: list
     table = []
     for p in sorted(params):
         group = by_point.get(p, [])
-        row = {"point": p, **{k: params[p][k] for k in keys}, "n": len(group)}
+        row = {"point": p, **{column_name(k): params[p][k] for k in keys}, "n_runs": len(group)}
         row.update(_stats("crss", [g["crss_MPa"] for g in group]))
         if "delta_sigma_MPa" in extra:
             row.update(_stats("delta_sigma", [g.get("delta_sigma_MPa") for g in group]))
         for col in ["orowan_MPa"] + [c for c in extra if c.startswith("estimate_")]:
             vals = [g[col] for g in group if g.get(col) is not None]
-            row[col] = float(np.mean(vals)) if vals else math.nan
+            row[_mean_column(col)] = float(np.mean(vals)) if vals else math.nan
         table.append(row)
     return table
 
@@ -804,7 +836,7 @@ def _stats(name: str, values: list) -> dict:
     """Mean, sample std and the Student-t 95 % interval of the mean (NaN where undefined;
     :func:`dlsim.statistics.mean_interval`)."""
     iv = statistics.mean_interval([x for x in values if x is not None])
-    return {f"{name}_mean_MPa": iv.mean, f"{name}_std_MPa": iv.std,
+    return {f"{name}_mean_MPa": iv.mean, f"{name}_std_MPa": iv.std, f"{name}_sem_MPa": iv.sem,
             f"{name}_ci95_lo_MPa": iv.lo, f"{name}_ci95_hi_MPa": iv.hi}
 
 

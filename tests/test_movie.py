@@ -77,7 +77,7 @@ def test_snapshots_hold_relaxed_loops_and_frames_draw_them(run_dir):
     with_loops = [i for i in range(len(snaps["offsets"]) - 1)
                   if snaps["loop_frames"][i + 1] > snaps["loop_frames"][i]]
     assert with_loops, "the disc case should record frames with Orowan loops"
-    box = tuple(output.read_result(run_dir)["box_nm"])
+    box = output.box_nm(output.read_result(run_dir))
     xs, ys = frame_loops(snaps, with_loops[-1], box)
     assert np.isfinite(xs).sum() >= 3 * (snaps["loop_frames"][with_loops[-1] + 1]
                                          - snaps["loop_frames"][with_loops[-1]])

@@ -128,11 +128,11 @@ def test_realizations_reproducible_with_ci_around_mean():
     values = [r["crss_MPa"] for r in a["realizations"]]
     assert values == [r["crss_MPa"] for r in b["realizations"]]
     assert len(values) == 3   # values lie on the grid of ramp steps and bisections: may repeat
-    lo, hi = a["crss_ci95_MPa"]
+    lo, hi = a["crss_ci95_lo_MPa"], a["crss_ci95_hi_MPa"]
     assert lo < a["crss_mean_MPa"] < hi and a["crss_MPa"] == a["crss_mean_MPa"]
     assert a["crss_mean_MPa"] == pytest.approx(np.mean(values), rel=1e-12)
     # each realization lies inside its own bracket
-    assert all(r["crss_bracket_MPa"][0] <= r["crss_MPa"] <= r["crss_bracket_MPa"][1]
+    assert all(r["crss_lo_MPa"] <= r["crss_MPa"] <= r["crss_hi_MPa"]
                for r in a["realizations"])
     assert any("Nogaret" in w for w in a["warnings"])
     assert any("rests on 3 realizations" in w for w in a["warnings"])
@@ -143,11 +143,11 @@ def test_estimates_of_mixture_superpose():
     case["populations"].append({"name": "weak", "number_density_per_um3": 2000.0,
                                 "distribution": "lsw", "mean_radius_nm": 2.0,
                                 "strength": "point", "critical_angle_deg": 120.0})
-    e = estimate_case(case)["estimates_MPa"]
-    assert {"orowan_square", "orowan_finite", "friedel", "foreman_makin",
-            "superposition_linear", "superposition_pythagorean"} <= set(e)
-    assert e["superposition_pythagorean"] <= e["superposition_linear"]
-    assert e["foreman_makin"] == pytest.approx(0.81 * e["orowan_square"])
+    e = estimate_case(case)["estimates"]
+    assert {"orowan_square_MPa", "orowan_finite_MPa", "friedel_MPa", "foreman_makin_MPa",
+            "superposition_linear_MPa", "superposition_pythagorean_MPa"} <= set(e)
+    assert e["superposition_pythagorean_MPa"] <= e["superposition_linear_MPa"]
+    assert e["foreman_makin_MPa"] == pytest.approx(0.81 * e["orowan_square_MPa"])
 
 
 # ---------------------------------------------------------------------------------------------

@@ -230,7 +230,7 @@ def test_interrupt_after_a_realization_keeps_it(tmp_path, monkeypatch):
     with pytest.raises(KeyboardInterrupt, match="after 1 of 3 realizations"):
         api.run_case(case, out_dir=tmp_path / "run")
     res = json.loads((tmp_path / "run" / output.RESULT).read_text())
-    assert res["status"] == "interrupted" and res["realizations_count"] == 1
+    assert res["status"] == "interrupted" and res["n_realizations"] == 1
     assert calls == [0, 1]
 
 
@@ -412,8 +412,8 @@ def test_estimate_of_an_obstacles_case(capsys):
     assert code == 0
     assert "Foreman–Makin" in out and "assumes" in out
     code, out, _ = cli_run(capsys, "estimate", str(demo), "--json")
-    est = json.loads(out)["estimates_MPa"]
-    assert est["foreman_makin"] == pytest.approx(0.81 * est["orowan_square"], rel=1e-12)
+    est = json.loads(out)["estimates"]
+    assert est["foreman_makin_MPa"] == pytest.approx(0.81 * est["orowan_square_MPa"], rel=1e-12)
 
 
 @pytest.mark.parametrize("make, fragment", [
@@ -463,9 +463,9 @@ def test_realizations_summary_agrees_with_itself(tmp_path):
     s = result.summary
     values = [r["crss_MPa"] for r in s["realizations"]]
     assert s["crss_MPa"] == pytest.approx(np.mean(values), rel=1e-12)
-    assert "crss_bracket_MPa" not in s                  # no single bracket for a mean
+    assert "crss_lo_MPa" not in s                       # no single bracket for a mean
     for r in s["realizations"]:
-        lo, hi = r["crss_bracket_MPa"]
+        lo, hi = r["crss_lo_MPa"], r["crss_hi_MPa"]
         assert lo <= r["crss_MPa"] <= hi
     text = api.format_summary(result)
     assert "mean of 3 realizations" in text and text.count("realization ") >= 3

@@ -172,7 +172,7 @@ def test_unfold_matches_naive_recurrence(classes, seed):
     edges = delta * np.arange(classes + 1)
     positive = P.saltykov_matrix(edges) @ rng.uniform(0.1, 1.0, classes)
     got, info = P.unfold_sections(edges, positive)
-    assert info["negative_classes"] == 0
+    assert info["n_negative_classes"] == 0
     np.testing.assert_allclose(got, naive_saltykov_unfold(positive, delta), rtol=1e-10)
 
 
@@ -186,15 +186,15 @@ def test_unfold_noisy_counts_negative_classes_replaced_by_nnls(seed):
     naive = naive_saltykov_unfold(counts, delta)
     got, info = P.unfold_sections(edges, counts)
     a = P.saltykov_matrix(edges)
-    assert info["negative_classes"] == int(np.sum(naive < 0))
+    assert info["n_negative_classes"] == int(np.sum(naive < 0))
     assert info["negative_fraction"] == pytest.approx(-naive[naive < 0].sum() / np.abs(naive).sum())
     assert np.all(got >= 0.0)
-    if info["negative_classes"]:
+    if info["n_negative_classes"]:
         # Non-negative least squares is the best non-negative fit (Lawson & Hanson 1974): no
         # worse than simply clipping the negative classes of the plain solution.
         residual = np.linalg.norm(a @ got - counts) / np.linalg.norm(counts)
         clipped = np.linalg.norm(a @ np.maximum(naive, 0.0) - counts) / np.linalg.norm(counts)
-        assert info["residual"] == pytest.approx(residual) and residual <= clipped + 1e-12
+        assert info["residual_ratio"] == pytest.approx(residual) and residual <= clipped + 1e-12
     else:
         np.testing.assert_allclose(got, naive, rtol=1e-10)
 
@@ -227,7 +227,7 @@ def test_unfold_lognormal_analytic_within_binning(classes):
     mean = float(got @ R / got.sum())
     delta = edges[1]
     true_mean = LOGNORMAL.moment(1)
-    assert info["negative_classes"] == 0
+    assert info["n_negative_classes"] == 0
     # Every section lies in a class, so sum_j 2 R_j N_V(j) = N_A = 2<r> N_V exactly (DeHoff &
     # Rhines; Underwood 1970): the unfolding keeps the first moment to quadrature precision.
     assert got @ R == pytest.approx(n_v * true_mean, rel=1e-6)
@@ -250,7 +250,7 @@ def test_unfold_sampled_lognormal_sections_file_matches_analytic(tmp_path):
     n_v_true = P.number_density_from_fraction(LOGNORMAL, FRACTION)
     path = write_rows(tmp_path / "sec.csv", 2.0 * sec.rho_nm, column="diameter_nm")
     got = P.read_measured_sizes(path, KEY, sizes_are="sections", size_kind="diameter")
-    k = got.notes["unfolding"]["classes"]
+    k = got.notes["unfolding"]["n_classes"]
     edges = np.linspace(0.0, sec.rho_nm.max(), k + 1)
     assert k == P.default_unfold_classes(len(sec)) and np.allclose(got.lower_nm, edges[1:])
     counts = np.histogram(sec.rho_nm, edges)[0].astype(float)
@@ -282,7 +282,7 @@ def test_unfolded_spheres_resectioned_give_the_sections_back():
     # histogram that was unfolded: chi-square goodness of fit (Pearson).
     observed = np.histogram(sec.rho_nm, edges)[0]
     expected = counts / counts.sum() * observed.sum()
-    assert info["negative_classes"] == 0
+    assert info["n_negative_classes"] == 0
     assert stats.chisquare(observed, expected).pvalue > 1e-3
 
 
@@ -339,7 +339,7 @@ def test_binned_sections_file_with_gap(tmp_path):
     path = tmp_path / "gap.csv"
     path.write_text("lower_nm,upper_nm,count\n1,2,10\n3,4,5\n")
     d = P.read_measured_sizes(path, KEY, sizes_are="sections")
-    assert d.notes["unfolding"]["classes"] == 3 and np.allclose(d.lower_nm, [2.0, 3.0, 4.0])
+    assert d.notes["unfolding"]["n_classes"] == 3 and np.allclose(d.lower_nm, [2.0, 3.0, 4.0])
 
 
 @pytest.mark.parametrize("bins, fragment", [

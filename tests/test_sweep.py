@@ -44,7 +44,7 @@ seeds = 2
 "obstacles.spacing_nm" = [30, 40]
 "obstacles.critical_angle_deg" = {linear = [100, 140, 2]}
 """
-PHYSICS_COLUMNS = ("crss_MPa", "crss_bracket_lo_MPa", "crss_bracket_hi_MPa", "orowan_MPa")
+PHYSICS_COLUMNS = ("crss_MPa", "crss_lo_MPa", "crss_hi_MPa", "orowan_MPa")
 
 
 def write_sweep(folder: Path, sweep: str = GRID_SWEEP, case: str = TINY_CASE) -> Path:
@@ -187,14 +187,14 @@ def test_cli_malformed_sweep_exits_2_with_one_line(tmp_path, extra, vary, key):
 
 def test_run_sweep_summary_tables_match_sweep(pool_sweep):
     cols, rows = read_csv(pool_sweep / "summary_runs.csv")
-    keys = ["obstacles.spacing_nm", "obstacles.critical_angle_deg"]
+    keys = ["obstacles_spacing_nm", "obstacles_critical_angle_deg"]   # sweep.column_name
     assert cols[:11] == ["run_id", "point", "seed_index", "seed", *keys, "crss_MPa",
-                         "crss_bracket_lo_MPa", "crss_bracket_hi_MPa", "orowan_MPa", "status"]
+                         "crss_lo_MPa", "crss_hi_MPa", "orowan_MPa", "status"]
     assert [r["run_id"] for r in rows] == [f"p{p:03d}_s{s:02d}" for p in range(4) for s in range(2)]
     pcols, points = read_csv(pool_sweep / "summary_points.csv")
-    assert pcols[:8] == ["point", *keys, "n", "crss_mean_MPa", "crss_std_MPa", "crss_ci95_lo_MPa",
-                         "crss_ci95_hi_MPa"]
-    assert len(points) == 4 and all(p["n"] == "2" for p in points)
+    assert pcols[:9] == ["point", *keys, "n_runs", "crss_mean_MPa", "crss_std_MPa",
+                         "crss_sem_MPa", "crss_ci95_lo_MPa", "crss_ci95_hi_MPa"]
+    assert len(points) == 4 and all(p["n_runs"] == "2" for p in points)
 
 
 def test_run_sweep_point_statistics_student_t(pool_sweep):
