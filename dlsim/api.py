@@ -16,11 +16,12 @@ keys ``..._lo_<unit>``, ``..._hi_<unit>``, never a JSON pair; counts are ``n_<th
 from __future__ import annotations
 
 import dataclasses
+import math
 import sys
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable
+from typing import TYPE_CHECKING, Callable
 
 import numpy as np
 
@@ -31,6 +32,9 @@ from .errors import RescuedOutput
 from .fields import (ObstacleField, ParticleTable, enlarged_table, population_field,
                      populations_table, random_field, square_field)
 from .line import LineState
+
+if TYPE_CHECKING:
+    from .thermal import ThermalSearch
 from .loops import (LOOP_STATUS_NAMES, LoopReport, field_tuple, loop_parameters, relax_loops,
                     relax_state_loops)
 from .solver import (LMAX_FRACTION, LMIN_FRACTION, CrssResult, Elasticity, LineModel, Protocol,
@@ -69,6 +73,8 @@ class Realization:
     seed: int
     passes: list[tuple[ObstacleField, CrssResult, LineState]]
     loops: list[LoopReport] = field(default_factory=list)
+    #: The thermally activated search (:func:`thermal_search`) when ``[thermal]`` is active.
+    thermal: ThermalSearch | None = None
 
     @property
     def field(self) -> ObstacleField:
@@ -335,11 +341,68 @@ def _realization(case: Case, r: int, show=None, every: int = 0, snap=None) -> Re
         obstacles = build_field(case, r)
         search = _search(case, obstacles, show, every, snap)
         report = relax_left_loops(case, obstacles, search.line, search.lo)
-        return Realization(r, realization_seed(case, r), [(obstacles, search, search.line)],
+        real = Realization(r, realization_seed(case, r), [(obstacles, search, search.line)],
                            [report])
-    table = populations_table(case, r)[0]
-    passes, reports = _passes(case, table, show, every, snap)
-    return Realization(r, case.seed, passes, reports)
+    else:
+        table = populations_table(case, r)[0]
+        passes, reports = _passes(case, table, show, every, snap)
+        real = Realization(r, case.seed, passes, reports)
+    if case.thermal.active:
+        return thermal_realization(case, real)
+    return real
+
+
+def thermal_search(case: Case, obstacles: ObstacleField, athermal: CrssResult, seed: int
+                   ) -> ThermalSearch:
+    """The stress of the case's strain rate at its temperature on one field (arc solver):
+    residence-time events below the athermal CRSS (:func:`dlsim.thermal.find_thermal_stress`)."""
+    from .thermal import find_thermal_stress, thermal_model
+
+    model, protocol, _ = model_and_protocol(case, obstacles.spacing)
+    m = case.material
+    energy = None
+    if case.populations:                 # each population its ΔF0, else the [thermal] one
+        per_pop = np.array([case.thermal.activation_energy_eV if p.activation_energy_eV is None
+                            else p.activation_energy_eV for p in case.populations])
+        energy = per_pop[np.asarray(obstacles.population, np.int64)]
+    tm = thermal_model(case.thermal, m.shear_modulus_GPa, m.burgers_nm, energy)
+    return find_thermal_stress(obstacles, model, protocol, tm,
+                               math.log(case.thermal.strain_rate_per_s), athermal.hi, seed)
+
+
+def thermal_realization(case: Case, real: Realization) -> Realization:
+    """``real`` with its thermally activated stress: the search's ``crss`` becomes the mean over
+    the event sequences and its bracket their range; the athermal search stays in ``thermal``."""
+    search = real.search
+    if not np.isfinite(search.crss):
+        return real
+    th = thermal_search(case, real.field, search, real.seed)
+    msg = (f"thermally activated at {case.thermal.temperature_K:g} K and "
+           f"{case.thermal.strain_rate_per_s:g}/s over {th.stress.size} event sequences "
+           f"(athermal: {search.message})")
+    done = dataclasses.replace(search, crss=float(th.stress.mean()), lo=float(th.stress.min()),
+                               hi=float(th.stress.max()), message=msg)
+    return dataclasses.replace(real, passes=[(real.field, done, real.swept)] + real.passes[1:],
+                               thermal=th)
+
+
+def thermal_record(case: Case, runs: list[Realization]) -> dict:
+    """result.json keys of a thermally activated run (stresses in MPa, V* in b³)."""
+    mpa = lambda tau: float(case.units.stress_MPa(tau))  # noqa: E731
+    th = [r.thermal for r in runs if r.thermal is not None]
+    if not th:
+        return {}
+    stress = np.concatenate([t.stress for t in th])
+    vstar = np.concatenate([t.activation_volume for t in th])
+    iv = statistics.mean_interval([mpa(x) for x in stress])
+    t = case.thermal
+    return {"temperature_K": t.temperature_K, "strain_rate_per_s": t.strain_rate_per_s,
+            "crss_athermal_MPa": float(np.mean([mpa(x.athermal) for x in th])),
+            "crss_sequences_MPa": [mpa(x) for x in stress], "crss_sequence_std_MPa": iv.std,
+            "crss_sequence_ci95_lo_MPa": iv.lo, "crss_sequence_ci95_hi_MPa": iv.hi,
+            "activation_volume_b3": float(vstar.mean()),
+            "activation_volume_std_b3": float(vstar.std(ddof=1)) if vstar.size > 1 else None,
+            "n_sequences": int(stress.size), "n_events_per_sequence": t.events}
 
 
 def loop_relaxation_parameters(case: Case, spacing: float, tau: float):
@@ -542,6 +605,7 @@ def summarize(case: Case, runs: list[Realization], wall: float, interrupted: boo
         "model": model_record(case),
         "files_show_realization": 0,
     })
+    summary.update(thermal_record(case, runs))
     est = estimate_case(case)
     if case.obstacles is None:
         summary.update(population_summary(case, runs, iv, status, est))
@@ -745,11 +809,14 @@ def run_files(result: RunResult) -> dict[str, bytes]:
         "x_nm": u.length_nm(x), "y_nm": u.length_nm(y), "pinned": (pin >= 0).astype(int)})
     cell = obstacles.Lx * obstacles.Ly * obstacles.Ly
     b2 = case.material.burgers_nm ** 2
-    files[output.HISTORY] = output.table_bytes(output.HISTORY_COLUMNS, (
-        (real.index, k, r.phase, float(u.stress_MPa(r.stress)), r.state,
-         float(u.length_nm(r.mean_glide)), float(r.swept_area * b2), r.pinned,
-         r.swept_area / cell, r.steps, r.nodes)
-        for real in result.realizations for k, r in enumerate(real.search.history)))
+    rows = [(real.index, k, r.phase, float(u.stress_MPa(r.stress)), r.state,
+             float(u.length_nm(r.mean_glide)), float(r.swept_area * b2), r.pinned,
+             r.swept_area / cell, r.steps, r.nodes)
+            for real in result.realizations for k, r in enumerate(real.search.history)]
+    columns = output.HISTORY_COLUMNS
+    if case.thermal.active:
+        columns, rows = thermal_history(case, result.realizations, rows)
+    files[output.HISTORY] = output.table_bytes(columns, rows)
     loops = first.swept.loops()
     if loops:
         held = loop_particles(obstacles, first.swept, first_crossing=False)
@@ -764,6 +831,23 @@ def run_files(result: RunResult) -> dict[str, bytes]:
         files[output.SNAPSHOTS] = output.snapshots_bytes(result.frames)
     files[output.RESULT] = output.json_bytes(result.summary)
     return files
+
+
+def thermal_history(case: Case, runs: list[Realization], rows: list) -> tuple[tuple, list]:
+    """history.csv of a thermal run: the athermal rows, then one row per strain-rate estimate
+    (phase "thermal", state its kMC status) with ``velocity_m_per_s``, ``strain_rate_per_s``
+    and the event ``sequence`` in three more columns."""
+    columns = output.HISTORY_COLUMNS + output.THERMAL_HISTORY_COLUMNS
+    scale = 1.0 / (case.thermal.mobile_density_per_m2 * case.material.burgers_nm * 1e-9)
+    out = [row + ("", "", "") for row in rows]
+    for real in runs:
+        if real.thermal is None:
+            continue
+        for k, (seq, tau, lnrate, status) in enumerate(real.thermal.rows):
+            rate = math.exp(lnrate) if lnrate < 700.0 else math.inf
+            out.append((real.index, k, "thermal", float(case.units.stress_MPa(tau)), status,
+                        "", "", "", "", "", "", rate * scale, rate, seq))
+    return columns, out
 
 
 def write_run(folder, result: RunResult) -> Path:

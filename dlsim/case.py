@@ -105,6 +105,10 @@ def int_range(lo: int, hi: int) -> Check:
     return Check(lambda v: lo <= v <= hi, f"{{noun}} in [{lo}, {hi}]")
 
 
+#: Caps of the [thermal] table: no solid is hotter, and the event loop stays bounded.
+MAX_TEMPERATURE_K = 5000.0
+MAX_THERMAL_EVENTS = 1_000_000
+MAX_THERMAL_SEQUENCES = 64
 NON_EMPTY = Check(lambda v: v.strip() != "", "a non-empty path")
 NON_EMPTY_NAME = Check(lambda v: v.strip() != "", "a non-empty name")
 #: Caps of single keys: beyond them no case makes sense and the arithmetic would overflow.
@@ -301,6 +305,30 @@ SCHEMA: dict[str, Section] = {
                            "obstacles, constant line tension) or auto (arcs wherever the case "
                            "qualifies, else nodal)", "auto", one_of(*SOLVER_METHODS)),
     }),
+    "thermal": Section("thermally activated release of pinned obstacles (Kocks, Argon & Ashby "
+                       "1975), arc-solver cases only; temperature_K = 0 is the athermal CRSS", {
+        "temperature_K": Key(float, "the temperature T in K (0: athermal, the quasi-static CRSS)",
+                             0.0, between(0.0, MAX_TEMPERATURE_K, closed=True)),
+        "strain_rate_per_s": Key(float, "the imposed strain rate ε̇ in 1/s", 1e-3,
+                                 between(1e-12, 1e6, closed=True)),
+        "mobile_density_per_m2": Key(float, "the mobile dislocation density ρ_m in 1/m² "
+                                            "(ε̇ = ρ_m b v)", 1e12,
+                                     between(1e6, 1e18, closed=True)),
+        "attempt_frequency_Hz": Key(float, "the attempt frequency ν0 in Hz", 1e11,
+                                    between(1e6, 1e15, closed=True)),
+        "activation_energy_eV": Key(float, "the activation energy ΔF0 at zero force in eV, of "
+                                           "every obstacle (a population may give its own)", 1.0,
+                                    between(1e-3, 100.0, closed=True)),
+        "p": Key(float, "the exponent p of ΔG = ΔF0 [1 - (F/F_c)^p]^q, 0 < p <= 1", 0.5,
+                 Check(lambda v: 0.0 < v <= 1.0, "{noun} in (0, 1]")),
+        "q": Key(float, "the exponent q of ΔG, 1 <= q <= 2", 1.5,
+                 between(1.0, 2.0, closed=True)),
+        "events": Key(int, "the activation events of one estimate of the strain rate", 400,
+                      int_range(10, MAX_THERMAL_EVENTS)),
+        "sequences": Key(int, "the independent event sequences (their spread is the "
+                              "statistical uncertainty of the stress)", 4,
+                         int_range(1, MAX_THERMAL_SEQUENCES)),
+    }),
     "output": Section("result files", {
         "folder": Key(str, "the output folder relative to the case file (default: runs/<stem>)",
                       None, NON_EMPTY),
@@ -363,6 +391,9 @@ ARRAY_SCHEMA: dict[str, Section] = {
                         between(0, 10, closed=True)),
         "critical_angle_deg": Key(float, "the critical angle φ_c in degrees (point)", None,
                                   between(0, 180, closed=True)),
+        "activation_energy_eV": Key(float, "this population's activation energy ΔF0 in eV "
+                                           "(default: `thermal.activation_energy_eV`)", None,
+                                    between(1e-3, 100.0, closed=True)),
     }, at_most_one=(("volume_fraction", "number_density_per_um3"),)),
 }
 #: Keys each choice needs; a key of another choice is refused (it would be silently ignored).
@@ -453,6 +484,7 @@ class PopulationSpec:
     exponent: float | None
     critical_angle_deg: float | None
     areal_density_per_nm2: float
+    activation_energy_eV: float | None = None
     source: str = field(default=DICT_SOURCE, compare=False, repr=False)
     key: str = field(default="populations[1]", compare=False, repr=False)
     #: The sizes read from ``sizes_file`` (distribution = "measured"), read once when resolved.
@@ -569,6 +601,26 @@ class SolverSpec:
 
 
 @dataclass(frozen=True)
+class ThermalSpec:
+    """Thermal activation (SI units and eV), see :data:`SCHEMA` ``["thermal"]``."""
+
+    temperature_K: float = 0.0
+    strain_rate_per_s: float = 1e-3
+    mobile_density_per_m2: float = 1e12
+    attempt_frequency_Hz: float = 1e11
+    activation_energy_eV: float = 1.0
+    p: float = 0.5
+    q: float = 1.5
+    events: int = 400
+    sequences: int = 4
+
+    @property
+    def active(self) -> bool:
+        """True when the case is thermally activated (T > 0)."""
+        return self.temperature_K > 0.0
+
+
+@dataclass(frozen=True)
 class OutputSpec:
     """Output folder (absolute path) and snapshot interval (0: no snapshots)."""
 
@@ -597,6 +649,7 @@ class Case:
     elasticity: ElasticitySpec | None = None
     solver: SolverSpec = SolverSpec("nodal", "nodal")
     convergence: ConvergenceSpec = ConvergenceSpec()
+    thermal: ThermalSpec = ThermalSpec()
     #: One-line warnings about values outside real materials (:func:`dlsim.bounds.check_case`).
     warnings: tuple[str, ...] = field(default=(), compare=False)
 
@@ -629,6 +682,7 @@ class Case:
             "elasticity": dataclasses.asdict(self.elasticity),
             "solver": self.solver.to_dict(),
             "convergence": dataclasses.asdict(self.convergence),
+            "thermal": dataclasses.asdict(self.thermal),
             "output": dataclasses.asdict(self.output),
         }
         if self.obstacles is not None:
@@ -1068,6 +1122,7 @@ def load_case(source: str | os.PathLike | dict | Case, base_dir: str | os.PathLi
                 strength=StrengthSpec(**strength), elasticity=elasticity)
     case = dataclasses.replace(case, solver=_resolve_solver(name, table("solver")["method"], case),
                                convergence=_resolve_convergence(name, table("convergence")))
+    case = dataclasses.replace(case, thermal=_resolve_thermal(name, table("thermal"), case))
     return dataclasses.replace(case, warnings=bounds.check_case(case))
 
 
@@ -1112,6 +1167,17 @@ def _resolve_convergence(source: str, c: dict) -> ConvergenceSpec:
         raise CaseError(source, "convergence.box_max", f"got {c['box_max']:g}; must exceed "
                                                        f"`convergence.box_min` = {c['box_min']:g}")
     return ConvergenceSpec(**c)
+
+
+def _resolve_thermal(source: str, t: dict, case: Case) -> ThermalSpec:
+    """Thermal activation runs on the arc solver only (its events are exact and cheap)."""
+    spec = ThermalSpec(**t)
+    if spec.active and case.solver.solver != "arcs":
+        why = arcs_limitation(case) or 'the case asks for `solver.method` = "nodal"'
+        raise CaseError(source, "thermal.temperature_K",
+                        f"got {spec.temperature_K:g}; thermal activation runs on the arc "
+                        f"solver only, and this case needs the nodal solver ({why})")
+    return spec
 
 
 def _resolve_solver(source: str, method: str, case: Case) -> SolverSpec:

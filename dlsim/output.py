@@ -44,6 +44,8 @@ SWEEP = "sweep.json"
 HISTORY_COLUMNS = ("realization", "index", "phase", "stress_MPa", "state", "mean_glide_nm",
                    "swept_area_nm2", "n_pinned_nodes", "plastic_strain_increment", "n_steps",
                    "n_nodes")
+#: Columns a thermally activated run adds to history.csv (velocity against stress).
+THERMAL_HISTORY_COLUMNS = ("velocity_m_per_s", "strain_rate_per_s", "sequence")
 #: loops.csv: one row per node of each Orowan loop; ``relaxation`` is how the loop was relaxed
 #: onto its obstacles (dlsim.loops.LOOP_STATUS_NAMES).
 LOOPS_COLUMNS = ("loop", "particle", "relaxation", "x_nm", "y_nm")

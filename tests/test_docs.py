@@ -188,9 +188,10 @@ def test_physics_validation_table_names_existing_tests():
         assert re.search(rf"^def {name}\(", source, re.M), f"{path}::{name} not found"
 
 
-def test_physics_notes_say_the_model_is_athermal():
+def test_physics_notes_say_when_the_model_is_athermal():
     text = PHYSICS.read_text(encoding="utf-8")
-    assert "athermal (0 K)" in text and "## The arc solver" in text
+    assert "## Status: athermal unless `[thermal]` is given" in text
+    assert "## Thermal activation" in text and "## The arc solver" in text
 
 
 # ---------------------------------------------------------------------------------------------

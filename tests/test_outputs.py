@@ -17,7 +17,8 @@ from test_reliability import POPULATION_CASE, TINY_CASE
 
 DOC = Path(__file__).resolve().parents[1] / "docs" / "outputs.md"
 #: Unit suffixes of the rule (docs/outputs.md).
-UNITS = ("nm", "nm2", "MPa", "GPa", "nN", "deg", "s", "per_um2", "per_nm2", "per_nm3", "spacings")
+UNITS = ("nm", "nm2", "MPa", "GPa", "nN", "deg", "s", "per_um2", "per_nm2", "per_nm3", "spacings",
+         "K", "per_s", "b3", "m_per_s")
 STATISTICS = ("mean", "std", "sem", "ci95", "lo", "hi", "max", "expected")
 UNIT_END = re.compile(r"_(%s)$" % "|".join(UNITS))
 #: A unit followed by a statistic breaks the rule (crss_MPa_mean).
@@ -29,6 +30,11 @@ NOT_EXERCISED = {
     # other line models than the constant line tension
     "model.core_radius_nm", "model.outer_radius_nm", "model.n_image_periods", "model.cutoff_nm",
     "model.n_refresh_steps", "model.loops_interact",
+    # thermally activated runs only (written and read back in tests/test_thermal.py)
+    "temperature_K", "strain_rate_per_s", "crss_athermal_MPa", "crss_sequences_MPa",
+    "crss_sequence_std_MPa", "crss_sequence_ci95_lo_MPa", "crss_sequence_ci95_hi_MPa",
+    "activation_volume_b3", "activation_volume_std_b3", "n_sequences", "n_events_per_sequence",
+    "velocity_m_per_s", "sequence",
 }
 MEASURED = "populations.<name>.expected.measured"   # only with measured size files
 

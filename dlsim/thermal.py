@@ -1,0 +1,362 @@
+"""Thermally activated glide through point obstacles on the arc construction.
+
+A pinned obstacle that the line presses with a force F below its critical force F_c is overcome
+by thermal activation at the rate ν0 exp(-ΔG(F)/kT), ΔG = ΔF0 [1 - (F/F_c)^p]^q (Kocks, Argon &
+Ashby, *Thermodynamics and Kinetics of Slip*, 1975).  At a fixed stress the line is a chain of
+arcs (:mod:`dlsim.arcs`); the next activation among its pins is drawn by the residence-time
+algorithm (Bortz, Kalos & Lebowitz 1975; Gillespie 1976): total rate R = Σ r_i, pin i with
+probability r_i/R, clock advanced by -ln(u)/R; after the release the line relaxes athermally
+(cascades included) with the arc construction at the same stress.  The mean glide over the clock
+gives the velocity v and the strain rate ε̇ = ρ_m b v.  The stress that gives the requested strain
+rate is found by bisection on ln ε̇, each event sequence on its own (common random numbers along
+one sequence), and the spread over sequences is the statistical uncertainty (docs/physics.md,
+"Thermal activation").
+
+Rates are handled as logarithms relative to ν0 (ΔG/kT reaches hundreds at low temperature and
+exp underflows); the clock is kept as its logarithm too.  Reduced units inside (length b, stress
+G, force G b²); the barrier enters as ΔF0/kT, a pure number.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+from numba import njit
+
+from dlsim import arcs as A
+from dlsim.fields import ObstacleField
+from dlsim.jit import JIT
+from dlsim.solver import LineModel, Protocol
+
+#: Boltzmann constant in eV/K (CODATA 2018, exact).
+K_B_EV = 8.617333262e-5
+#: The elementary charge in C (CODATA 2018, exact): eV to J.
+EV_J = 1.602176634e-19
+
+#: Status codes of :func:`kmc_events`.
+K_DONE, K_GROW, K_RUNAWAY, K_STUCK, K_FATAL = range(5)
+KMC_STATUS = ("done", "grow", "runaway", "stuck", "fatal")
+#: Slots of the kMC state vector: events done, ln of the clock (units of 1/ν0), area of the line
+#: when the measurement started (b²), ln clock then, events of the warm-up, an avalanche is due.
+Q_EVENTS, Q_LNT, Q_AREA0, Q_LNT0, Q_WARM, Q_PENDING = range(6)
+N_Q = 6
+#: Share of a sequence's events spent reaching the steady state before glide and clock are
+#: measured (the first events start from the configuration of monotonic loading).
+WARMUP_FRACTION = 0.2
+#: Bisection steps of the stress search on ln ε̇ (2^-20 of the athermal CRSS), after which the
+#: root is interpolated linearly in ln ε̇ between the bracket's ends: far below the statistical
+#: uncertainty of any sequence.
+SEARCH_BISECTIONS = 20
+#: Relative stress step of the central difference that gives the activation volume.
+VSTAR_STEP = 0.01
+
+
+@njit(**JIT)
+def log_rate(x, barrier, p, q):
+    """ln(r/ν0) = -(ΔF0/kT) [1 - x^p]^q of an obstacle pressed at x = F/F_c (x >= 1: +0, the
+    release is athermal; x <= 0: the whole barrier)."""
+    if x >= 1.0:
+        return 0.0
+    if x <= 0.0:
+        return -barrier
+    return -barrier * (1.0 - x ** p) ** q
+
+
+@njit(**JIT)
+def pin_log_rates(W, s, barrier, p, q, slots, lnr):
+    """Fill slots[:n], lnr[:n] with the line's pins and their ln(r/ν0) at stress s; returns n.
+    ``barrier`` (m,) is ΔF0/kT of every obstacle.
+
+    The force on a pin is 2Γ cos(φ/2) (φ its arm angle) and F_c = 2Γ cos(φ_c/2), so F/F_c is the
+    ratio of the cosines.  An impenetrable obstacle (φ_c = 0) is never activated: -inf.
+    """
+    PI, SI, OB = W[A.W_IP], W[A.W_IS], W[A.W_OB]
+    i0 = SI[A.I_ANCHOR]
+    if i0 < 0 or SI[A.I_NPINS] == 0:
+        return 0
+    i, n = i0, 0
+    for _ in range(slots.shape[0]):
+        k = PI[A.PK, i]
+        phic = OB[2, k]
+        slots[n] = i
+        if phic <= 0.0:
+            lnr[n] = -np.inf
+        else:
+            x = math.cos(0.5 * A._pin_phi(W, i, s)) / math.cos(0.5 * phic)
+            lnr[n] = log_rate(x, barrier[k], p, q)
+        n += 1
+        i = PI[A.PNEXT, i]
+        if i == i0:
+            break
+    return n
+
+
+@njit(**JIT)
+def _avalanche(W):
+    """Relax athermally at the current stress (arcs.advance with its top stress at the current
+    one): K_DONE when stable, K_GROW when the work arrays must grow, K_RUNAWAY when the line
+    glided the flow distance in one avalanche, K_FATAL otherwise."""
+    SI = W[A.W_IS]
+    while True:
+        st = A.advance(W)
+        if st == A.S_GIVEUP:
+            return K_DONE
+        if st == A.S_HIST:
+            SI[A.I_NHIST] = 0                  # the kMC keeps its own record
+        elif st == A.S_MAXEV:
+            SI[A.I_MAXEV] += SI[A.I_MAXEV]
+        elif st == A.S_GROW:
+            return K_GROW
+        elif st == A.S_FLOW:
+            return K_RUNAWAY
+        elif st != A.S_SNAP:
+            return K_FATAL
+
+
+@njit(**JIT)
+def kmc_events(W, s, barrier, p, q, u, Q, slots, lnr, waits):
+    """Run residence-time events at stress s until ``u`` is used up (two numbers per event).
+
+    Parameters
+    ----------
+    W : tuple
+        The arc construction's work arrays, stable at stress s (``arcs._Run.tuple``).
+    s : float
+        Stress τ/(2Γ) (b⁻¹), fixed.
+    barrier : (m,) float64
+        ΔF0/kT of every obstacle.
+    p, q : float
+        The exponents of ΔG.
+    u : (2 n,) float64
+        Uniform numbers in (0, 1]: event k picks its pin with u[2k] and its waiting time with
+        u[2k+1].
+    Q : (N_Q,) float64
+        kMC state (``Q_*``), updated; resumable after K_GROW.
+    slots, lnr : (C,) int64, float64
+        Scratch for the pins and their log rates (C >= the pin capacity).
+    waits : (n,) float64
+        Receives each event's ln waiting time (units of 1/ν0).
+
+    Returns
+    -------
+    int
+        K_DONE, K_GROW (grow the arrays and call again), K_RUNAWAY, K_STUCK (no pin can be
+        activated) or K_FATAL.
+    """
+    SF, SI = W[A.W_FS], W[A.W_IS]
+    n_ev = u.shape[0] // 2
+    R = 0.5 / s
+    while True:
+        if Q[Q_PENDING] != 0.0:
+            st = _avalanche(W)
+            if st != K_DONE:
+                return st
+            Q[Q_PENDING] = 0.0
+            if Q[Q_EVENTS] == Q[Q_WARM]:
+                Q[Q_AREA0], Q[Q_LNT0] = A._line_area(W, s)[0], Q[Q_LNT]
+        k = int(Q[Q_EVENTS])
+        if k >= n_ev:
+            return K_DONE
+        n = pin_log_rates(W, s, barrier, p, q, slots, lnr)
+        if n == 0:
+            return K_RUNAWAY
+        m = lnr[:n].max()
+        if m == -np.inf:
+            return K_STUCK
+        total = 0.0
+        for j in range(n):
+            total += math.exp(lnr[j] - m)
+        pick, acc, target = n - 1, 0.0, u[2 * k] * total
+        for j in range(n):
+            acc += math.exp(lnr[j] - m)
+            if acc >= target:
+                pick = j
+                break
+        lndt = math.log(-math.log(u[2 * k + 1])) - m - math.log(total)
+        waits[k] = lndt
+        t = Q[Q_LNT]
+        Q[Q_LNT] = lndt if t == -np.inf else max(t, lndt) + math.log1p(
+            math.exp(-abs(t - lndt)))
+        i = slots[pick]
+        SI[A.I_EPOCH] += 1                     # a new avalanche: its glide counts from here
+        SF[A.F_DA], SF[A.F_AGAP] = 0.0, 0.0
+        A._hremove(W, 2 * i + 1)
+        SF[A.F_BX0], SF[A.F_BY0], SF[A.F_BX1], SF[A.F_BY1] = np.inf, np.inf, -np.inf, -np.inf
+        r = A._do_release(W, i, s, R)
+        if r == A.ROLL_START or r == A.FREE_START:
+            r = A._run_roll(W, s, R, r == A.FREE_START)
+        SI[A.I_EVENTS] += 1
+        Q[Q_EVENTS] += 1.0
+        Q[Q_PENDING] = 1.0
+        if r == A.ROLL_DONE:
+            A._refresh_touched(W)
+        elif r == A.S_FLOW:
+            return K_RUNAWAY
+        else:
+            return K_FATAL
+
+
+@dataclass(frozen=True)
+class ThermalModel:
+    """Activation parameters in the units the kernels need.
+
+    ``barrier`` is ΔF0/kT (a number for every obstacle, or an (m,) array of each obstacle's), ``p`` and ``q`` the exponents, ``ln_nu0`` ln(ν0/Hz), ``ln_rate_scale``
+    ln(ρ_m b · b) (ε̇ = ρ_m b v with v in m/s and glide in b), ``kT`` in G b³ (for V*).
+    """
+
+    barrier: float | np.ndarray
+    p: float
+    q: float
+    ln_nu0: float
+    ln_rate_scale: float
+    kT: float
+    events: int
+    sequences: int
+
+
+def thermal_model(spec, shear_modulus_GPa: float, burgers_nm: float,
+                  activation_energy_eV: np.ndarray | None = None) -> ThermalModel:
+    """A :class:`ThermalModel` from a case's ``[thermal]`` spec and its material;
+    ``activation_energy_eV`` (m,) gives each obstacle its own ΔF0 (default the spec's)."""
+    kT_eV = K_B_EV * spec.temperature_K
+    b_m = burgers_nm * 1e-9
+    kT_reduced = kT_eV * EV_J / (shear_modulus_GPa * 1e9 * b_m ** 3)
+    energy = spec.activation_energy_eV if activation_energy_eV is None else activation_energy_eV
+    return ThermalModel(energy / kT_eV, spec.p, spec.q,
+                        math.log(spec.attempt_frequency_Hz),
+                        math.log(spec.mobile_density_per_m2 * b_m * b_m), kT_reduced,
+                        spec.events, spec.sequences)
+
+
+def _loaded(obstacles: ObstacleField, model: LineModel, protocol: Protocol, s: float):
+    """The arc construction loaded monotonically to stress s and stable there; None when the
+    line flows below s (s is above the athermal CRSS)."""
+    capacity = max(A.MIN_PINS, A.PINS_PER_SPACING * int(math.ceil(obstacles.Lx /
+                                                                  obstacles.spacing)))
+    while True:
+        run = A._Run(obstacles, model, protocol, 0.0, capacity, 0)
+        W = run.W
+        W[A.W_FS][A.FPR + A.R_SMAX] = s
+        if A._init(run, 0.0) == 0:
+            return None
+        while True:
+            st = A.advance(run.tuple())
+            if st == A.S_HIST:
+                W[A.W_IS][A.I_NHIST] = 0
+            elif st == A.S_GROW:
+                run.grow()
+            elif st == A.S_MAXEV:
+                W[A.W_IS][A.I_MAXEV] *= 2
+            else:
+                break
+        if st == A.S_FLOW:
+            return None
+        if st == A.S_GIVEUP:
+            SF, SI = run.W[A.W_FS], run.W[A.W_IS]
+            SF[A.F_S] = s
+            SI[A.I_EPOCH] += 1
+            SF[A.F_DA], SF[A.F_AGAP] = 0.0, 0.0
+            return run
+        capacity *= 4
+
+
+def log_velocity(obstacles: ObstacleField, model: LineModel, protocol: Protocol,
+                 tm: ThermalModel, tau: float, u: np.ndarray, waits: np.ndarray | None = None
+                 ) -> tuple[float, str]:
+    """ln(v/(ν0 b)) of the line at stress ``tau`` (G) over the events of ``u``, and the status.
+
+    +inf for a runaway (athermal flow at ``tau``), -inf when no pin can be activated.  The glide
+    and the clock count from the end of the warm-up (``WARMUP_FRACTION`` of the events).
+    ``waits`` (len(u)/2,), when given, receives each event's ln waiting time (units of 1/ν0).
+    """
+    s = (tau - model.friction) / (2.0 * model.tension)
+    if s <= 0.0:
+        return -np.inf, "stuck"
+    run = _loaded(obstacles, model, protocol, s)
+    if run is None:
+        return np.inf, "runaway"
+    Q = np.zeros(N_Q)
+    Q[Q_LNT], Q[Q_LNT0], Q[Q_PENDING] = -np.inf, -np.inf, 1.0
+    Q[Q_WARM] = int(WARMUP_FRACTION * (u.shape[0] // 2))
+    waits = np.full(u.shape[0] // 2, np.nan) if waits is None else waits
+    barrier = np.ascontiguousarray(np.broadcast_to(np.asarray(tm.barrier, float),
+                                                   (obstacles.n,)))
+    while True:
+        C = run.capacity
+        slots, lnr = np.zeros(C + 1, np.int64), np.zeros(C + 1)
+        st = kmc_events(run.tuple(), s, barrier, tm.p, tm.q, u, Q, slots, lnr, waits)
+        if st != K_GROW:
+            break
+        run.grow()
+    if st == K_RUNAWAY:
+        return np.inf, "runaway"
+    if st == K_STUCK:
+        return -np.inf, "stuck"
+    if st == K_FATAL:
+        return np.nan, "fatal"
+    glide = (A._line_area(run.tuple(), s)[0] - Q[Q_AREA0]) / float(obstacles.Lx)
+    if glide <= 0.0:
+        return -np.inf, "stuck"
+    return math.log(glide) - (Q[Q_LNT] if Q[Q_LNT0] == -np.inf else
+                              Q[Q_LNT] + math.log(-math.expm1(Q[Q_LNT0] - Q[Q_LNT]))), "ok"
+
+
+def log_strain_rate(lnv: float, tm: ThermalModel) -> float:
+    """ln(ε̇ s) from ln(v/(ν0 b)): ε̇ = ρ_m b v (Orowan's relation)."""
+    return lnv + tm.ln_nu0 + tm.ln_rate_scale
+
+
+def event_numbers(seed: int, sequence: int, events: int) -> np.ndarray:
+    """The (2 events,) uniform numbers in (0, 1] of one event sequence, from the case seed."""
+    rng = np.random.default_rng(np.random.SeedSequence(seed, spawn_key=(0x7E, sequence)))
+    return 1.0 - rng.random(2 * events)
+
+
+@dataclass
+class ThermalSearch:
+    """Outcome of :func:`find_thermal_stress` (reduced units; ε̇ in 1/s, V* in b³)."""
+
+    stress: np.ndarray            # (sequences,) the stress at the requested strain rate (G)
+    activation_volume: np.ndarray  # (sequences,) V* = kT ∂ln ε̇/∂τ (b³)
+    athermal: float               # the athermal CRSS of the field (G)
+    rows: list = field(default_factory=list)   # (sequence, stress G, ln ε̇, status)
+
+
+def find_thermal_stress(obstacles: ObstacleField, model: LineModel, protocol: Protocol,
+                        tm: ThermalModel, ln_rate_target: float, tau_athermal: float,
+                        seed: int) -> ThermalSearch:
+    """The stress at which the simulated strain rate equals the requested one, per sequence.
+
+    ln ε̇ grows with the stress; along one event sequence (the same random numbers at every
+    stress) it is a deterministic function, bisected on [friction, athermal CRSS] (the line
+    runs away athermally above the CRSS).  V* comes from a central difference of ln ε̇ at
+    ±``VSTAR_STEP`` of the stress found.
+    """
+    rows: list = []
+    taus, vstar = [], []
+    for k in range(tm.sequences):
+        u = event_numbers(seed, k, tm.events)
+
+        def lnrate(tau: float) -> float:
+            lnv, status = log_velocity(obstacles, model, protocol, tm, tau, u)
+            out = log_strain_rate(lnv, tm)
+            rows.append((k, tau, out, status))
+            return out
+
+        lo, hi, flo, fhi = model.friction, tau_athermal, -np.inf, np.inf
+        for _ in range(SEARCH_BISECTIONS):
+            mid = 0.5 * (lo + hi)
+            f = lnrate(mid)
+            if f < ln_rate_target:
+                lo, flo = mid, f
+            else:
+                hi, fhi = mid, f
+        tau = 0.5 * (lo + hi)
+        if np.isfinite(flo) and np.isfinite(fhi) and fhi > flo:
+            tau = lo + (hi - lo) * (ln_rate_target - flo) / (fhi - flo)
+        h = VSTAR_STEP * (tau - model.friction)
+        slope = (lnrate(tau + h) - lnrate(tau - h)) / (2.0 * h)
+        taus.append(tau)
+        vstar.append(tm.kT * slope)
+    return ThermalSearch(np.array(taus), np.array(vstar), tau_athermal, rows)
