@@ -1002,26 +1002,17 @@ def reconnect(line, n, i, j, meta, loops, field, work_f):
 
 @njit(**JIT)
 def _join(line, n, i, j, shift, work_f):
-    """Rebuild the line without the part a reconnection of i and j cuts off; return the count."""
-    x, y, pin, ign = line
-    rx, ry, rad = work_f[W_RX], work_f[W_RY], work_f[W_RAD]
+    """Rebuild the line without the part a reconnection of i and j cuts off; return the count.
+
+    Nodes i and j merge into their midpoint m: the line keeps [0 .. i-1] + [m] + [j+1 .. n-1],
+    or across the seam [i+1 .. j-1] + [m] (:func:`_rejoin` of the nodes between).
+    """
+    x, y = line[0], line[1]
     xmid = 0.5 * (x[i] + shift + x[j])
     ymid = 0.5 * (y[i] + y[j])
-    if shift == 0.0:  # line = [0 .. i-1] + [m] + [j+1 .. n-1]
-        x[i], y[i], pin[i], ign[i], rad[i] = xmid, ymid, -1, -1, UNKNOWN
-        m = i + 1
-        for q in range(j + 1, n):
-            x[m], y[m], pin[m], ign[m] = x[q], y[q], pin[q], ign[q]
-            rx[m], ry[m], rad[m] = rx[q], ry[q], rad[q]
-            m += 1
-        return m
-    m = 0  # across the seam: line = [i+1 .. j-1] + [m]
-    for q in range(i + 1, j):
-        x[m], y[m], pin[m], ign[m] = x[q], y[q], pin[q], ign[q]
-        rx[m], ry[m], rad[m] = rx[q], ry[q], rad[q]
-        m += 1
-    x[m], y[m], pin[m], ign[m], rad[m] = xmid, ymid, -1, -1, UNKNOWN
-    return m + 1
+    if shift == 0.0:
+        return _rejoin(line, n, i - 1, j, xmid, ymid, work_f)
+    return _rejoin(line, n, j - 1, i + n, xmid, ymid, work_f)
 
 
 @njit(**JIT, inline="always")
