@@ -21,12 +21,16 @@ def _note(text: str) -> None:
 
 
 def _cmd_run(args: argparse.Namespace) -> int:
-    from .api import STATUS_NO_CRSS, format_summary, kernels_need_compiling, run_case
+    from .api import STATUS_NO_CRSS, case_inputs, format_summary, kernels_need_compiling, run_case
     from .case import load_case
+    from .output import check_destination
 
     case = load_case(args.case)
     for warning in case.warnings:
         _note(f"warning: {warning}")
+    # a bad destination is the one line a user sees, before any note about compiling
+    check_destination(args.out if args.out is not None else case.output.folder,
+                      inputs=case_inputs(case))
     if kernels_need_compiling():
         _note("compiling the kernels (first run only, about half a minute)")
     result = run_case(case, out_dir=args.out, progress=not args.quiet)
