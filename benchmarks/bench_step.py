@@ -126,7 +126,7 @@ class StepProfile:
         return {
             "node_pass": lambda: K.node_pass(line, n, prm, wf),
             "remesh": lambda bad: K._remesh_line(line, n, prm, bad, f, wf, wi),
-            "release": lambda: K._release(line, n, f[2], f[3], wf[C.W_FPIN]),
+            "release": lambda: K._release(line, n, prm, f, wf, s.meta, loops),
             "contacts and reconnections": lambda: K._reconnect_all(line, n, prm, s.meta, loops, f,
                                                                    wf, wi),
             "move_and_capture": lambda dt: K.move_and_capture(line, n, dt, prm, f, wf, wi),

@@ -479,8 +479,8 @@ def move_and_capture(line, n, dt, prm, field, work_f, work_i):
     test is skipped.  A node outside its disc (or with radius UNKNOWN) measures its clearance
     again at its new position, except that a node nearer than ``h`` to an obstacle waits until it
     has moved REFRESH_FRACTION l_min (its segments are tested exactly meanwhile).  Callers set the
-    radius to UNKNOWN wherever nodes are created or moved other than here and everywhere when an
-    obstacle becomes free.  Each node is moved right after the segment it starts has been tested,
+    radius to UNKNOWN wherever nodes are created or moved other than here, and shrink the discs an
+    obstacle lies in when it becomes free (:func:`_obstacle_freed`).  Each node is moved right after the segment it starts has been tested,
     so the line is read once.  The captures go to the capture rows (:func:`_captures`), not yet
     into the line (:func:`insert_pins`).
 
@@ -787,6 +787,13 @@ def _pow2_at_most(value):
     return p
 
 
+@njit(**JIT, inline="always")
+def _bucket(i, j, mx, mask):
+    """Hash bucket of grid cell (i mod (mx + 1), j): a line may span many cells in y, and a
+    bucket per row modulo a power of two would stack its distant parts in the same buckets."""
+    return (((i & mx) * 73856093) ^ (j * 19349663)) & mask
+
+
 @njit(**JIT)
 def find_contact(line, n, prm, work_f, work_i):
     """A pair of free nodes (i, j), i < j, on parts of the line of opposite sense in contact.
@@ -826,8 +833,9 @@ def find_contacts(line, n, prm, work_f, work_i, ci, cj):
     nodes apart along the line (or wrapped round obstacles between, RECONNECT_MIN_PINS) and their
     chord tangents (rows W_NTX, W_NTY, :func:`node_pass`) are closer to antiparallel than
     RECONNECT_COS; only nodes with t_x < TURNED_TX need to look (most of a gliding line does
-    not).  Candidates come from a hashed cell list over the free nodes, with power-of-two cell
-    counts so that wrapping is a bit mask (rows I_HEAD: cells, I_NEXT: nodes).  Each looking node
+    not).  Candidates come from a hashed cell list over the free nodes, a power-of-two count of cells
+    in x so that wrapping is a bit mask, the cells hashed into buckets (:func:`_bucket`; rows
+    I_HEAD: buckets, I_NEXT: nodes).  Each looking node
     contributes the first partner it finds; the pairs go to ``ci, cj`` until they are full.
     Returns the number of pairs.
     """
@@ -1038,11 +1046,19 @@ def _cross_param(ax, ay, bx, by, cx, cy, dx, dy):
     return t
 
 
+@njit(**JIT, inline="always")
+def _segment_end(x, y, n, k, Lx):
+    """The end node of segment k (0 <= k < n): node k + 1, or node 0 shifted by Lx."""
+    if k < n - 1:
+        return x[k + 1], y[k + 1]
+    return x[0] + Lx, y[0]
+
+
 @njit(**JIT)
 def _mark_backward_bins(x, n, Lx, ncx, width, marked):
     """Mark the x bins (mod Lx) that a segment running backwards (x decreasing) spans; return how
     many segments run backwards."""
-    marked[:] = False
+    marked[:ncx] = False
     count = 0
     for k in range(n):
         xa = x[k]
@@ -1056,7 +1072,7 @@ def _mark_backward_bins(x, n, Lx, ncx, width, marked):
 
 
 @njit(**JIT)
-def find_crossing(line, n, prm):
+def find_crossing(line, n, prm, work_i):
     """The crossing of two segments of the line that cuts off the smallest loop.
 
     A line without a segment running backwards is a graph y(x) over its period and cannot cross
@@ -1078,34 +1094,35 @@ def find_crossing(line, n, prm):
     hc = prm.l_max
     ncx = _pow2_at_most(Lx / hc)
     width = Lx / ncx
-    marked = np.empty(ncx, np.bool_)
+    marked, cand = work_i[I_KEEP], work_i[I_SRC]
+    start_room = work_i.shape[1]
     if _mark_backward_bins(x, n, Lx, ncx, width, marked) == 0:
         return -1, -1, -1.0
-    ncy = _pow2_at_most(max(1.0, 2.0 * n / ncx + 1.0))
+    ncy = _pow2_at_most(max(1.0, min((start_room - 1) / ncx, 2.0 * n / ncx + 1.0)))
     mx, my = ncx - 1, ncy - 1
     # candidates and their cells: count, then fill (CSR over cells)
-    cand = np.empty(n, np.bool_)
     entries = 0
     for k in range(n):
         ax, ay = x[k], y[k]
-        bx, by = _node_at(x, y, n, k + 1, Lx)
+        bx, by = _segment_end(x, y, n, k, Lx)
         i0, i1 = int(np.floor(min(ax, bx) / width)), int(np.floor(max(ax, bx) / width))
         i1 = min(i1, i0 + ncx - 1)
         hit = False
         for i in range(i0, i1 + 1):
-            hit = hit or marked[i & mx]
+            hit = hit or marked[i & mx] != 0
         cand[k] = hit
         if hit:
             j0, j1 = int(np.floor(min(ay, by) / hc)), int(np.floor(max(ay, by) / hc))
             entries += (i1 - i0 + 1) * (min(j1, j0 + ncy - 1) - j0 + 1)
-    start = np.zeros(ncx * ncy + 1, np.int64)
-    seg = np.empty(entries, np.int64)
+    start = work_i[I_HEAD]
+    seg = work_i[I_NEXT] if entries <= work_i.shape[1] else np.empty(entries, np.int64)
+    start[:ncx * ncy + 1] = 0
     for phase in range(2):
         for k in range(n):
             if not cand[k]:
                 continue
             ax, ay = x[k], y[k]
-            bx, by = _node_at(x, y, n, k + 1, Lx)
+            bx, by = _segment_end(x, y, n, k, Lx)
             i0, i1 = int(np.floor(min(ax, bx) / width)), int(np.floor(max(ax, bx) / width))
             j0, j1 = int(np.floor(min(ay, by) / hc)), int(np.floor(max(ay, by) / hc))
             for i in range(i0, min(i1, i0 + ncx - 1) + 1):
@@ -1135,9 +1152,9 @@ def find_crossing(line, n, prm):
                 # the image of k2 nearest to k1
                 m = int(np.floor((x[k1] - x[k2]) / Lx + 0.5))
                 ax, ay = x[k1], y[k1]
-                bx, by = _node_at(x, y, n, k1 + 1, Lx)
+                bx, by = _segment_end(x, y, n, k1, Lx)
                 cx, cy = x[k2] + m * Lx, y[k2]
-                dx, dy = _node_at(x, y, n, k2 + 1, Lx)
+                dx, dy = _segment_end(x, y, n, k2, Lx)
                 t = _cross_param(ax, ay, bx, by, cx, cy, dx + m * Lx, dy)
                 if t < 0.0:
                     continue
@@ -1154,7 +1171,7 @@ def find_crossing(line, n, prm):
 
 
 @njit(**JIT)
-def cut_crossing(line, n, p, q, t, meta, loops, field, work_f):
+def cut_crossing(line, n, p, q, t, prm, meta, loops, field, work_f):
     """Cut the loop of the unwrapped nodes p+1..q off where segments p and q cross
     (:func:`find_crossing`); return the new node count, -1 if the loop buffers are full.
 
@@ -1190,6 +1207,8 @@ def cut_crossing(line, n, p, q, t, meta, loops, field, work_f):
     elif pins == 1:
         opin[pin[held]] -= 1
         meta[M_RELEASES] += 1
+        if opin[pin[held]] == 0:
+            _obstacle_freed(pin[held], n, prm, field, work_f)
     return _rejoin(line, n, p, q, cx, cy, work_f)
 
 
@@ -1256,10 +1275,10 @@ def _reconnect_all(line, n, prm, meta, loops, field, work_f, work_i):
             if across:
                 break
         if not done:   # no contact left: cut where the line crosses itself, if it does
-            p, q, t = find_crossing(line, n, prm)
+            p, q, t = find_crossing(line, n, prm, work_i)
             if p < 0:
                 return n, False
-            n_new = cut_crossing(line, n, p, q, t, meta, loops, field, work_f)
+            n_new = cut_crossing(line, n, p, q, t, prm, meta, loops, field, work_f)
             if n_new < 0:
                 return n, True
             n = n_new
@@ -1289,16 +1308,18 @@ def _chord_tangents(x, y, n, Lx, ntx, nty):
 
 
 @njit(**JIT)
-def _release(line, n, field, fpin, meta, loops):
-    """Free every pinned node whose force ``fpin`` exceeds its obstacle's strength; return the
-    count, -1 if the loop buffers are full (nothing more is released: grow them, call again).
+def _release(line, n, prm, field, work_f, meta, loops):
+    """Free every pinned node whose force (row W_FPIN) exceeds its obstacle's strength; return
+    the count, -1 if the loop buffers are full (nothing more is released: grow them, call again).
 
-    A pin whose arms have crossed behind it (``fpin`` infinite, :func:`_arms_crossed`) is past
-    any critical angle: a shearable obstacle is released; an impenetrable one (infinite strength)
-    is bypassed the Orowan way, by a loop of zero size left round it (one node at the obstacle,
-    which keeps it held), while the line node leaves it.
+    A pin whose arms have crossed behind it (force infinite, :func:`_arms_crossed`) is past any
+    critical angle: a shearable obstacle is released; an impenetrable one (infinite strength) is
+    bypassed the Orowan way, by a loop of zero size left round it (one node at the obstacle,
+    which keeps it held), while the line node leaves it.  An obstacle nothing holds any more
+    shrinks the nodes' obstacle-free discs (:func:`_obstacle_freed`).
     """
     x, y, pin, ign = line
+    fpin = work_f[W_FPIN]
     ofc, opin = field[2], field[3]
     released = 0
     for i in range(n):
@@ -1309,10 +1330,32 @@ def _release(line, n, field, fpin, meta, loops):
                     return -1
             else:
                 opin[k] -= 1
+                if opin[k] == 0:
+                    _obstacle_freed(k, n, prm, field, work_f)
             pin[i] = -1
             ign[i] = k
             released += 1
     return released
+
+
+@njit(**JIT)
+def _obstacle_freed(k, n, prm, field, work_f):
+    """Obstacle k has just become free: shrink every node's obstacle-free disc that it now lies
+    in (:func:`move_and_capture`: no free obstacle within W_RAD + l_max/2 of the disc's centre),
+    so that those nodes' segments are tested exactly again; the other discs stay valid."""
+    ox, oy, Lx, Ly = field[0][k], field[1][k], field[8], field[9]
+    rx, ry, rad = work_f[W_RX], work_f[W_RY], work_f[W_RAD]
+    half = 0.5 * prm.l_max
+    inv_x, inv_y = 1.0 / Lx, 1.0 / Ly
+    for i in range(n):
+        r = rad[i]
+        if r > 0.0:
+            dx, dy = ox - rx[i], oy - ry[i]
+            dx -= Lx * np.rint(dx * inv_x)           # the nearest image
+            dy -= Ly * np.rint(dy * inv_y)
+            d2 = dx * dx + dy * dy
+            if d2 < (r + half) * (r + half):
+                rad[i] = np.sqrt(d2) - half
 
 
 @njit(**JIT)
@@ -1522,13 +1565,12 @@ def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
         if (area - prm.area_ref) / Lx > prm.flow:
             meta[M_N] = n
             return FLOWING
-        released = _release(line, n, field, work_f[W_FPIN], meta, loops)
+        released = _release(line, n, prm, field, work_f, meta, loops)
         if released < 0:
             meta[M_N] = n
             return CAPACITY
         if released > 0:
             meta[M_RELEASES] += released
-            work_f[W_RAD, :n] = UNKNOWN   # a freed obstacle may lie in any node's disc
             continue
         # no free node turned past 60° from x: no two parts can be antiparallel; just after a
         # round of reconnections the line has been searched already

@@ -573,12 +573,12 @@ def crossing_setup(x, y, pin, Lx, extra=64):
     return line, loops, field, Work(cap)
 
 
+@pytest.mark.parametrize("n, Lx", [(40, 100.0), (400, 1000.0)])
 @pytest.mark.parametrize("seed", range(12))
-def test_find_crossing_finds_the_smallest_loop_of_brute_force(seed):
-    x, y, Lx = folded_line(seed)
-    n = len(x)
-    line, *_ = crossing_setup(x, y, np.full(n, -1), Lx)
-    p, q, t = K.find_crossing(line, n, params(Lx, lmax=12.0))
+def test_find_crossing_finds_the_smallest_loop_of_brute_force(seed, n, Lx):
+    x, y, Lx = folded_line(seed, n, Lx)
+    line, _, _, w = crossing_setup(x, y, np.full(n, -1), Lx)
+    p, q, t = K.find_crossing(line, n, params(Lx, lmax=12.0), w.i)
     size = naive.smallest_crossing_loop(x, y, Lx, C.MIN_NODES)
     assert (p >= 0) == (size > 0)
     if p >= 0:
@@ -588,8 +588,8 @@ def test_find_crossing_finds_the_smallest_loop_of_brute_force(seed):
 def test_find_crossing_none_on_a_graph_line():
     rng = np.random.default_rng(4)
     x, y = wavy_line(rng, 60, 600.0, 80.0)
-    line, *_ = crossing_setup(x, y, np.full(60, -1), 600.0)
-    assert K.find_crossing(line, 60, params(600.0, lmax=15.0))[0] == -1
+    line, _, _, w = crossing_setup(x, y, np.full(60, -1), 600.0)
+    assert K.find_crossing(line, 60, params(600.0, lmax=15.0), w.i)[0] == -1
 
 
 @pytest.mark.parametrize("strength", [np.inf, 1.0])
@@ -605,12 +605,12 @@ def test_cutting_every_crossing_leaves_a_simple_periodic_line(seed, strength):
     prm = params(Lx, lmax=12.0)
     held0 = int(field[3].sum())
     for _ in range(n):
-        p, q, t = K.find_crossing(line, n, prm)
+        p, q, t = K.find_crossing(line, n, prm, w.i)
         if p < 0:
             break
         pins = np.count_nonzero(line[2][np.arange(p + 1, q + 1) % n] >= 0)
         loops_before, released = meta[C.M_NLOOPS], meta[C.M_RELEASES]
-        m = K.cut_crossing(line, n, p, q, t, meta, loops, field, w.f)
+        m = K.cut_crossing(line, n, p, q, t, prm, meta, loops, field, w.f)
         assert m == n - (q - p) + 1
         # two pins or more: an Orowan loop; one: an impenetrable point keeps its loop, a
         # shearable one is released; none: dropped
@@ -636,14 +636,34 @@ def test_arms_crossed_behind_a_point_release_it():
     pin = np.array([-1, -1, -1, 7, -1, -1, -1])
     line, loops, field, w = crossing_setup(x, y, pin, Lx)
     meta = np.zeros(C.N_META, np.int64)
-    p, q, t = K.find_crossing(line, 7, params(Lx, lmax=30.0))
+    p, q, t = K.find_crossing(line, 7, params(Lx, lmax=30.0), w.i)
     assert (p, q) == (1, 4)
     field[2][7] = 2 * GAMMA * np.cos(np.radians(30))   # shearable (φ_c = 60°): released
-    m = K.cut_crossing(line, 7, p, q, t, meta, loops, field, w.f)
+    m = K.cut_crossing(line, 7, p, q, t, params(Lx, lmax=30.0), meta, loops, field, w.f)
     assert m == 5 and meta[C.M_NLOOPS] == 0 and field[3][7] == 0
     assert np.all(line[2][:m] == -1)
     # the line runs through the crossing point, on the segment 30 -> 52 (x = 30 + 22 t)
     assert line[0][2] == pytest.approx(30.0 + 22.0 * t) and line[1][2] > 0.0
+
+
+def test_a_freed_obstacle_shrinks_the_discs_it_lies_in():
+    # move_and_capture skips a segment whose ends stay in their obstacle-free discs, which hold
+    # no free obstacle within W_RAD + l_max/2 of their centres; a released obstacle must shrink
+    # exactly the discs that now contain it (its nearest periodic image counts), no others
+    Lx, Ly, lmax = 100.0, 80.0, 10.0
+    n = 4
+    w = Work(n)
+    w.rx[:n], w.ry[:n] = [10.0, 40.0, 97.0, 60.0], [10.0, 10.0, 78.0, 50.0]
+    w.rad[:n] = [20.0, 20.0, 20.0, K.UNKNOWN]
+    field = field_tuple([4.0], [6.0], np.zeros(1, np.int64), *cells([4.0], [6.0], Lx, Ly, 25.0),
+                        Lx, Ly)
+    K._obstacle_freed(0, n, params(Lx, Ly, lmax=lmax), field, w.f)
+    half = 0.5 * lmax
+    d_image = np.hypot(4.0 + Lx - 97.0, 6.0 + Ly - 78.0)   # node 2 sees the image across both seams
+    assert w.rad[0] == pytest.approx(np.hypot(6.0, 4.0) - half)
+    assert w.rad[1] == 20.0                       # 36.2 b away: its disc stays
+    assert w.rad[2] == pytest.approx(d_image - half)
+    assert w.rad[3] == K.UNKNOWN
 
 
 def test_move_and_capture_point_implicit_step():
