@@ -1100,31 +1100,33 @@ def find_crossing(line, n, prm, work_i):
         return -1, -1, -1.0
     ncy = _pow2_at_most(max(1.0, min((start_room - 1) / ncx, 2.0 * n / ncx + 1.0)))
     mx, my = ncx - 1, ncy - 1
-    # candidates and their cells: count, then fill (CSR over cells)
+    # candidates (listed in row I_SRC) and their cells: count, then fill (CSR over cells)
+    inv_w, inv_h = 1.0 / width, 1.0 / hc
+    count = 0
     entries = 0
     for k in range(n):
         ax, ay = x[k], y[k]
         bx, by = _segment_end(x, y, n, k, Lx)
-        i0, i1 = int(np.floor(min(ax, bx) / width)), int(np.floor(max(ax, bx) / width))
+        i0, i1 = int(np.floor(min(ax, bx) * inv_w)), int(np.floor(max(ax, bx) * inv_w))
         i1 = min(i1, i0 + ncx - 1)
         hit = False
         for i in range(i0, i1 + 1):
             hit = hit or marked[i & mx] != 0
-        cand[k] = hit
         if hit:
-            j0, j1 = int(np.floor(min(ay, by) / hc)), int(np.floor(max(ay, by) / hc))
+            cand[count] = k
+            count += 1
+            j0, j1 = int(np.floor(min(ay, by) * inv_h)), int(np.floor(max(ay, by) * inv_h))
             entries += (i1 - i0 + 1) * (min(j1, j0 + ncy - 1) - j0 + 1)
     start = work_i[I_HEAD]
     seg = work_i[I_NEXT] if entries <= work_i.shape[1] else np.empty(entries, np.int64)
     start[:ncx * ncy + 1] = 0
     for phase in range(2):
-        for k in range(n):
-            if not cand[k]:
-                continue
+        for e in range(count):
+            k = cand[e]
             ax, ay = x[k], y[k]
             bx, by = _segment_end(x, y, n, k, Lx)
-            i0, i1 = int(np.floor(min(ax, bx) / width)), int(np.floor(max(ax, bx) / width))
-            j0, j1 = int(np.floor(min(ay, by) / hc)), int(np.floor(max(ay, by) / hc))
+            i0, i1 = int(np.floor(min(ax, bx) * inv_w)), int(np.floor(max(ax, bx) * inv_w))
+            j0, j1 = int(np.floor(min(ay, by) * inv_h)), int(np.floor(max(ay, by) * inv_h))
             for i in range(i0, min(i1, i0 + ncx - 1) + 1):
                 for j in range(j0, min(j1, j0 + ncy - 1) + 1):
                     c = (i & mx) + ncx * (j & my)
