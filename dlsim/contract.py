@@ -99,7 +99,8 @@ M_CAPTURES = 5        # obstacles captured (cumulative)
 M_RECONNECT = 6       # reconnections (cumulative)
 M_REMESH = 7          # remeshing passes (cumulative)
 M_CONTACT_CHECKS = 8  # contact searches run (cumulative)
-N_META = 9
+M_CREEP = 9           # of the time steps, backward-Euler steps of a creeping line (cumulative)
+N_META = 10
 
 # --- rows of the work arrays ---------------------------------------------------------------------
 # float64 rows of ``work_f``

@@ -19,8 +19,8 @@ import numpy as np
 from numba import njit
 
 from dlsim.contract import (CAPACITY, EQUILIBRIUM, FLOWING, HEADROOM, I_BIGN, I_BPIN, I_CAPTURE,
-                            I_HEAD, I_KEEP, I_NEXT, I_SRC, M_CAPTURES, M_CONTACT_CHECKS, M_N,
-                            M_NLOOPNODES, M_NLOOPS, M_RECONNECT, M_RELEASES, M_REMESH, M_STEPS,
+                            I_HEAD, I_KEEP, I_NEXT, I_SRC, M_CAPTURES, M_CONTACT_CHECKS, M_CREEP,
+                            M_N, M_NLOOPNODES, M_NLOOPS, M_RECONNECT, M_RELEASES, M_REMESH, M_STEPS,
                             MAX_CAPTURES, MAX_STEPS, MIN_NODES, MODEL_CONSTANT, MODEL_DWK,
                             MODEL_SELF, PARALLEL_MIN_PAIRS, W_BUF, W_BX, W_BY, W_CAPTURE, W_FAR,
                             W_FEX, W_FEY, W_FPIN, W_NEAR, W_NTX, W_NTY, W_RAD, W_RX, W_RY,
@@ -84,6 +84,15 @@ TURNED_TX = 0.5
 #: pins or reconnects does not move the line and is followed by another (a bound, never reached
 #: in practice, that keeps a line that would release and reconnect for ever from hanging).
 PASSES_PER_STEP = 4
+#: A line whose fastest node moves less than this fraction of l_min in an explicit step is
+#: creeping towards equilibrium: no avalanche is under way, only the slow diffusive settling of
+#: long arcs, which the explicit step resolves at about (arc nodes)² steps per decade of the
+#: residual.  It then takes backward-Euler steps of CREEP_STEP explicit steps, solved along each
+#: chain of free nodes between pins (:func:`creep_displacements`).
+CREEP_FRACTION = 0.02
+#: Time step of the creeping line's backward-Euler step, in explicit steps: the slowest mode of a
+#: chain of m nodes decays by 1/(1 + CREEP_STEP π²/m²) per step (a factor 5 at m = 50).
+CREEP_STEP = 1000.0
 
 
 @njit(**JIT)
@@ -1495,11 +1504,26 @@ def _forces(line, n, prm, meta, loops, field, work_f, work_i, fresh):
 
 
 @njit(**JIT)
-def _advance(line, n, prm, meta, field, work_f, work_i):
-    """Move the free nodes by one point-implicit step, pin what they swept and remesh where a
-    segment left its bounds; return the node count."""
-    dt = time_step(prm)
-    ncap, bad = move_and_capture(line, n, dt, prm, field, work_f, work_i)
+def _advance(line, n, prm, meta, field, work_f, work_i, creep):
+    """Move the free nodes by one step, pin what they swept and remesh where a segment left its
+    bounds; return (node count, whether the step was taken).
+
+    The step is point-implicit (:func:`move_and_capture`), or with ``creep`` the backward-Euler
+    step of a creeping line (:func:`creep_displacements`).  A creeping step that would pin more
+    than one obstacle is undone and not taken (False): in one long step the order in which a
+    chain meets obstacles would be lost, so the caller takes point-implicit steps instead.
+    """
+    if creep and creep_displacements(line, n, prm, work_f):
+        x, y = line[0], line[1]
+        bx, by = work_f[W_BX], work_f[W_BY]
+        bx[:n], by[:n] = x[:n], y[:n]
+        ncap, bad = move_and_capture(line, n, 1.0, prm, field, work_f, work_i)
+        if ncap > 1:
+            x[:n], y[:n] = bx[:n], by[:n]   # the discs measured on the way stay valid
+            return n, False
+        meta[M_CREEP] += 1
+    else:
+        ncap, bad = move_and_capture(line, n, time_step(prm), prm, field, work_f, work_i)
     if ncap > 0:
         meta[M_CAPTURES] += ncap
         n = insert_pins(line, n, ncap, field[3], work_f, work_i)
@@ -1508,7 +1532,97 @@ def _advance(line, n, prm, meta, field, work_f, work_i):
     if bad >= 0:   # remesh now, so that the next step's node_pass is its only one
         meta[M_REMESH] += 1
         n = _remesh_line(line, n, prm, bad, field, work_f, work_i)
-    return n
+    return n, True
+
+
+@njit(**JIT)
+def creep_displacements(line, n, prm, work_f):
+    """Backward-Euler displacements of the free nodes of a creeping line; False if it has no pin.
+
+    Along each chain of free nodes between two pinned ones, the normal displacements u solve the
+    tridiagonal system of one backward-Euler step of length dt = CREEP_STEP × the explicit step,
+    linearised about the current line:
+
+        (1/(M dt) + 2Γ_s/(a_i b_i)) u_i − Γ_s c⁻_i/(a_i l_i) u_{i−1} − Γ_s c⁺_i/(b_i l_i) u_{i+1} = τ_eff,i
+
+    (a_i, b_i the arms, l_i their mean, c±_i the cosines between neighbouring chord tangents,
+    Γ_s = prm.stiffness; the diagonal is the point-implicit stiffness of :func:`node_pass`).
+    Pins, and nodes friction holds (τ_eff = 0), do not move.  The matrix is an M-matrix (weakly
+    diagonally dominant, strictly once 1/(M dt) is added), so a chain pushed one way moves that
+    way only, by no more than its linearised equilibrium would: the line creeps into the same
+    equilibrium without overshooting it, so it sweeps no obstacle beyond it.  Each chain's
+    displacements are scaled down together so that none exceeds MAX_MOVE_FRACTION l_min.
+
+    Reads rows W_VX, W_VY (the explicit velocities, M τ_eff n), W_NTX, W_NTY from
+    :func:`node_pass`; writes the displacements to W_VX, W_VY and zero stiffness to the free
+    nodes' W_FPIN, so that :func:`move_and_capture` with dt = 1 moves the nodes by them and
+    checks what they sweep.  Scratch rows W_NEAR, W_BUF.
+    """
+    x, y, pin = line[0], line[1], line[2]
+    vx, vy, fpin = work_f[W_VX], work_f[W_VY], work_f[W_FPIN]
+    ntx, nty = work_f[W_NTX], work_f[W_NTY]
+    cp, dp = work_f[W_NEAR], work_f[W_BUF]
+    mob, gs, Lx = prm.mobility, prm.stiffness, prm.Lx
+    inv_mdt = 1.0 / (mob * CREEP_STEP * time_step(prm))
+    cap = MAX_MOVE_FRACTION * prm.l_min
+    first = -1
+    for i in range(n):
+        if pin[i] >= 0:
+            first = i
+            break
+    if first < 0:
+        return False
+    start = first
+    while True:
+        # the chain of free nodes after pin `start`, up to the next pin `end` (indices mod n)
+        end = start + 1
+        while pin[end % n] < 0:
+            end += 1
+        if end > start + 1:
+            # forward sweep of the Thomas algorithm; u = 0 at the pins and the held nodes
+            prev_free = False
+            for q in range(start + 1, end):
+                i = q % n
+                xm, ym, xp, yp = _neighbours(x, y, n, i, Lx)
+                a = np.sqrt((x[i] - xm) ** 2 + (y[i] - ym) ** 2)
+                b = np.sqrt((xp - x[i]) ** 2 + (yp - y[i]) ** 2)
+                rhs = (vy[i] * ntx[i] - vx[i] * nty[i]) / mob      # τ_eff along the normal
+                if rhs == 0.0:          # held by friction (or exactly at rest): fixed this step
+                    cp[i], dp[i] = 0.0, 0.0
+                    prev_free = False
+                    continue
+                l = 0.5 * (a + b)
+                diag = inv_mdt + 2.0 * gs / (a * b)
+                lower, upper = 0.0, 0.0
+                if prev_free:
+                    im = (q - 1) % n
+                    lower = gs * (ntx[i] * ntx[im] + nty[i] * nty[im]) / (a * l)
+                ip = (q + 1) % n
+                if q + 1 < end:
+                    upper = gs * (ntx[i] * ntx[ip] + nty[i] * nty[ip]) / (b * l)
+                den = diag - lower * cp[(q - 1) % n] if prev_free else diag
+                cp[i] = upper / den
+                dp[i] = (rhs + (lower * dp[(q - 1) % n] if prev_free else 0.0)) / den
+                prev_free = True
+            # back substitution, then the chain's largest move
+            u_next = 0.0
+            big = 0.0
+            for q in range(end - 1, start, -1):
+                i = q % n
+                u = dp[i] + cp[i] * u_next if dp[i] != 0.0 or cp[i] != 0.0 else 0.0
+                dp[i] = u
+                u_next = u
+                big = max(big, abs(u))
+            scale = 1.0 if big <= cap else cap / big
+            for q in range(start + 1, end):
+                i = q % n
+                u = scale * dp[i]
+                vx[i], vy[i] = -u * nty[i], u * ntx[i]
+                fpin[i] = 0.0
+        start = end
+        if start >= first + n:
+            break
+    return True
 
 
 @njit(**JIT)
@@ -1552,6 +1666,8 @@ def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
     reconnections = meta[M_RECONNECT]
     refresh = max(prm.refresh, 1)
     stale = True            # the non-local self-stress must be evaluated (MODEL_SELF)
+    dt = time_step(prm)
+    creep_ok = True         # False right after a creeping step was undone
     since = 0               # moves since it was
     for _ in range(PASSES_PER_STEP * max_steps):
         if moved >= max_steps:
@@ -1561,7 +1677,7 @@ def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
             return CAPACITY
         fresh = stale or since >= refresh
         n, passed = _forces(line, n, prm, meta, loops, field, work_f, work_i, fresh)
-        area, _, max_te, _, _, turned = passed
+        area, _, max_te, _, vmax, turned = passed
         if fresh:
             stale, since = False, 0
         if (area - prm.area_ref) / Lx > prm.flow:
@@ -1589,7 +1705,13 @@ def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
         if max_te < prm.tolerance:
             meta[M_N] = n
             return EQUILIBRIUM
-        n = _advance(line, n, prm, meta, field, work_f, work_i)
+        creep = (creep_ok and prm.model != MODEL_SELF
+                 and vmax * dt < CREEP_FRACTION * prm.l_min)
+        n, taken = _advance(line, n, prm, meta, field, work_f, work_i, creep)
+        if not taken:       # a creeping step would have pinned several obstacles at once
+            creep_ok = False
+            continue
+        creep_ok = True
         moved += 1
         since += 1
         meta[M_STEPS] += 1

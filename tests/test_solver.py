@@ -14,6 +14,7 @@ import numpy as np
 import pytest
 
 from dlsim import analytic
+from dlsim import contract as C
 from dlsim.api import run_case
 from dlsim.fields import ObstacleField, square_field
 from dlsim.line import LineState
@@ -83,6 +84,28 @@ def test_bow_out_radius_between_two_pins_is_gamma_over_tau():
     D, E, F = np.linalg.lstsq(A, -(x[free] ** 2 + y[free] ** 2), rcond=None)[0]
     radius = np.sqrt(D * D / 4 + E * E / 4 - F)
     assert radius == pytest.approx(GAMMA / tau, rel=0.01)
+
+
+def test_creeping_bow_out_settles_onto_the_arc_without_overshoot():
+    # Once no node moves faster than CREEP_FRACTION l_min per step the line takes backward-Euler
+    # steps along its chains (kernels.creep_displacements): an M-matrix step, so the bowing arc
+    # must rise monotonically onto R = Γ/(τ b) (line-tension relation, common practice) and
+    # never past it, or it could sweep obstacles the settling line never reaches.
+    field = square_field(L, 1, 1, np.inf)
+    tau = 0.5 * analytic.orowan(GAMMA, L)
+    relaxer = Relaxer(field, LineModel(GAMMA, L / 40))
+    state = LineState.straight(L, 0.0, L / 40)
+    tops = []
+    name, steps = relaxer.relax(state, tau, state.area(), protocol(2 * GAMMA / L, tol=1e-6),
+                                chunk=1, on_chunk=lambda s, t, k: tops.append(s.y[: s.n].max()))
+    assert name == "pinned" and state.meta[C.M_CREEP] > 0
+    x, y, pin = state.nodes()
+    R = GAMMA / tau
+    sagitta = R - np.sqrt(R * R - L * L / 4)          # chord L, the pin's periodic image
+    bulge = np.array(tops) - y[pin >= 0][0]
+    assert np.all(np.diff(tops) >= -1e-9 * sagitta)
+    assert bulge.max() <= sagitta * (1 + 1e-6)
+    assert bulge[-1] == pytest.approx(sagitta, rel=2e-3)
 
 
 def _empty_field(side):
