@@ -340,6 +340,22 @@ def test_find_captures_takes_the_image_above_an_obstacle_held_below(held_image, 
                                Lx, Ly, cell=25.0)
     assert found == ({0: 1} if captured else {})
 
+
+def test_occupancy_of_a_state_counts_each_image_apart():
+    # one obstacle held by a loop at its own height and by the line one box height up: two
+    # holders, each at its image (dlsim.contract.occupancy, read by the kernels' _held)
+    Lx = Ly = 100.0
+    field = random_field(Lx, Ly, 4 / (Lx * Ly), 1e9, np.random.default_rng(3))
+    k = 2
+    state = LineState.straight(Lx, field.y[k] + Ly, 5.0)
+    state.pin[0], state.x[0] = k, field.x[k]
+    state.loop_x[:3], state.loop_y[:3], state.loop_pin[:3] = field.x[k], field.y[k], [k, -1, -1]
+    state.loop_off[1] = 3
+    state.meta[C.M_NLOOPS], state.meta[C.M_NLOOPNODES] = 1, 3
+    opin = Relaxer(field, LineModel(0.5, 5.0)).occupancy(state)
+    unit = 1 << C.OCC_BITS
+    assert opin[k] == 1 + unit and np.count_nonzero(opin) == 1
+
 # --- remeshing -------------------------------------------------------------------------------
 
 def cells(ox, oy, Lx, Ly, cell):
