@@ -17,8 +17,9 @@ The kernels take grouped arguments, all plain arrays (numba tuples unpack at no 
     ``loop_off[k]:loop_off[k+1]``).
 ``field``
     ``(ox, oy, ofc, opin, cstart, citems, ncx, ncy, Lx, Ly)``: obstacle positions (b), critical
-    forces (G b²), how many line or loop nodes hold each obstacle (updated by the kernels), the
-    periodic CSR cell list over ``ncx × ncy`` cells, and the box (b).
+    forces (G b²), how many line or loop nodes hold each obstacle, per periodic image in y
+    (:func:`occupancy`; updated by the kernels), the periodic CSR cell list over ``ncx × ncy``
+    cells, and the box (b).
 ``work_f``, ``work_i``
     ``(N_WORK_F, cap)`` float64 and ``(N_WORK_I, cap)`` int64 scratch, one row per ``W_*`` and
     ``I_*`` name below; the caller zeroes them once per relaxation.
@@ -138,6 +139,40 @@ FLOWING = 1
 MAX_STEPS = 2
 CAPACITY = 3
 STATUS_NAMES = ("pinned", "flowing", "unresolved", "capacity")
+
+# --- occupancy of the obstacles (``field[3]``) ----------------------------------------------------
+#: The images of an obstacle one box height apart are different obstacles to the line (the field
+#: repeats in y): an Orowan loop left round an obstacle must not stop the line from pinning on
+#: that obstacle's image one box height up.  ``opin[k]`` therefore packs one count of holders
+#: (line and loop nodes) per y-image, OCC_BITS bits each, the image index taken modulo
+#: OCC_SLOTS: images OCC_SLOTS box heights apart share a count (the line would have to glide
+#: that far past a loop for it to matter).  By construction an image has at most one holder
+#: (a capture skips held images; a loop takes its pins over from the line).
+OCC_BITS = 4
+OCC_SLOTS = 15
+#: Mask of one image's count (shift it by OCC_BITS × slot).
+OCC_MASK = (1 << OCC_BITS) - 1
+#: Every image held: the flag of an obstacle that may never be captured (a relaxing loop's own).
+OCC_ALL = sum(1 << (OCC_BITS * s) for s in range(OCC_SLOTS))
+
+
+def occupancy_unit(k: np.ndarray, y: np.ndarray, oy: np.ndarray, Ly: float) -> np.ndarray:
+    """The count unit in ``opin`` of obstacle ``k``'s image at height ``y`` (b): one holder there.
+
+    The image index is round((y − oy[k])/Ly) modulo OCC_SLOTS, as in the kernels' ``_occ_unit``.
+    """
+    iy = np.floor((np.asarray(y, float) - oy[k]) / Ly + 0.5).astype(np.int64) % OCC_SLOTS
+    return np.left_shift(np.int64(1), OCC_BITS * iy)
+
+
+def occupancy(k: np.ndarray, y: np.ndarray, oy: np.ndarray, Ly: float, m: int) -> np.ndarray:
+    """(m,) int64 ``opin`` of the holders ``k`` (obstacle indices, -1 for none) at heights ``y``."""
+    sel = np.asarray(k) >= 0
+    k, y = np.asarray(k)[sel], np.asarray(y)[sel]
+    opin = np.zeros(m, np.int64)
+    np.add.at(opin, k, occupancy_unit(k, y, oy, Ly))
+    return opin
+
 
 # --- limits the caller allocates for -------------------------------------------------------------
 #: Captures recorded in one step at the most (a step moves each node by < l_min/4, so even dense

@@ -22,9 +22,9 @@ from dlsim.contract import (CAPACITY, EQUILIBRIUM, FLOWING, HEADROOM, I_BIGN, I_
                             I_HEAD, I_KEEP, I_NEXT, I_SRC, M_CAPTURES, M_CONTACT_CHECKS, M_CREEP,
                             M_N, M_NLOOPNODES, M_NLOOPS, M_RECONNECT, M_RELEASES, M_REMESH, M_STEPS,
                             MAX_CAPTURES, MAX_STEPS, MIN_NODES, MODEL_CONSTANT, MODEL_DWK,
-                            MODEL_SELF, PARALLEL_MIN_PAIRS, W_BUF, W_BX, W_BY, W_CAPTURE, W_FAR,
-                            W_FEX, W_FEY, W_FPIN, W_NEAR, W_NTX, W_NTY, W_RAD, W_RX, W_RY,
-                            W_TAU_INT, W_VX, W_VY)
+                            MODEL_SELF, OCC_BITS, OCC_MASK, OCC_SLOTS, PARALLEL_MIN_PAIRS, W_BUF,
+                            W_BX, W_BY, W_CAPTURE, W_FAR, W_FEX, W_FEY, W_FPIN, W_NEAR, W_NTX,
+                            W_NTY, W_RAD, W_RX, W_RY, W_TAU_INT, W_VX, W_VY)
 from dlsim.elastic import (dwk_forces, local_stress, loop_stress, loop_stress_serial, self_stress,
                            self_stress_serial)
 from dlsim.geometry import neighbours as _neighbours
@@ -359,10 +359,25 @@ def _walk_cell(walk, t, field):
     return kx + ncx * ky, shx, shy
 
 
+@njit(inline="always", **JIT)
+def _occ_unit(field, k, py):
+    """Count unit in ``opin`` of obstacle k's image at height py: the images one box height
+    apart are different obstacles (dlsim.contract, OCC_BITS)."""
+    iy = int(np.floor((py - field[1][k]) / field[9] + 0.5)) % OCC_SLOTS
+    return np.int64(1) << (OCC_BITS * iy)
+
+
+@njit(inline="always", **JIT)
+def _held(field, k, py):
+    """Whether a line or loop node holds obstacle k's image at height py."""
+    held = field[3][k]
+    return held != 0 and (held & (OCC_MASK * _occ_unit(field, k, py))) != 0
+
+
 @njit(**JIT)
 def free_obstacle_in_triangle(ax, ay, bx, by, cx, cy, field):
-    """Whether some free obstacle (``opin == 0``; any periodic image) lies in the triangle abc."""
-    ox, oy, _, opin, cstart, citems = field[0], field[1], field[2], field[3], field[4], field[5]
+    """Whether some free obstacle image (not held, :func:`_held`) lies in the triangle abc."""
+    ox, oy, cstart, citems = field[0], field[1], field[4], field[5]
     x0, x1 = min(ax, min(bx, cx)), max(ax, max(bx, cx))
     y0, y1 = min(ay, min(by, cy)), max(ay, max(by, cy))
     walk = _cell_walk(x0, x1, y0, y1, field)
@@ -371,7 +386,7 @@ def free_obstacle_in_triangle(ax, ay, bx, by, cx, cy, field):
         for q in range(cstart[cell], cstart[cell + 1]):
             k = citems[q]
             px, py = ox[k] + shx, oy[k] + shy
-            if (x0 <= px <= x1 and y0 <= py <= y1 and opin[k] <= 0
+            if (x0 <= px <= x1 and y0 <= py <= y1 and not _held(field, k, py)
                     and _in_triangle(px, py, ax, ay, bx, by, cx, cy)):
                 return True
     return False
@@ -387,7 +402,7 @@ def _capture_in_quad(i, quad, skip_a, skip_b, field, ncap, captures):
     an end node) and obstacles already recorded are skipped.  ``captures`` = (segment, position
     along the new segment, obstacle, x, y) lists.  Returns the new capture count.
     """
-    ox, oy, _, opin, cstart, citems = field[0], field[1], field[2], field[3], field[4], field[5]
+    ox, oy, cstart, citems = field[0], field[1], field[4], field[5]
     cap_seg, cap_s, cap_obs, cap_x, cap_y = captures
     x0, y0, x1, y1, x2, y2, x3, y3 = quad
     xmin, xmax = min(min(x0, x1), min(x2, x3)), max(max(x0, x1), max(x2, x3))
@@ -400,7 +415,7 @@ def _capture_in_quad(i, quad, skip_a, skip_b, field, ncap, captures):
             px, py = ox[k] + shx, oy[k] + shy
             if px < xmin or px > xmax or py < ymin or py > ymax:
                 continue
-            if opin[k] > 0 or k == skip_a or k == skip_b:
+            if _held(field, k, py) or k == skip_a or k == skip_b:
                 continue
             if not (_in_triangle(px, py, x0, y0, x1, y1, x2, y2)
                     or _in_triangle(px, py, x0, y0, x2, y2, x3, y3)):
@@ -426,7 +441,7 @@ def _clearance(px, py, reach, field):
     ``reach`` must not exceed one cell of the list, so the cells scanned hold every obstacle
     closer than it.
     """
-    ox, oy, _, opin, cstart, citems = field[0], field[1], field[2], field[3], field[4], field[5]
+    ox, oy, cstart, citems = field[0], field[1], field[4], field[5]
     best = reach * reach
     walk = _cell_walk(px - reach, px + reach, py - reach, py + reach, field)
     for t in range(walk[6]):
@@ -435,7 +450,7 @@ def _clearance(px, py, reach, field):
             k = citems[q]
             dx, dy = ox[k] + shx - px, oy[k] + shy - py
             d2 = dx * dx + dy * dy
-            if d2 < best and opin[k] <= 0:
+            if d2 < best and not _held(field, k, oy[k] + shy):
                 best = d2
     return np.sqrt(best)
 
@@ -571,15 +586,15 @@ def _sort_captures(ncap, captures):
 
 
 @njit(**JIT)
-def insert_pins(line, n, ncap, opin, work_f, work_i):
+def insert_pins(line, n, ncap, field, work_f, work_i):
     """Insert a pinned node at every captured obstacle, in place; return the new node count.
 
     Each capture (:func:`_captures`) becomes a node after the start of its segment, in order along
     the segment; the arrays must hold ``n + ncap`` nodes.  The line is shifted from its end
     backwards, so no buffer is needed; the clearances (rows W_RX, W_RY, W_RAD,
     :func:`move_and_capture`) and the non-local self-stress (W_FAR, :func:`model_forces`) move
-    with their nodes, a new pin taking the value of its segment's start.  ``opin`` counts the new
-    holders.
+    with their nodes, a new pin taking the value of its segment's start.  The occupancy
+    ``field[3]`` counts the new holders, each at its image.
     """
     x, y, pin, ign = line
     rx, ry, rad, far = work_f[W_RX], work_f[W_RY], work_f[W_RAD], work_f[W_FAR]
@@ -594,7 +609,7 @@ def insert_pins(line, n, ncap, opin, work_f, work_i):
         while c >= 0 and cap_seg[c] == i:
             x[dst], y[dst], pin[dst], ign[dst] = cap_x[c], cap_y[c], cap_obs[c], -1
             rad[dst], far[dst] = UNKNOWN, far[i]
-            opin[cap_obs[c]] += 1
+            field[3][cap_obs[c]] += _occ_unit(field, cap_obs[c], cap_y[c])
             dst -= 1
             c -= 1
         x[dst], y[dst], pin[dst], ign[dst] = x[i], y[i], pin[i], ign[i]
@@ -931,7 +946,7 @@ def _cut_crosses_obstacle(x, y, n, i, j, shift, field):
 def _obstacle_in_loop(x, y, n, lo, hi, shift, field):
     """Whether a free obstacle lies inside the closed loop of nodes lo..hi (indices mod n, the
     nodes past n shifted by ``shift``): crossing number of a ray in +x over the loop's edges."""
-    ox, oy, _, opin, cstart, citems = field[0], field[1], field[2], field[3], field[4], field[5]
+    ox, oy, cstart, citems = field[0], field[1], field[4], field[5]
     x0, x1, y0, y1 = np.inf, -np.inf, np.inf, -np.inf
     for q in range(lo, hi + 1):
         qx = x[q % n] + (shift if q >= n else 0.0)
@@ -942,7 +957,7 @@ def _obstacle_in_loop(x, y, n, lo, hi, shift, field):
         for c in range(cstart[cell], cstart[cell + 1]):
             k = citems[c]
             px, py = ox[k] + shx, oy[k] + shy
-            if opin[k] > 0 or px < x0 or px > x1 or py < y0 or py > y1:
+            if px < x0 or px > x1 or py < y0 or py > y1 or _held(field, k, py):
                 continue
             inside = False
             for q in range(lo, hi + 1):
@@ -1216,9 +1231,9 @@ def cut_crossing(line, n, p, q, t, prm, meta, loops, field, work_f):
         meta[M_NLOOPNODES] = used + 1
         loff[meta[M_NLOOPS]] = used + 1
     elif pins == 1:
-        opin[pin[held]] -= 1
+        opin[pin[held]] -= _occ_unit(field, pin[held], y[held])
         meta[M_RELEASES] += 1
-        if opin[pin[held]] == 0:
+        if not _held(field, pin[held], y[held]):
             _obstacle_freed(pin[held], n, prm, field, work_f)
     return _rejoin(line, n, p, q, cx, cy, work_f)
 
@@ -1340,8 +1355,8 @@ def _release(line, n, prm, field, work_f, meta, loops):
                 if not _store_loop(x, y, pin, n, i, i, 0.0, meta, loops):
                     return -1
             else:
-                opin[k] -= 1
-                if opin[k] == 0:
+                opin[k] -= _occ_unit(field, k, y[i])
+                if not _held(field, k, y[i]):
                     _obstacle_freed(k, n, prm, field, work_f)
             pin[i] = -1
             ign[i] = k
@@ -1351,9 +1366,10 @@ def _release(line, n, prm, field, work_f, meta, loops):
 
 @njit(**JIT)
 def _obstacle_freed(k, n, prm, field, work_f):
-    """Obstacle k has just become free: shrink every node's obstacle-free disc that it now lies
-    in (:func:`move_and_capture`: no free obstacle within W_RAD + l_max/2 of the disc's centre),
-    so that those nodes' segments are tested exactly again; the other discs stay valid."""
+    """An image of obstacle k has just become free: shrink every node's obstacle-free disc that
+    k's nearest image now lies in (:func:`move_and_capture`: no free obstacle within
+    W_RAD + l_max/2 of the disc's centre), so that those nodes' segments are tested exactly
+    again; the other discs stay valid (the freed image is no nearer than the nearest one)."""
     ox, oy, Lx, Ly = field[0][k], field[1][k], field[8], field[9]
     rx, ry, rad = work_f[W_RX], work_f[W_RY], work_f[W_RAD]
     half = 0.5 * prm.l_max
@@ -1526,7 +1542,7 @@ def _advance(line, n, prm, meta, field, work_f, work_i, creep):
         ncap, bad = move_and_capture(line, n, time_step(prm), prm, field, work_f, work_i)
     if ncap > 0:
         meta[M_CAPTURES] += ncap
-        n = insert_pins(line, n, ncap, field[3], work_f, work_i)
+        n = insert_pins(line, n, ncap, field, work_f, work_i)
         first = work_i[I_CAPTURE, 0]          # the first capture's segment, once sorted
         bad = first if bad < 0 else min(bad, first)   # pins split segments
     if bad >= 0:   # remesh now, so that the next step's node_pass is its only one

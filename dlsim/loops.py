@@ -40,7 +40,7 @@ from dataclasses import dataclass
 import numpy as np
 from numba import njit
 
-from dlsim.contract import M_NLOOPNODES, M_NLOOPS
+from dlsim.contract import M_NLOOPNODES, M_NLOOPS, OCC_ALL
 from dlsim.jit import JIT
 from dlsim.kernels import _capture_in_quad, _sort_captures
 from dlsim.solver import field_tuple  # noqa: F401  (the kernels' field group; re-exported)
@@ -121,7 +121,7 @@ def _loop_velocities(x, y, pin, n, prm, ofc, released_flag, work):
             t_pk = max(abs(tau) - tau_f, 0.0) * (1.0 if tau >= 0.0 else -1.0)
             px, py = fx - 0.5 * t_pk * cy, fy + 0.5 * t_pk * cx
             if np.sqrt(px * px + py * py) > ofc[pin[i]]:
-                released_flag[pin[i]] = 1
+                released_flag[pin[i]] = OCC_ALL
                 pin[i] = -1
                 released += 1
             continue
@@ -287,7 +287,8 @@ def relax_loop(loop, n, field, prm):
         Nodes of the loop (>= MIN_LOOP_NODES).
     field : obstacle field tuple (dlsim.contract)
         Its occupancy row ``field[3]`` is this loop's own: zero where an obstacle may hold the
-        loop; set here to 1 where the loop holds or has released one (never captured again);
+        loop; set here to OCC_ALL (every image held, dlsim.contract) where the loop holds or has
+        released one (never captured again);
         the caller zeroes it before the next loop.
     prm : LoopParameters
 
@@ -324,7 +325,7 @@ def relax_loop(loop, n, field, prm):
     flags = field[3]
     for i in range(n):        # what the loop holds is never captured a second time
         if pin[i] >= 0:
-            flags[pin[i]] = 1
+            flags[pin[i]] = OCC_ALL
     releases = 0
     for step in range(prm.max_steps):
         max_te, released, perimeter = _loop_velocities(x, y, pin, n, prm, field[2], field[3],
@@ -341,7 +342,7 @@ def relax_loop(loop, n, field, prm):
             return LOOP_FULL, n, step + 1, releases
         n = _insert_captures(x, y, pin, n, ncap, caps)
         for c in range(ncap):
-            flags[caps[2][c]] = 1
+            flags[caps[2][c]] = OCC_ALL
         n_new = _remesh_loop(x, y, pin, n, prm, buf)
         if n_new < 0:
             return LOOP_FULL, n, step + 1, releases

@@ -225,12 +225,12 @@ class Relaxer:
             stiffness=e.stiffness(m.tension, h)))
 
     def occupancy(self, state: LineState) -> np.ndarray:
-        """How many line and loop nodes hold each obstacle (derived from the state)."""
-        m = self.field.n
-        pins = state.pin[: state.n]
-        lpins = state.loop_pin[: state.meta[C.M_NLOOPNODES]]
-        held = np.concatenate([pins[pins >= 0], lpins[lpins >= 0]])
-        return np.bincount(held, minlength=m).astype(np.int64)
+        """How many line and loop nodes hold each obstacle, per y-image (derived from the state;
+        :func:`dlsim.contract.occupancy`)."""
+        used = state.meta[C.M_NLOOPNODES]
+        held = np.concatenate([state.pin[: state.n], state.loop_pin[:used]])
+        heights = np.concatenate([state.y[: state.n], state.loop_y[:used]])
+        return C.occupancy(held, heights, self._arrays[1], self.field.Ly, self.field.n)
 
     def relax(self, state: LineState, tau: float, area_ref: float, protocol: Protocol,
               chunk: int = DEFAULT_CHUNK,

@@ -10,6 +10,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from dlsim import contract as C
+
 
 def closed(x, y, Lx):
     """Node arrays extended by node n = node 0 + (Lx, 0)."""
@@ -136,7 +138,8 @@ def find_captures(x, y, pin, ign, v, dt, ox, oy, opin, Lx, Ly):
 
     Every obstacle is tried at its nine periodic images around the segment's first node; the swept
     quadrilateral old(i), old(i+1), new(i+1), new(i) is the union of the triangles (0, 1, 2) and
-    (0, 2, 3).  Held obstacles and the obstacle an end node has just left are skipped.
+    (0, 2, 3).  Held obstacle images (``opin`` packs a count per y-image, dlsim.contract) and the
+    obstacle an end node has just left are skipped.
     """
     n = len(x)
     xc, yc = closed(x, y, Lx)
@@ -152,7 +155,8 @@ def find_captures(x, y, pin, ign, v, dt, ox, oy, opin, Lx, Ly):
             for b in (-1, 0, 1):
                 p = np.stack([ox + base[0] + a * Lx, oy + base[1] + b * Ly], axis=1)
                 hit = in_triangle(p, p0, p1, p2) | in_triangle(p, p0, p2, p3)
-                hit &= (opin <= 0) & (np.arange(len(ox)) != ign[i])
+                unit = C.occupancy_unit(np.arange(len(ox)), p[:, 1], oy, Ly)
+                hit &= ((opin & (C.OCC_MASK * unit)) == 0) & (np.arange(len(ox)) != ign[i])
                 hit &= np.arange(len(ox)) != ign[(i + 1) % n]
                 for k in np.flatnonzero(hit):
                     found.setdefault(int(k), i)

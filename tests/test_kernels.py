@@ -255,14 +255,17 @@ def test_insert_pins_equals_twin(seed):
     w.rx[:], w.ry[:], w.rad[:] = np.arange(w.f.shape[1], dtype=float), 0.0, np.arange(
         w.f.shape[1], dtype=float)
     w.far[:] = np.arange(w.f.shape[1], dtype=float) + 0.5
-    n_new = K.insert_pins((xs, ys, ps, gs), n, ncap, opin, w.f, w.i)
+    field = field_tuple(ox, oy, opin, *cells(ox, oy, Lx, Ly, 50.0), Lx, Ly)
+    n_new = K.insert_pins((xs, ys, ps, gs), n, ncap, field, w.f, w.i)
     rx, rad, far = w.rx[:cap], w.rad[:cap], w.far[:cap]
     assert n_new == n + ncap
     np.testing.assert_allclose(xs, ref[0], rtol=1e-15)
     np.testing.assert_allclose(ys, ref[1], rtol=1e-15)
     np.testing.assert_array_equal(ps, ref[2])
     np.testing.assert_array_equal(gs, ref[3])
-    assert opin.sum() == ncap
+    # each new holder is counted at its obstacle's image (dlsim.contract.occupancy)
+    obs, heights = np.array([c[2] for c in caps]), np.array([c[4] for c in caps])
+    np.testing.assert_array_equal(opin, C.occupancy(obs, heights, oy, Ly, m))
     # clearances travel with their nodes; the new pinned nodes' are unknown
     moved = rx[ps < 0]
     np.testing.assert_array_equal(moved, np.arange(n, dtype=float))
@@ -300,7 +303,8 @@ def test_captures_with_kept_clearances_equal_brute_force_every_step(seed):
         ncap, _ = K.move_and_capture((x, y, pin, ign), n, dt, prm, field, w.f, w.i)
         found = {int(w.cap_obs[c]): int(w.cap_seg[c]) for c in range(ncap)}
         assert found == ref, step
-        opin[list(found)] = 1        # held from now on (the line is not rebuilt here)
+        held = np.array([w.cap_obs[c] for c in range(ncap)], np.int64)   # held from now on,
+        np.add.at(opin, held, C.occupancy_unit(held, w.cap_y[:ncap], oy, Ly))  # where captured
         total += ncap
     assert total > 10                # the line did meet obstacles
     assert skipped > 0.5 * steps * n  # and most node-steps vouched for their segments
@@ -318,6 +322,39 @@ def test_find_captures_skips_obstacle_just_left():
                                Lx, Ly, cell=25.0)
     assert found == {1: 2}
 
+
+
+@pytest.mark.parametrize("held_image, captured", [(0, True), (1, False)])
+def test_find_captures_takes_the_image_above_an_obstacle_held_below(held_image, captured):
+    # the field repeats in y, so an obstacle's image one box height up is another obstacle to
+    # the line: an Orowan loop left round the image below must not stop the line pinning on the
+    # one above (docs/physics.md, "Capture and release"; the arc construction, Foreman & Makin
+    # 1966, marks images one by one too)
+    Lx, Ly = 100.0, 100.0
+    x = np.array([10.0, 30.0, 50.0, 70.0, 90.0])
+    y = np.full(5, Ly + 50.0)
+    v = np.tile([0.0, 1.0], (5, 1))
+    ox, oy = np.array([40.0]), np.array([50.5])
+    opin = C.occupancy(np.array([0]), oy + held_image * Ly, oy, Ly, 1)   # a loop holds it there
+    found, _, _ = run_captures(x, y, np.full(5, -1), np.full(5, -1), v, 1.0, ox, oy, opin,
+                               Lx, Ly, cell=25.0)
+    assert found == ({0: 1} if captured else {})
+
+
+def test_occupancy_of_a_state_counts_each_image_apart():
+    # one obstacle held by a loop at its own height and by the line one box height up: two
+    # holders, each at its image (dlsim.contract.occupancy, read by the kernels' _held)
+    Lx = Ly = 100.0
+    field = random_field(Lx, Ly, 4 / (Lx * Ly), 1e9, np.random.default_rng(3))
+    k = 2
+    state = LineState.straight(Lx, field.y[k] + Ly, 5.0)
+    state.pin[0], state.x[0] = k, field.x[k]
+    state.loop_x[:3], state.loop_y[:3], state.loop_pin[:3] = field.x[k], field.y[k], [k, -1, -1]
+    state.loop_off[1] = 3
+    state.meta[C.M_NLOOPS], state.meta[C.M_NLOOPNODES] = 1, 3
+    opin = Relaxer(field, LineModel(0.5, 5.0)).occupancy(state)
+    unit = 1 << C.OCC_BITS
+    assert opin[k] == 1 + unit and np.count_nonzero(opin) == 1
 
 # --- remeshing -------------------------------------------------------------------------------
 
@@ -566,10 +603,9 @@ def crossing_setup(x, y, pin, Lx, extra=64):
     line = (padded(x, cap, 0.0), padded(y, cap, 0.0), padded(pin, cap, -1), np.full(cap, -1))
     loops = (np.zeros(cap), np.zeros(cap), np.full(cap, -1), np.zeros(cap, np.int64))
     cstart, citems, ncx, ncy = cells([], [], Lx, 100.0, 50.0)
-    opin = np.zeros(max(pin.max() + 1, 1), np.int64)
-    np.add.at(opin, pin[pin >= 0], 1)
-    field = field_tuple(np.zeros(len(opin)), np.zeros(len(opin)), opin, cstart, citems, ncx,
-                        ncy, Lx, 100.0)
+    m = max(pin.max() + 1, 1)
+    opin = C.occupancy(pin, y, np.zeros(m), 100.0, m)
+    field = field_tuple(np.zeros(m), np.zeros(m), opin, cstart, citems, ncx, ncy, Lx, 100.0)
     return line, loops, field, Work(cap)
 
 

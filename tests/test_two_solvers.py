@@ -5,6 +5,9 @@ a constant line tension, so on the same field the nodal line's CRSS must agree w
 the target of the project (the nodal line read 3-7 % high on impenetrable random fields at this
 node spacing before the crossing and crossed-arm rules, docs/physics.md).  Every final nodal line
 must be free of self-crossings.  benchmarks/compare_solvers.py prints the same table with times.
+Three of these fields (random φc = 0 seed 0, φc = 60° seeds 0 and 2) read 1-11 % low while an
+Orowan loop left round an obstacle kept its image one box height up from pinning the line
+(docs/physics.md, "Capture and release").
 """
 from __future__ import annotations
 
@@ -21,27 +24,11 @@ NODE_SPACING = 0.2      # L_s
 POINTS = 144            # obstacles of a random field (box 12 L_s)
 TOLERANCE = 0.005       # the two-solver target
 
-#: Fields where the two disagree, with the ratio measured (nodal / arcs).  On the first two the
-#: nodal pins equal the arc solver's at every stress of the ramp up to one avalanche, in which the
-#: arcs' rolling circles stop on obstacles that the overdamped nodal line captures and releases
-#: again: the stable configurations agree and the path through an avalanche differs (overdamped
-#: motion of the whole unstable segment against rolling about one pivot).  On the third the arcs
-#: pin one obstacle the nodal line never meets; not found why.  A 10x smaller stress step and the
-#: default 0.05 L_s node spacing (field 60°/0) do not change them.
-KNOWN = {("random", 0.0, 0): 0.9861, ("random", 60.0, 0): 0.8893, ("random", 60.0, 2): 0.9920}
-
 FIELDS = [("random", angle, seed) for angle in (0.0, 60.0, 120.0, 150.0) for seed in range(5)]
 FIELDS += [("square", angle, 0) for angle in (0.0, 60.0, 120.0, 150.0)]
 
 
-def _param(field):
-    if field in KNOWN:
-        return pytest.param(*field, marks=pytest.mark.xfail(
-            strict=True, reason=f"avalanche path differs: nodal/arcs = {KNOWN[field]} measured"))
-    return pytest.param(*field)
-
-
-@pytest.mark.parametrize("kind, angle, seed", [_param(f) for f in FIELDS])
+@pytest.mark.parametrize("kind, angle, seed", FIELDS)
 def test_nodal_line_agrees_with_arc_construction(kind, angle, seed):
     arcs, _, _ = solve(case_dict(kind, angle, seed, POINTS, NODE_SPACING, "arcs"))
     nodal, _, crossings = solve(case_dict(kind, angle, seed, POINTS, NODE_SPACING, "nodal"))
