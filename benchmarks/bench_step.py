@@ -130,7 +130,7 @@ class StepProfile:
             "contacts and reconnections": lambda: K._reconnect_all(line, n, prm, s.meta, loops, f,
                                                                    wf, wi),
             "move_and_capture": lambda dt: K.move_and_capture(line, n, dt, prm, f, wf, wi),
-            "insert_pins": lambda ncap: K.insert_pins(line, n, ncap, f[3], wf, wi),
+            "insert_pins": lambda ncap: K.insert_pins(line, n, ncap, f, wf, wi),
         }
 
     def _call(self, name, *args):
