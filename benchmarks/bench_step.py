@@ -104,7 +104,9 @@ class StepProfile:
     Python calls the kernels one by one (the same calls, in the same order, as the compiled loop),
     timing each; the cost of a call with no nodes (argument unboxing) is subtracted.  Python runs
     between the calls and cools the caches, so the kernel times come out somewhat higher than in
-    the compiled loop: read the shares, not the sum.
+    the compiled loop: read the shares, not the sum.  The rig's line glides above the CRSS and
+    never creeps, so the creeping line's backward-Euler step (kernels.creep_displacements) is not
+    in the profile.
     """
 
     def __init__(self, rig: StepRig):
@@ -171,8 +173,7 @@ class StepProfile:
             if bad >= 0:
                 n = self._n = self._call("remesh", bad)
                 area, bad, max_te, stiff, vmax, turned = self._call("node_pass")
-            if self._call("release") > 0:
-                self.work_f[C.W_RAD, :n] = K.UNKNOWN
+            if self._call("release") > 0:   # a freed obstacle shrinks the discs it lies in
                 continue
             if turned > 0 and not searched:
                 n_new, full = self._call("contacts and reconnections")
