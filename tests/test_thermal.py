@@ -165,13 +165,6 @@ def test_cli_bad_thermal_key_one_line_exit_2(tmp_path, key, value, dotted):
     assert_one_line_error(run_cli(path, tmp_path), "bad.toml", f"`{dotted}`")
 
 
-def test_cli_thermal_on_the_nodal_solver_one_line_exit_2(tmp_path):
-    path = tmp_path / "nodal.toml"
-    path.write_text(toml_case(temperature_K=300.0) + '[solver]\nmethod = "nodal"\n',
-                    encoding="utf-8")
-    assert_one_line_error(run_cli(path, tmp_path), "`thermal.temperature_K`", "arc solver")
-
-
 def random_case(temperature):
     c = one_pin_case(temperature, events=300, sequences=2)
     c["line"] = {"length": 30}                       # 900 points, 30 L_s a side

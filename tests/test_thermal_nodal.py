@@ -1,0 +1,116 @@
+"""Thermally activated glide on the nodal line (dlsim.thermal, nodal path) against closed forms
+and against the arc construction.
+
+Sources: the one-pin array's stress τ(T) = (F_c/(bL)) [1 - ((kT/ΔF0) ln(ε̇0/ε̇))^(1/q)]^(1/p),
+ε̇0 = ρ_m b L ν0 (Kocks, Argon & Ashby, *Thermodynamics and Kinetics of Slip*, 1975); the arc
+construction as the exact quasi-static reference for point obstacles under a constant line
+tension (Foreman & Makin, Phil. Mag. 14, 1966).  Coarse nodes (0.1-0.2 spacings: ARC_DRIVE
+keeps circular arcs and the pin force exact at any spacing) and few events keep each test short;
+the tolerances follow from the event counts, as said beside each check.
+"""
+import json
+import math
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from dlsim import api
+from dlsim.case import load_case
+
+from test_cli_errors import run_cli
+from test_plots import POPULATION_CASE
+from test_thermal import fc_over_bl_mpa, kaa_stress_over_fc, one_pin_case
+
+#: Node spacing of the one-pin array in spacings (10 nodes a period).
+ONE_PIN_NODES = 0.1
+
+
+def nodal(c: dict, node_spacing: float) -> dict:
+    c["solver"] = {"method": "nodal"}
+    c["line"]["node_spacing"] = node_spacing
+    return c
+
+
+@pytest.mark.parametrize("temperature", [50.0, 150.0, 300.0])
+def test_nodal_one_pin_array_stress_follows_kaa(temperature):
+    # τ(T) = (F_c/(bL)) [1 - ((kT/ΔF0) ln(ε̇0/ε̇))^(1/q)]^(1/p) (Kocks, Argon & Ashby 1975),
+    # within 2 % (the issue's tolerance).  240 measured events give ln ε̇ to 1/sqrt(240) = 6.5 %,
+    # the stress to 0.65 % at 300 K (dlnτ/dlnε̇ = 0.1 there) and far less when colder (0.05 %
+    # at 50 K): 2 % is 3 σ at 300 K.
+    c = nodal(one_pin_case(temperature, events=300, sequences=1), ONE_PIN_NODES)
+    assert load_case(c).solver.solver == "nodal"
+    res = api.run_case(c, out_dir=False)
+    expect = fc_over_bl_mpa() * kaa_stress_over_fc(temperature)
+    assert res.summary["crss_MPa"] == pytest.approx(expect, rel=0.02)
+    assert res.summary["crss_MPa"] < res.summary["crss_athermal_MPa"]
+
+
+def random_case(temperature: float, method: str, events: int, sequences: int) -> dict:
+    """A random field of 36 points (6 L_s a side, φc = 90°), nodes 0.2 L_s apart."""
+    c = one_pin_case(temperature, events=events, sequences=sequences)
+    c["seed"] = 1
+    c["line"] = {"length": 6, "node_spacing": 0.2}
+    c["obstacles"] = {"kind": "random", "spacing_nm": 50.0, "critical_angle_deg": 90.0}
+    c["solver"] = {"method": method}
+    return c
+
+
+def test_nodal_and_arcs_agree_on_the_same_random_field():
+    # Same field and event numbers (same seed) on both solvers.  Their events pick pins in a
+    # different order along the line, so the sequences are independent samples of the same
+    # kinetics: Welch's t-test of the two means over the sequences must not reject equality at
+    # the 1 % level (the statistical uncertainty of each, from its own spread), and the means
+    # must lie within 5 % of each other (common practice; here 3 x 150 events give a
+    # sequence spread of 1-3 %), where the thermal drop below the athermal CRSS is ~80 %.
+    runs = {m: api.run_case(random_case(150.0, m, 150, 3), out_dir=False).summary
+            for m in ("arcs", "nodal")}
+    a, n = (np.array(runs[m]["crss_sequences_MPa"]) for m in ("arcs", "nodal"))
+    assert stats.ttest_ind(a, n, equal_var=False).pvalue > 0.01
+    assert n.mean() == pytest.approx(a.mean(), rel=0.05)
+    assert runs["nodal"]["crss_athermal_MPa"] == pytest.approx(runs["arcs"]["crss_athermal_MPa"],
+                                                               rel=0.005)
+
+
+def test_nodal_random_field_stress_falls_with_temperature_to_the_athermal_crss():
+    # thermal activation only lowers the stress, more the hotter (Kocks, Argon & Ashby 1975),
+    # and the gap to the athermal CRSS closes as T^(1/q) at T -> 0: bounded at 2 K by three
+    # times the one-pin formula's gap (4.6 %), as on arcs (tests/test_thermal.py)
+    temps = [2.0, 20.0, 150.0]
+    runs = [api.run_case(random_case(t, "nodal", 60, 1), out_dir=False).summary for t in temps]
+    crss = [r["crss_MPa"] for r in runs]
+    athermal = runs[0]["crss_athermal_MPa"]
+    assert all(a > b for a, b in zip(crss, crss[1:])), crss
+    assert crss[0] < athermal
+    assert 1.0 - crss[0] / athermal < 3 * (1.0 - kaa_stress_over_fc(2.0))
+
+
+#: Impenetrable discs (they need the nodal line) beside shearable points, two realizations,
+#: at 300 K.
+DISC_THERMAL_CASE = POPULATION_CASE + """\
+[thermal]
+temperature_K = 300.0
+events = 40
+sequences = 1
+"""
+
+
+def test_cli_disc_field_runs_thermal_on_the_nodal_line(tmp_path):
+    # the case needs the nodal line (finite impenetrable discs): the run succeeds and writes the
+    # thermal keys (docs/outputs.md); the stress at 300 K lies below the athermal CRSS, since
+    # the shearable clusters are overcome by thermal activation (Kocks, Argon & Ashby 1975)
+    path = tmp_path / "discs.toml"
+    path.write_text(DISC_THERMAL_CASE, encoding="utf-8")
+    proc = run_cli(path, tmp_path)
+    assert proc.returncode == 0, proc.stderr
+    assert load_case(path).solver.solver == "nodal"
+    run = next(tmp_path.glob("**/result.json")).parent
+    summary = json.loads((run / "result.json").read_text())
+    for key in ("temperature_K", "strain_rate_per_s", "crss_athermal_MPa", "crss_sequences_MPa",
+                "activation_volume_b3", "n_sequences", "n_events_per_sequence"):
+        assert key in summary, key
+    assert summary["temperature_K"] == 300.0
+    assert 0.0 < summary["crss_MPa"] < summary["crss_athermal_MPa"]
+    head = (run / "history.csv").read_text().splitlines()[0].split(",")
+    assert head[-3:] == ["velocity_m_per_s", "strain_rate_per_s", "sequence"]
+    assert math.isfinite(summary["activation_volume_b3"])
