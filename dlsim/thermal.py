@@ -303,6 +303,10 @@ def kmc_nodal_events(line, meta, prm, field, loops, work_f, work_i, max_steps, b
         i = slots[pick]
         o = pin[i]
         opin[o] -= 1
+        # only the arms that have just left an obstacle skip it: the line crosses the periodic
+        # box again and again, and a node still marked with an obstacle it left events ago
+        # would tunnel through that obstacle's image one box height on
+        ign[:n] = -1
         pin[i], ign[i] = -1, o
         meta[C.M_RELEASES] += 1
         Q[Q_AREA_AV] = K.line_area(x, y, n, prm.Lx)
