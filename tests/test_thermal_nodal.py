@@ -36,14 +36,20 @@ def nodal(c: dict, node_spacing: float) -> dict:
 def test_nodal_one_pin_array_stress_follows_kaa(temperature):
     # τ(T) = (F_c/(bL)) [1 - ((kT/ΔF0) ln(ε̇0/ε̇))^(1/q)]^(1/p) (Kocks, Argon & Ashby 1975),
     # within 2 % (the tolerance).  240 measured events give ln ε̇ to 1/sqrt(240) = 6.5 %,
-    # the stress to 0.65 % at 300 K (dlnτ/dlnε̇ = 0.1 there) and far less when colder (0.05 %
-    # at 50 K): 2 % is 3 σ at 300 K.
+    # the stress to 0.8 % at 300 K (dlnτ/dlnε̇ = kT/(V*τ) = 0.13 there), 0.3 % at 150 K, 0.1 %
+    # at 50 K.
     c = nodal(one_pin_case(temperature, events=300, sequences=1), ONE_PIN_NODES)
     assert load_case(c).solver.solver == "nodal"
     res = api.run_case(c, out_dir=False)
     expect = fc_over_bl_mpa() * kaa_stress_over_fc(temperature)
     assert res.summary["crss_MPa"] == pytest.approx(expect, rel=0.02)
     assert res.summary["crss_MPa"] < res.summary["crss_athermal_MPa"]
+    # the same seed gives the arcs the same event numbers and, with one pin, the same events:
+    # the two differ only by the nodal line's pin force at equilibrium, within the project's
+    # two-solver target of 0.5 % (tests/test_two_solvers.py; measured 0.06 % at 300 K)
+    c["solver"] = {"method": "arcs"}
+    arcs = api.run_case(c, out_dir=False).summary["crss_MPa"]
+    assert res.summary["crss_MPa"] == pytest.approx(arcs, rel=0.005)
 
 
 def test_nodal_one_pin_array_with_dewit_koehler_line_follows_kaa():
