@@ -245,11 +245,45 @@ def nodal_pin_log_rates(line, n, prm, meta, loops, field, work_f, barrier, p, q,
 
 
 @njit(**JIT)
+def drop_loops_behind(line, n, meta, loops, opin):
+    """Drop the Orowan loops lying wholly behind the line (every loop node below its lowest
+    node), releasing the obstacles they hold; returns how many were dropped.
+
+    The events run the line through the periodic box again and again, and a loop is stored
+    against the obstacle's index, not its image: a loop left on one crossing would hide that
+    obstacle (and a disc's ring) from the line when it meets the image one box height on, and
+    the line would tunnel through it.  A loop behind the whole line no longer touches it (under
+    a line tension; the self-stress model loses the far loops' stress, which falls off with the
+    distance), so the field is met afresh on every crossing, as a longer box would be.
+    """
+    y = line[1]
+    lx, ly, lpin, loff = loops
+    ymin = y[:n].min()
+    kept, used, dropped = 0, 0, 0
+    for k in range(meta[C.M_NLOOPS]):
+        a, b = loff[k], loff[k + 1]
+        if ly[a:b].max() < ymin:
+            for j in range(a, b):
+                if lpin[j] >= 0:
+                    opin[lpin[j]] -= 1
+            dropped += 1
+            continue
+        for j in range(a, b):
+            lx[used], ly[used], lpin[used] = lx[j], ly[j], lpin[j]
+            used += 1
+        kept += 1
+        loff[kept] = used
+    meta[C.M_NLOOPS], meta[C.M_NLOOPNODES] = kept, used
+    return dropped
+
+
+@njit(**JIT)
 def kmc_nodal_events(line, meta, prm, field, loops, work_f, work_i, max_steps, barrier, p, q,
                      u, Q, slots, lnr, waits):
     """Residence-time events of the nodal line at a fixed stress until ``u`` is used up.
 
-    Each event: the forces on the pins of the relaxed line give their rates
+    Each event: the loops left behind the line are dropped (:func:`drop_loops_behind`), the
+    forces on the pins of the relaxed line give their rates
     (:func:`nodal_pin_log_rates`), one pin is picked and the clock advanced
     (:func:`_residence_event`), the pin is released as the athermal release does (its node
     freed, the obstacle not re-captured by the arms that left it) and the line relaxes at the
@@ -296,6 +330,7 @@ def kmc_nodal_events(line, meta, prm, field, loops, work_f, work_i, max_steps, b
         if Q[Q_EVENTS] >= n_ev:
             return K_DONE
         n = meta[C.M_N]
+        drop_loops_behind(line, n, meta, loops, opin)
         c = nodal_pin_log_rates(line, n, prm, meta, loops, field, work_f, barrier, p, q, slots,
                                 lnr)
         st, pick = _residence_event(lnr, c, u, Q, waits)

@@ -16,7 +16,10 @@ import pytest
 from scipy import stats
 
 from dlsim import api
+from dlsim import contract as C
 from dlsim.case import load_case
+from dlsim.line import LineState
+from dlsim.thermal import drop_loops_behind
 
 from test_cli_errors import run_cli
 from test_plots import POPULATION_CASE
@@ -136,3 +139,40 @@ def test_cli_disc_field_runs_thermal_on_the_nodal_line(tmp_path):
     head = (run / "history.csv").read_text().splitlines()[0].split(",")
     assert head[-3:] == ["velocity_m_per_s", "strain_rate_per_s", "sequence"]
     assert math.isfinite(summary["activation_volume_b3"])
+
+
+def naive_drop_loops_behind(y_line, loops, opin):
+    """NumPy twin of :func:`dlsim.thermal.drop_loops_behind` on a list of (y, pin) loops: those
+    wholly below the line's lowest node go, with their holds on the obstacles."""
+    ymin = y_line.min()
+    kept = [(ly, lp) for ly, lp in loops if ly.max() >= ymin]
+    opin = opin.copy()
+    for ly, lp in loops:
+        if ly.max() < ymin:
+            np.subtract.at(opin, lp[lp >= 0], 1)
+    return kept, opin
+
+
+def test_drop_loops_behind_matches_its_twin():
+    rng = np.random.default_rng(3)
+    state = LineState.straight(100.0, 50.0, 10.0)
+    state.y[: state.n] += rng.uniform(-5.0, 5.0, state.n)
+    loops = [(rng.uniform(lo, lo + 8.0, k), rng.integers(-1, 6, k))
+             for lo, k in [(0.0, 5), (42.0, 4), (20.0, 6), (48.0, 3), (10.0, 1)]]
+    opin = np.zeros(6, np.int64)
+    off = [0]
+    for ly, lp in loops:
+        a = off[-1]
+        state.loop_y[a:a + ly.size], state.loop_pin[a:a + ly.size] = ly, lp
+        state.loop_x[a:a + ly.size] = rng.uniform(0.0, 100.0, ly.size)
+        np.add.at(opin, lp[lp >= 0], 1)
+        off.append(a + ly.size)
+    state.loop_off[: len(off)] = off
+    state.meta[C.M_NLOOPS], state.meta[C.M_NLOOPNODES] = len(loops), off[-1]
+    kept, want = naive_drop_loops_behind(state.y[: state.n], loops, opin)
+    got = opin.copy()
+    dropped = drop_loops_behind(state.line, state.n, state.meta, state.loop_arrays, got)
+    assert dropped == len(loops) - len(kept) > 0 and len(kept) > 0
+    assert np.array_equal(got, want)
+    assert [(ly.tolist(), lp.tolist()) for ly, lp in kept] == [
+        (ly.tolist(), lp.tolist()) for _, ly, lp in state.loops()]
