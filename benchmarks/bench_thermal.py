@@ -11,13 +11,15 @@ Runs cases through ``dlsim.api.run_case`` (nothing written) after one warm-up ru
 - ``nodal``: the nodal line beside the arcs on the same small random fields (same seed, same
   event numbers): both stresses, their spreads, both wall times and their ratio, and the nodal
   cost per event (wall time over events simulated);
+- ``nodal-1000``: the 10^3-point field of ``random`` on the nodal line (nodes 0.2 L_s apart) at
+  150 K with the default 4 sequences x 400 events, beside the arcs;
 - ``wide``: square arrays 1-4 spacings wide on arcs against the one-pin formula, with the mean
   glide per event in spacings (1 on the one-pin array; a cascade makes one activation advance
   several pins' worth of line).
 
 The load average is printed (the machine may be shared).
 
-    NUMBA_NUM_THREADS=1 python benchmarks/bench_thermal.py [--parts one-pin random nodal wide]
+    NUMBA_NUM_THREADS=1 python benchmarks/bench_thermal.py [--parts one-pin random nodal ...]
 """
 from __future__ import annotations
 
@@ -106,6 +108,18 @@ def nodal_beside_arcs() -> None:
                   f"{1e3 * tn / events:8.2f}")
 
 
+def nodal_1000() -> None:
+    print(f"random field 32 x 32 L_s (1024 points), 150 K, 4 sequences x 400 events, nodal "
+          f"nodes {NODAL_NODES} L_s apart")
+    print(f"{'solver':>6} {'crss_MPa':>9} {'seq_std':>8} {'athermal':>9} {'wall_s':>7}")
+    for method in ("arcs", "nodal"):
+        c = case(150.0, 32, "random", method)
+        c["line"]["node_spacing"] = NODAL_NODES
+        s, wall = timed(c)
+        print(f"{method:>6} {s['crss_MPa']:9.3f} {s['crss_sequence_std_MPa']:8.3f} "
+              f"{s['crss_athermal_MPa']:9.3f} {wall:7.1f}")
+
+
 def glide_per_event(c: dict, tau_MPa: float) -> float:
     """Mean glide per measured event (in spacings) of sequence 0 of case ``c`` at ``tau_MPa``:
     v × clock over the events after the warm-up."""
@@ -140,7 +154,7 @@ def wide_arrays() -> None:
 
 
 PARTS = {"one-pin": one_pin, "random": random_arcs, "nodal": nodal_beside_arcs,
-         "wide": wide_arrays}
+         "nodal-1000": nodal_1000, "wide": wide_arrays}
 
 
 def main() -> None:

@@ -128,10 +128,13 @@ def _avalanche(W):
 
 
 @njit(**JIT)
-def _residence_event(lnr, n, u, Q, waits):
+def _residence_event(lnr, keys, n, u, Q, waits):
     """Event k = Q[Q_EVENTS] of the residence-time algorithm among n pins of ln rates
-    ``lnr[:n]``: (K_DONE, the pin picked with probability r_i/R from u[2k]), or (K_RUNAWAY, -1)
-    when the line holds no pin, (K_STUCK, -1) when none can be activated.  The ln waiting time
+    ``lnr[:n]`` holding the obstacles ``keys[:n]``: (K_DONE, the pin picked with probability
+    r_i/R from u[2k]), or (K_RUNAWAY, -1) when the line holds no pin, (K_STUCK, -1) when none can
+    be activated.  The pins are walked in the order of their obstacles' indices, so that a
+    solver's own numbering of its pins does not enter: the two solvers, given the same
+    configuration and the same number, pick the same pin.  The ln waiting time
     ln(-ln(u[2k+1])/R) goes to ``waits[k]`` and is added to the ln clock Q[Q_LNT] (a log-sum, so
     that clocks far beyond the float range stay exact)."""
     if n == 0:
@@ -144,8 +147,9 @@ def _residence_event(lnr, n, u, Q, waits):
     total = 0.0
     for j in range(n):
         total += math.exp(lnr[j] - m)
-    pick, acc, target = n - 1, 0.0, u_pick * total
-    for j in range(n):
+    order = np.argsort(keys[:n], kind="mergesort")
+    pick, acc, target = order[n - 1], 0.0, u_pick * total
+    for j in order:
         acc += math.exp(lnr[j] - m)
         if acc >= target:
             pick = j
@@ -158,7 +162,7 @@ def _residence_event(lnr, n, u, Q, waits):
 
 
 @njit(**JIT)
-def kmc_events(W, s, barrier, p, q, u, Q, slots, lnr, waits):
+def kmc_events(W, s, barrier, p, q, u, Q, slots, keys, lnr, waits):
     """Run residence-time events at stress s until ``u`` is used up (two numbers per event).
 
     Parameters
@@ -176,8 +180,8 @@ def kmc_events(W, s, barrier, p, q, u, Q, slots, lnr, waits):
         u[2k+1].
     Q : (N_Q,) float64
         kMC state (``Q_*``), updated; resumable after K_GROW.
-    slots, lnr : (C,) int64, float64
-        Scratch for the pins and their log rates (C >= the pin capacity).
+    slots, keys, lnr : (C,) int64, int64, float64
+        Scratch for the pins, their obstacles and their log rates (C >= the pin capacity).
     waits : (n,) float64
         Receives each event's ln waiting time (units of 1/ν0).
 
@@ -201,7 +205,9 @@ def kmc_events(W, s, barrier, p, q, u, Q, slots, lnr, waits):
         if Q[Q_EVENTS] >= n_ev:
             return K_DONE
         n = pin_log_rates(W, s, barrier, p, q, slots, lnr)
-        st, pick = _residence_event(lnr, n, u, Q, waits)
+        for j in range(n):
+            keys[j] = W[A.W_IP][A.PK, slots[j]]
+        st, pick = _residence_event(lnr, keys, n, u, Q, waits)
         if pick < 0:
             return st
         i = slots[pick]
@@ -282,7 +288,7 @@ def drop_loops_behind(line, n, meta, loops, opin):
 
 @njit(**JIT)
 def kmc_nodal_events(line, meta, prm, field, loops, work_f, work_i, max_steps, barrier, p, q,
-                     u, Q, slots, lnr, waits):
+                     u, Q, slots, keys, lnr, waits):
     """Residence-time events of the nodal line at a fixed stress until ``u`` is used up.
 
     Each event: the loops left behind the line are dropped (:func:`drop_loops_behind`), the
@@ -305,7 +311,7 @@ def kmc_nodal_events(line, meta, prm, field, loops, work_f, work_i, max_steps, b
         As :func:`kmc_events`.
     Q : (N_Q,) float64
         kMC state (``Q_*``), updated; resumable after K_GROW.
-    slots, lnr : (>= line capacity,) int64, float64
+    slots, keys, lnr : (>= line capacity,) int64, int64, float64
         Scratch.
 
     Returns
@@ -336,7 +342,9 @@ def kmc_nodal_events(line, meta, prm, field, loops, work_f, work_i, max_steps, b
         drop_loops_behind(line, n, meta, loops, opin)
         c = nodal_pin_log_rates(line, n, prm, meta, loops, field, work_f, barrier, p, q, slots,
                                 lnr)
-        st, pick = _residence_event(lnr, c, u, Q, waits)
+        for j in range(c):
+            keys[j] = pin[slots[j]]
+        st, pick = _residence_event(lnr, keys, c, u, Q, waits)
         if pick < 0:
             return st
         i = slots[pick]
@@ -435,8 +443,9 @@ def log_velocity(obstacles: ObstacleField, model: LineModel, protocol: Protocol,
     Q, waits, barrier = _kmc_inputs(obstacles, tm, u, waits)
     while True:
         cap = run.capacity
-        slots, lnr = np.zeros(cap + 1, np.int64), np.zeros(cap + 1)
-        st = kmc_events(run.tuple(), s, barrier, tm.p, tm.q, u, Q, slots, lnr, waits)
+        slots, keys = np.zeros(cap + 1, np.int64), np.zeros(cap + 1, np.int64)
+        lnr = np.zeros(cap + 1)
+        st = kmc_events(run.tuple(), s, barrier, tm.p, tm.q, u, Q, slots, keys, lnr, waits)
         if st != K_GROW:
             break
         run.grow()
@@ -526,10 +535,10 @@ def log_velocity_nodal(loading: NodalLoading, tm: ThermalModel, tau: float, u: n
     while True:
         cap = state.capacity
         work_f, work_i = np.zeros((C.N_WORK_F, cap)), np.zeros((C.N_WORK_I, cap), np.int64)
-        slots, lnr = np.zeros(cap, np.int64), np.zeros(cap)
+        slots, keys, lnr = np.zeros(cap, np.int64), np.zeros(cap, np.int64), np.zeros(cap)
         st = kmc_nodal_events(state.line, state.meta, prm, field, state.loop_arrays, work_f,
-                              work_i, protocol.max_steps, barrier, tm.p, tm.q, u, Q, slots, lnr,
-                              waits)
+                              work_i, protocol.max_steps, barrier, tm.p, tm.q, u, Q, slots, keys,
+                              lnr, waits)
         if st != K_GROW:
             break
         state.grow()

@@ -84,10 +84,9 @@ def random_case(temperature: float, method: str, events: int, sequences: int, si
 def test_nodal_and_arcs_agree_on_the_same_random_field():
     # The arc construction is exact for point obstacles under a constant line tension (Foreman &
     # Makin 1966), so on the same field (64 points, 150 K) with the same event numbers (same
-    # seed) the nodal line must give the same stress.  Both list their pins along the line, so
-    # they mostly pick the same pins and the sequences stay paired (measured: equal to 1e-4 on
-    # this field, 0.03-0.3 % on four 8 L_s fields of 6 x 200 events, where an avalanche ends
-    # differently the pair drifts apart).  Bounds: 3 σ of the difference of two independent
+    # seed) the nodal line must give the same stress.  The pick walks the pins in obstacle order
+    # on both, so the sequences stay paired until an avalanche ends differently (measured: equal
+    # to 1e-4 on this field, 0.03-0.3 % on four 8 L_s fields of 6 x 200 events).  Bounds: 3 σ of the difference of two independent
     # means (each σ from its own spread over the sequences; paired sequences differ less), and
     # the project's two-solver target of 0.5 % (tests/test_two_solvers.py).  The athermal CRSS
     # of this field differs by 1.1 % (an avalanche path, as on the known fields there); the
