@@ -22,7 +22,8 @@ from dlsim.thermal import drop_loops_behind
 
 from test_cli_errors import run_cli
 from test_plots import POPULATION_CASE
-from test_thermal import fc_over_bl_mpa, kaa_stress_over_fc, one_pin_case
+from test_thermal import (fc_over_bl_mpa, kaa_activation_volume_b3, kaa_stress_over_fc,
+                          one_pin_case)
 
 #: Node spacing of the one-pin array in spacings (10 nodes a period).
 ONE_PIN_NODES = 0.1
@@ -46,6 +47,10 @@ def test_nodal_one_pin_array_stress_follows_kaa(temperature):
     expect = fc_over_bl_mpa() * kaa_stress_over_fc(temperature)
     assert res.summary["crss_MPa"] == pytest.approx(expect, rel=0.02)
     assert res.summary["crss_MPa"] < res.summary["crss_athermal_MPa"]
+    # V* = -∂ΔG/∂τ of the same formula, 5 % as on arcs (tests/test_thermal.py): with one pin
+    # every event is the same release, so the central difference does not depend on the events
+    assert res.summary["activation_volume_b3"] == pytest.approx(
+        kaa_activation_volume_b3(temperature), rel=0.05)
     # the same seed gives the arcs the same event numbers and, with one pin, the same events:
     # the two differ only by the nodal line's pin force at equilibrium, within the project's
     # two-solver target of 0.5 % (tests/test_two_solvers.py; measured 0.06 % at 300 K)
