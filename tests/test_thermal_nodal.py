@@ -59,6 +59,17 @@ def test_nodal_one_pin_array_stress_follows_kaa(temperature):
     assert res.summary["crss_MPa"] == pytest.approx(arcs, rel=0.005)
 
 
+def test_nodal_one_pin_array_with_friction_adds_the_friction_stress():
+    # lattice friction is a threshold on the driving stress (docs/physics.md, "Lattice friction"):
+    # the one-pin stress becomes τ_f + the formula (Kocks, Argon & Ashby 1975); 2 % at 150 K,
+    # where 120 measured events give the thermal part to 0.4 % (0.3 % of the whole)
+    c = nodal(one_pin_case(150.0, events=150, sequences=1), ONE_PIN_NODES)
+    c["friction"] = {"stress_MPa": 5.0}
+    res = api.run_case(c, out_dir=False)
+    expect = 5.0 + fc_over_bl_mpa() * kaa_stress_over_fc(150.0)
+    assert res.summary["crss_MPa"] == pytest.approx(expect, rel=0.02)
+
+
 def test_nodal_one_pin_array_with_dewit_koehler_line_follows_kaa():
     # the de Wit-Koehler line needs the nodal solver.  On one pin per period the force balance of
     # a period (the applied τ b Lx against the pin's reaction; the line energy's own forces sum
