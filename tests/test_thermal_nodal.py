@@ -62,7 +62,7 @@ def test_nodal_one_pin_array_stress_follows_kaa(temperature):
 def test_nodal_one_pin_array_with_friction_adds_the_friction_stress():
     # lattice friction is a threshold on the driving stress (docs/physics.md, "Lattice friction"):
     # the one-pin stress becomes τ_f + the formula (Kocks, Argon & Ashby 1975); 2 % at 150 K,
-    # where 120 measured events give the thermal part to 0.4 % (0.3 % of the whole)
+    # where 120 measured events give the thermal part to 0.4 % (of the whole as well)
     c = nodal(one_pin_case(150.0, events=150, sequences=1), ONE_PIN_NODES)
     c["friction"] = {"stress_MPa": 5.0}
     res = api.run_case(c, out_dir=False)
