@@ -354,8 +354,10 @@ def _realization(case: Case, r: int, show=None, every: int = 0, snap=None) -> Re
 
 def thermal_search(case: Case, obstacles: ObstacleField, athermal: CrssResult, seed: int
                    ) -> ThermalSearch:
-    """The stress of the case's strain rate at its temperature on one field (arc solver):
-    residence-time events below the athermal CRSS (:func:`dlsim.thermal.find_thermal_stress`)."""
+    """The stress of the case's strain rate at its temperature on one field: residence-time
+    events below the athermal CRSS (:func:`dlsim.thermal.find_thermal_stress`) on the case's
+    solver, the arc construction wherever the case qualifies, the nodal line otherwise (finite
+    discs, elastic line models, ``[solver] method = "nodal"``)."""
     from .thermal import find_thermal_stress, thermal_model
 
     model, protocol, _ = model_and_protocol(case, obstacles.spacing)
@@ -367,7 +369,8 @@ def thermal_search(case: Case, obstacles: ObstacleField, athermal: CrssResult, s
         energy = per_pop[np.asarray(obstacles.population, np.int64)]
     tm = thermal_model(case.thermal, m.shear_modulus_GPa, m.burgers_nm, energy)
     return find_thermal_stress(obstacles, model, protocol, tm,
-                               math.log(case.thermal.strain_rate_per_s), athermal.hi, seed)
+                               math.log(case.thermal.strain_rate_per_s), athermal.hi, seed,
+                               solver=case.solver.solver)
 
 
 def thermal_realization(case: Case, real: Realization) -> Realization:

@@ -306,7 +306,7 @@ SCHEMA: dict[str, Section] = {
                            "qualifies, else nodal)", "auto", one_of(*SOLVER_METHODS)),
     }),
     "thermal": Section("thermally activated release of pinned obstacles (Kocks, Argon & Ashby "
-                       "1975), arc-solver cases only; temperature_K = 0 is the athermal CRSS", {
+                       "1975), on the case's solver; temperature_K = 0 is the athermal CRSS", {
         "temperature_K": Key(float, "the temperature T in K (0: athermal, the quasi-static CRSS)",
                              0.0, between(0.0, MAX_TEMPERATURE_K, closed=True)),
         "strain_rate_per_s": Key(float, "the imposed strain rate ε̇ in 1/s", 1e-3,
@@ -1122,7 +1122,8 @@ def load_case(source: str | os.PathLike | dict | Case, base_dir: str | os.PathLi
                 strength=StrengthSpec(**strength), elasticity=elasticity)
     case = dataclasses.replace(case, solver=_resolve_solver(name, table("solver")["method"], case),
                                convergence=_resolve_convergence(name, table("convergence")))
-    case = dataclasses.replace(case, thermal=_resolve_thermal(name, table("thermal"), case))
+    # thermal activation runs on the case's solver (the nodal line where arcs do not qualify)
+    case = dataclasses.replace(case, thermal=ThermalSpec(**table("thermal")))
     return dataclasses.replace(case, warnings=bounds.check_case(case))
 
 
@@ -1167,17 +1168,6 @@ def _resolve_convergence(source: str, c: dict) -> ConvergenceSpec:
         raise CaseError(source, "convergence.box_max", f"got {c['box_max']:g}; must exceed "
                                                        f"`convergence.box_min` = {c['box_min']:g}")
     return ConvergenceSpec(**c)
-
-
-def _resolve_thermal(source: str, t: dict, case: Case) -> ThermalSpec:
-    """Thermal activation runs on the arc solver only (its events are exact and cheap)."""
-    spec = ThermalSpec(**t)
-    if spec.active and case.solver.solver != "arcs":
-        why = arcs_limitation(case) or 'the case asks for `solver.method` = "nodal"'
-        raise CaseError(source, "thermal.temperature_K",
-                        f"got {spec.temperature_K:g}; thermal activation runs on the arc "
-                        f"solver only, and this case needs the nodal solver ({why})")
-    return spec
 
 
 def _resolve_solver(source: str, method: str, case: Case) -> SolverSpec:

@@ -114,8 +114,9 @@ def _add_sweep_commands(sub) -> None:
 
     plot = sub.add_parser("plot", help="figures of a sweep folder or a run folder")
     plot.add_argument("folder", help="sweep folder or run folder")
-    plot.add_argument("--quantity", choices=("crss", "delta_sigma"), default="crss",
-                      help="what a sweep figure shows (default: crss)")
+    plot.add_argument("--quantity", choices=("crss", "delta_sigma", "activation_volume"),
+                      default="crss", help="what a sweep figure shows (default: crss, and for "
+                                           "thermal runs activation_volume too)")
     plot.set_defaults(func=_cmd_plot)
 
     report = sub.add_parser("report", help="one-page report (report.png, report.pdf) of a run "

@@ -34,10 +34,12 @@ STYLE = {
     "font.size": 14, "axes.titlesize": 16, "axes.labelsize": 16, "xtick.labelsize": 14,
     "ytick.labelsize": 14, "legend.fontsize": 13, "lines.linewidth": 2.0, "lines.markersize": 7,
 }
-QUANTITIES = {"crss": "CRSS τ$_c$ (MPa)", "delta_sigma": "yield strength increment Δσ (MPa)"}
+QUANTITIES = {"crss": "CRSS τ$_c$ (MPa)", "delta_sigma": "yield strength increment Δσ (MPa)",
+              "activation_volume": "apparent activation volume V* (b³)"}
 # Unit suffixes of case keys (DEVELOPERS.md: keys carry their unit in their name).
 UNIT_SUFFIXES = {"_nm": "nm", "_MPa": "MPa", "_GPa": "GPa", "_nN": "nN", "_deg": "°",
-                 "_per_um2": "µm$^{-2}$", "_um": "µm"}
+                 "_per_um2": "µm$^{-2}$", "_um": "µm", "_K": "K", "_per_s": "s$^{-1}$",
+                 "_eV": "eV", "_Hz": "Hz", "_per_m2": "m$^{-2}$"}
 ESTIMATE_STYLES = ("--", ":", "-.", (0, (5, 1, 1, 1)))    # run figures: estimates in grey
 STATE_MARKERS = {"pinned": ("o", "C0"), "flowing": (">", "C1"), "unresolved": ("^", "C3")}
 # Flowing relaxations glide far more than the pinned ones; the glide axis stops at this multiple of
@@ -121,7 +123,7 @@ def plot_sweep(folder, quantity: str = "crss", x: str | None = None) -> list[Pat
     folder : path
         A sweep folder (``sweep.json`` and ``summary_points.csv``; the summary is written first if
         missing).
-    quantity : {"crss", "delta_sigma"}
+    quantity : {"crss", "delta_sigma", "activation_volume"}
     x : str, optional
         Swept key on the horizontal axis; default the first swept key that takes several values.
         Further swept keys beyond the curve key give one figure per combination.
@@ -167,9 +169,16 @@ def read_sweep_points(folder: Path, quantity: str) -> tuple[dict, dict]:
     table = read_table(folder / SUMMARY_POINTS)
     for key in meta["vary"]:            # swept keys by their dotted names (CSV: column_name)
         table.setdefault(key, table.get(column_name(key)))
-    if f"{quantity}_mean_MPa" not in table:
+    if f"{quantity}_mean_{quantity_unit(quantity)}" not in table:
         raise DlsimError(f"{str(folder)!r}: the runs report no {quantity} values")
     return meta, table
+
+
+def quantity_unit(quantity: str) -> str:
+    """The unit token of a sweep quantity's columns (:data:`dlsim.sweep.POINT_QUANTITIES`)."""
+    from .sweep import POINT_QUANTITIES
+
+    return dict(POINT_QUANTITIES.values())[quantity]
 
 
 def sweep_figures(table: dict, rest: list[str]):
@@ -304,13 +313,15 @@ def _draw_curves(ax, table: dict, rows: np.ndarray, x: str, curve: str | None, q
     stress 2Γ/(bL) (always reported) is drawn for the CRSS, once in grey when every curve has the
     same values, otherwise per curve.
     """
-    estimates = [c for c in table if c.startswith("estimate_")]
+    # the estimates are stresses: none for V*
+    estimates = [c for c in table if c.startswith("estimate_")] if q != "activation_volume" else []
     values = _distinct(table[curve][rows]) if curve else [None]
+    unit = quantity_unit(q)
     curves = []
     for i, value in enumerate(values):
         sel = rows & (table[curve] == value) if curve else rows
-        xs, (mean, lo, hi) = _sorted(table, sel, x, [f"{q}_mean_MPa", f"{q}_ci95_lo_MPa",
-                                                     f"{q}_ci95_hi_MPa"])
+        xs, (mean, lo, hi) = _sorted(table, sel, x, [f"{q}_{stat}_{unit}"
+                                                     for stat in ("mean", "ci95_lo", "ci95_hi")])
         style = {"color": CURVE_COLOURS[i % len(CURVE_COLOURS)],
                  "marker": CURVE_MARKERS[i % len(CURVE_MARKERS)]}
         ax.errorbar(xs, mean, yerr=[np.nan_to_num(mean - lo), np.nan_to_num(hi - mean)],
@@ -700,10 +711,15 @@ LABEL_GAP = 0.04
 
 
 def plot_dir(folder, quantity: str = "crss") -> list[Path]:
-    """Plot a sweep folder (``sweep.json``) or a run folder (``result.json``)."""
+    """Plot a sweep folder (``sweep.json``) or a run folder (``result.json``).  The CRSS figures
+    of a sweep of thermally activated runs come with their V* figures."""
     folder = Path(folder)
     if (folder / output.SWEEP).is_file():
-        return plot_sweep(folder, quantity=quantity)
+        paths = plot_sweep(folder, quantity=quantity)
+        if quantity == "crss" and "activation_volume_mean_b3" in read_sweep_points(folder,
+                                                                                   quantity)[1]:
+            paths += plot_sweep(folder, quantity="activation_volume")
+        return paths
     if output.is_run_folder(folder):
         return plot_run(folder)
     raise DlsimError(f"{str(folder)!r} holds neither a sweep ({output.SWEEP}) nor a run "

@@ -727,11 +727,12 @@ def summarize_sweep(out_dir) -> tuple[Path, Path]:
     (Path, Path)
         The two CSV files (docs/outputs.md).  Columns of the run table: ``run_id, point,
         seed_index, seed``, one per swept key (named by :func:`column_name`), ``crss_MPa,
-        crss_lo_MPa, crss_hi_MPa, orowan_MPa, status, converged``, then ``delta_sigma_MPa`` and
-        ``estimate_<model>_MPa`` when any run reports them.  The point table has the swept keys,
-        ``n_runs`` and, per quantity, ``<q>_mean_MPa, <q>_std_MPa, <q>_sem_MPa,
-        <q>_ci95_lo_MPa, <q>_ci95_hi_MPa`` (Student t), then ``orowan_mean_MPa`` and
-        ``estimate_<model>_mean_MPa``, the means over the point's runs.
+        crss_lo_MPa, crss_hi_MPa, orowan_MPa, status, converged``, then ``delta_sigma_MPa``,
+        ``activation_volume_b3`` and ``estimate_<model>_MPa`` when any run reports them.  The
+        point table has the swept keys, ``n_runs`` and, per quantity (POINT_QUANTITIES),
+        ``<q>_mean_<u>, <q>_std_<u>, <q>_sem_<u>, <q>_ci95_lo_<u>, <q>_ci95_hi_<u>`` (Student t,
+        u its unit), then ``orowan_mean_MPa`` and ``estimate_<model>_mean_MPa``, the means over
+        the point's runs.
     """
     out = Path(out_dir)
     meta = read_sweep_json(out)
@@ -743,17 +744,25 @@ def summarize_sweep(out_dir) -> tuple[Path, Path]:
                 "crss_hi_MPa", "orowan_MPa", "status", "converged", *extra]
     runs_path = _write_csv(out / SUMMARY_RUNS, run_cols, rows)
     points = _point_rows(meta["runs"], rows, keys, extra)
-    quantities = ["crss"] + (["delta_sigma"] if "delta_sigma_MPa" in extra else [])
     point_cols = ["point", *cols, "n_runs"]
-    for q in quantities:
-        point_cols += [f"{q}_{stat}_MPa" for stat in POINT_STATISTICS]
-    point_cols += [_mean_column(c) for c in ["orowan_MPa", *extra] if c != "delta_sigma_MPa"]
+    for q, unit in (POINT_QUANTITIES[c] for c in _quantity_columns(extra)):
+        point_cols += [f"{q}_{stat}_{unit}" for stat in POINT_STATISTICS]
+    point_cols += [_mean_column(c) for c in ["orowan_MPa", *extra] if c not in POINT_QUANTITIES]
     points_path = _write_csv(out / SUMMARY_POINTS, point_cols, points)
     return runs_path, points_path
 
 
-#: Statistics of the point table, per quantity: ``<q>_<statistic>_MPa``.
+#: Statistics of the point table, per quantity: ``<q>_<statistic>_<unit>``.
 POINT_STATISTICS = ("mean", "std", "sem", "ci95_lo", "ci95_hi")
+#: The run-table columns the point table gives statistics of: (quantity, unit).  The CRSS always;
+#: Δσ for populations; the apparent activation volume V* for thermally activated runs.
+POINT_QUANTITIES = {"crss_MPa": ("crss", "MPa"), "delta_sigma_MPa": ("delta_sigma", "MPa"),
+                    "activation_volume_b3": ("activation_volume", "b3")}
+
+
+def _quantity_columns(extra: list[str]) -> list[str]:
+    """The POINT_QUANTITIES columns present: the CRSS and those among ``extra``."""
+    return [c for c in POINT_QUANTITIES if c == "crss_MPa" or c in extra]
 
 
 def column_name(key: str) -> str:
@@ -800,8 +809,9 @@ def _run_row(out: Path, run: dict, keys: list[str]) -> dict:
            "crss_hi_MPa": res.get("crss_hi_MPa", math.nan),
            "orowan_MPa": res.get("orowan_MPa"), "status": res.get("status"),
            "converged": res.get("converged")}
-    if "delta_sigma_MPa" in res:
-        row["delta_sigma_MPa"] = res["delta_sigma_MPa"]
+    for col in POINT_QUANTITIES:
+        if col != "crss_MPa" and col in res:
+            row[col] = res[col]
     for key, value in (res.get("estimates") or {}).items():
         row[f"estimate_{key}"] = value
     return row
@@ -809,7 +819,7 @@ def _run_row(out: Path, run: dict, keys: list[str]) -> dict:
 
 def _extra_columns(rows: list[dict]) -> list[str]:
     seen = {c for r in rows for c in r}
-    extra = ["delta_sigma_MPa"] if "delta_sigma_MPa" in seen else []
+    extra = [c for c in POINT_QUANTITIES if c != "crss_MPa" and c in seen]
     return extra + sorted(c for c in seen if c.startswith("estimate_"))
 
 
@@ -822,9 +832,8 @@ def _point_rows(runs: list[dict], rows: list[dict], keys: list[str], extra: list
     for p in sorted(params):
         group = by_point.get(p, [])
         row = {"point": p, **{column_name(k): params[p][k] for k in keys}, "n_runs": len(group)}
-        row.update(_stats("crss", [g["crss_MPa"] for g in group]))
-        if "delta_sigma_MPa" in extra:
-            row.update(_stats("delta_sigma", [g.get("delta_sigma_MPa") for g in group]))
+        for col in _quantity_columns(extra):
+            row.update(_stats(*POINT_QUANTITIES[col], [g.get(col) for g in group]))
         for col in ["orowan_MPa"] + [c for c in extra if c.startswith("estimate_")]:
             vals = [g[col] for g in group if g.get(col) is not None]
             row[_mean_column(col)] = float(np.mean(vals)) if vals else math.nan
@@ -832,12 +841,12 @@ def _point_rows(runs: list[dict], rows: list[dict], keys: list[str], extra: list
     return table
 
 
-def _stats(name: str, values: list) -> dict:
+def _stats(name: str, unit: str, values: list) -> dict:
     """Mean, sample std and the Student-t 95 % interval of the mean (NaN where undefined;
-    :func:`dlsim.statistics.mean_interval`)."""
+    :func:`dlsim.statistics.mean_interval`), as ``<name>_<statistic>_<unit>``."""
     iv = statistics.mean_interval([x for x in values if x is not None])
-    return {f"{name}_mean_MPa": iv.mean, f"{name}_std_MPa": iv.std, f"{name}_sem_MPa": iv.sem,
-            f"{name}_ci95_lo_MPa": iv.lo, f"{name}_ci95_hi_MPa": iv.hi}
+    return {f"{name}_{stat}_{unit}": value for stat, value in
+            zip(POINT_STATISTICS, (iv.mean, iv.std, iv.sem, iv.lo, iv.hi))}
 
 
 def _write_csv(path: Path, columns: list[str], rows: list[dict]) -> Path:

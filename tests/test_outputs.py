@@ -35,6 +35,9 @@ NOT_EXERCISED = {
     "crss_sequence_std_MPa", "crss_sequence_ci95_lo_MPa", "crss_sequence_ci95_hi_MPa",
     "activation_volume_b3", "activation_volume_std_b3", "n_sequences", "n_events_per_sequence",
     "velocity_m_per_s", "sequence",
+    # sweeps of thermally activated runs only (written in tests/test_plots.py)
+    "activation_volume_mean_b3", "activation_volume_sem_b3", "activation_volume_ci95_lo_b3",
+    "activation_volume_ci95_hi_b3",
 }
 MEASURED = "populations.<name>.expected.measured"   # only with measured size files
 

@@ -19,6 +19,7 @@ from dlsim.plots import (DPI, FIG_SIZE_IN, _area_figure, _field_figure, _figure,
 from dlsim.sweep import run_sweep
 from test_reliability import POPULATION_CASE as DISC_CASE
 from test_sweep import write_sweep
+from test_thermal import toml_case
 
 PIXELS = (round(FIG_SIZE_IN[0] * DPI), round(FIG_SIZE_IN[1] * DPI))
 # Three spacings × two angles × two seeds: curves with error bars.
@@ -131,6 +132,32 @@ def test_plot_dir_dispatches_on_folder(sweep_dir, run_dir, kind):
     names = {p.name for p in plot_dir(folder)}
     assert ("crss_vs_spacing_nm.png" in names) == (kind == "sweep")
     assert ("field.png" in names) == (kind == "run")
+
+
+# A thermally activated sweep: the one-pin square array (aluminium) at three temperatures.
+THERMAL_CASE = toml_case(temperature_K=100.0, events=100, sequences=2)
+THERMAL_SWEEP = """\
+base = "tiny.toml"
+seeds = 1
+[vary]
+"thermal.temperature_K" = [50, 150, 300]
+"""
+
+
+def test_plot_dir_of_thermal_sweep_draws_crss_and_activation_volume(tmp_path):
+    folder = tmp_path / "thermal"
+    run_sweep(write_sweep(folder, THERMAL_SWEEP, THERMAL_CASE), out_dir=folder / "out",
+              workers=1, progress=False)
+    names = [p.name for p in plot_dir(folder / "out")]
+    assert names == ["crss_vs_temperature_K.png", "crss_vs_temperature_K.pdf",
+                     "activation_volume_vs_temperature_K.png",
+                     "activation_volume_vs_temperature_K.pdf"]
+    assert_image(folder / "out" / names[2])
+    _, table = read_sweep_points(folder / "out", "activation_volume")
+    vstar = table["activation_volume_mean_b3"][np.argsort(table["thermal.temperature_K"])]
+    # V* = ΔF0 p q x^(p-1) (1 - x^p)^(q-1) bL/F_c grows as the stress x F_c/(bL) falls with T
+    # (Kocks, Argon & Ashby 1975): 27, 54, 119 b³ here
+    assert np.all(np.diff(vstar) > 0), vstar
 
 
 def test_plot_dir_other_folder_raises(tmp_path):

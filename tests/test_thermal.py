@@ -48,6 +48,15 @@ def kaa_stress_over_fc(temperature):
     return (1.0 - (kT / DF0_EV * math.log(rate0 / RATE)) ** (1.0 / Q)) ** (1.0 / P)
 
 
+def kaa_activation_volume_b3(temperature):
+    """V* = kT ∂ln ε̇/∂τ = -∂ΔG/∂τ = ΔF0 p q x^(p-1) (1 - x^p)^(q-1) bL/F_c of the one-pin array,
+    x = τbL/F_c (the derivative of the Kocks-Argon-Ashby rate), in b³."""
+    x = kaa_stress_over_fc(temperature)
+    fc_reduced = math.cos(math.radians(PHIC_DEG) / 2.0)               # 2Γ = G b², in G b²
+    g_b3_ev = G_GPA * 1e9 * (B_NM * 1e-9) ** 3 / thermal.EV_J          # G b³ in eV
+    return (DF0_EV / g_b3_ev) * P * Q * x ** (P - 1) * (1 - x ** P) ** (Q - 1) * L_B / fc_reduced
+
+
 def fc_over_bl_mpa():
     """F_c/(bL) in MPa: F_c = 2Γ cos(φc/2), Γ = G b²/2."""
     return G_GPA * 1e3 * math.cos(math.radians(PHIC_DEG) / 2.0) / L_B
@@ -96,11 +105,8 @@ def test_one_pin_activation_volume_follows_kaa_derivative(temperature):
     # (the derivative of the Kocks-Argon-Ashby rate), in b³; 5 % (central difference at ±1 %
     # of τ and the events' noise)
     res = api.run_case(one_pin_case(temperature), out_dir=False)
-    x = kaa_stress_over_fc(temperature)
-    fc_reduced = math.cos(math.radians(PHIC_DEG) / 2.0)               # 2Γ = G b², in G b²
-    g_b3_ev = G_GPA * 1e9 * (B_NM * 1e-9) ** 3 / thermal.EV_J          # G b³ in eV
-    vstar = (DF0_EV / g_b3_ev) * P * Q * x ** (P - 1) * (1 - x ** P) ** (Q - 1) * L_B / fc_reduced
-    assert res.summary["activation_volume_b3"] == pytest.approx(vstar, rel=0.05)
+    assert res.summary["activation_volume_b3"] == pytest.approx(
+        kaa_activation_volume_b3(temperature), rel=0.05)
 
 
 def test_zero_temperature_reproduces_the_athermal_run_exactly():
@@ -163,13 +169,6 @@ def test_cli_bad_thermal_key_one_line_exit_2(tmp_path, key, value, dotted):
     path = tmp_path / "bad.toml"
     path.write_text(toml_case(**{"temperature_K": 300.0, key: value}), encoding="utf-8")
     assert_one_line_error(run_cli(path, tmp_path), "bad.toml", f"`{dotted}`")
-
-
-def test_cli_thermal_on_the_nodal_solver_one_line_exit_2(tmp_path):
-    path = tmp_path / "nodal.toml"
-    path.write_text(toml_case(temperature_K=300.0) + '[solver]\nmethod = "nodal"\n',
-                    encoding="utf-8")
-    assert_one_line_error(run_cli(path, tmp_path), "`thermal.temperature_K`", "arc solver")
 
 
 def random_case(temperature):
