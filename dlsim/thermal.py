@@ -254,7 +254,7 @@ def nodal_pin_log_rates(line, n, prm, meta, loops, field, work_f, barrier, p, q,
 
 
 @njit(**JIT)
-def drop_loops_behind(line, n, meta, loops, opin):
+def drop_loops_behind(line, n, meta, loops, field):
     """Drop the Orowan loops lying wholly behind the line (every loop node below its lowest
     node), releasing the obstacles they hold; returns how many were dropped.
 
@@ -273,8 +273,8 @@ def drop_loops_behind(line, n, meta, loops, opin):
         a, b = loff[k], loff[k + 1]
         if ly[a:b].max() < ymin:
             for j in range(a, b):
-                if lpin[j] >= 0:
-                    opin[lpin[j]] -= 1
+                if lpin[j] >= 0:      # the hold on the image at the loop node's height
+                    field[3][lpin[j]] -= K._occ_unit(field, lpin[j], ly[j])
             dropped += 1
             continue
         for j in range(a, b):
@@ -339,7 +339,7 @@ def kmc_nodal_events(line, meta, prm, field, loops, work_f, work_i, max_steps, b
         if Q[Q_EVENTS] >= n_ev:
             return K_DONE
         n = meta[C.M_N]
-        drop_loops_behind(line, n, meta, loops, opin)
+        drop_loops_behind(line, n, meta, loops, field)
         c = nodal_pin_log_rates(line, n, prm, meta, loops, field, work_f, barrier, p, q, slots,
                                 lnr)
         for j in range(c):
@@ -349,7 +349,7 @@ def kmc_nodal_events(line, meta, prm, field, loops, work_f, work_i, max_steps, b
             return st
         i = slots[pick]
         o = pin[i]
-        opin[o] -= 1
+        opin[o] -= K._occ_unit(field, o, y[i])
         # only the arms that have just left an obstacle skip it: the line crosses the periodic
         # box again and again, and a node still marked with an obstacle it left events ago
         # would tunnel through that obstacle's image one box height on

@@ -159,37 +159,42 @@ def test_cli_disc_field_runs_thermal_on_the_nodal_line(tmp_path):
     assert math.isfinite(summary["activation_volume_b3"])
 
 
-def naive_drop_loops_behind(y_line, loops, opin):
+def naive_drop_loops_behind(y_line, loops, opin, oy, Ly):
     """NumPy twin of :func:`dlsim.thermal.drop_loops_behind` on a list of (y, pin) loops: those
-    wholly below the line's lowest node go, with their holds on the obstacles."""
+    wholly below the line's lowest node go, with their holds on the obstacle images at their
+    nodes' heights (dlsim.contract.occupancy)."""
     ymin = y_line.min()
     kept = [(ly, lp) for ly, lp in loops if ly.max() >= ymin]
     opin = opin.copy()
     for ly, lp in loops:
         if ly.max() < ymin:
-            np.subtract.at(opin, lp[lp >= 0], 1)
+            opin -= C.occupancy(lp, ly, oy, Ly, opin.size)
     return kept, opin
 
 
 def test_drop_loops_behind_matches_its_twin():
     rng = np.random.default_rng(3)
+    Ly = 40.0                                  # loops one box height apart hold different images
     state = LineState.straight(100.0, 50.0, 10.0)
     state.y[: state.n] += rng.uniform(-5.0, 5.0, state.n)
     loops = [(rng.uniform(lo, lo + 8.0, k), rng.integers(-1, 6, k))
              for lo, k in [(0.0, 5), (42.0, 4), (20.0, 6), (48.0, 3), (10.0, 1)]]
+    oy = rng.uniform(0.0, Ly, 6)
     opin = np.zeros(6, np.int64)
     off = [0]
     for ly, lp in loops:
         a = off[-1]
         state.loop_y[a:a + ly.size], state.loop_pin[a:a + ly.size] = ly, lp
         state.loop_x[a:a + ly.size] = rng.uniform(0.0, 100.0, ly.size)
-        np.add.at(opin, lp[lp >= 0], 1)
+        opin += C.occupancy(lp, ly, oy, Ly, 6)
         off.append(a + ly.size)
     state.loop_off[: len(off)] = off
     state.meta[C.M_NLOOPS], state.meta[C.M_NLOOPNODES] = len(loops), off[-1]
-    kept, want = naive_drop_loops_behind(state.y[: state.n], loops, opin)
+    kept, want = naive_drop_loops_behind(state.y[: state.n], loops, opin, oy, Ly)
     got = opin.copy()
-    dropped = drop_loops_behind(state.line, state.n, state.meta, state.loop_arrays, got)
+    z = np.zeros(6)
+    field = (z, oy, z, got, np.zeros(2, np.int64), np.zeros(0, np.int64), 1, 1, 100.0, Ly)
+    dropped = drop_loops_behind(state.line, state.n, state.meta, state.loop_arrays, field)
     assert dropped == len(loops) - len(kept) > 0 and len(kept) > 0
     assert np.array_equal(got, want)
     assert [(ly.tolist(), lp.tolist()) for ly, lp in kept] == [
