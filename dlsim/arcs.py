@@ -456,13 +456,29 @@ def _prev_pos(W, i):
 
 
 @njit(**JIT)
+def _pin_alpha(W, i):
+    """Chord angle α of pin i, read from the positions of the pin and its two neighbours.
+
+    The events update the tracked α (row PAL) by increments, which can fall behind the positions
+    (seen: 0.023 rad after a release left two pins, the neighbours of one being images of the
+    other, so its force read 3 % low); the tracked value only chooses the turn, α being
+    continuous beyond (0, 2π] where the line has wound round a pin.
+    """
+    PF = W[W_FP]
+    ax, ay = _prev_pos(W, i)
+    bx, by = _next_pos(W, i)
+    geo = _chord_alpha(ax, ay, PF[PX, i], PF[PY, i], bx, by)
+    return geo + 2.0 * math.pi * np.rint((PF[PAL, i] - geo) / (2.0 * math.pi))
+
+
+@njit(**JIT)
 def _pin_phi(W, i, s):
     """Arm angle of pin i at stress s from its chord angle and its two chords."""
     PF = W[W_FP]
     x, y = PF[PX, i], PF[PY, i]
     ax, ay = _prev_pos(W, i)
     bx, by = _next_pos(W, i)
-    return _phi(PF[PAL, i], _dist(x, y, ax, ay), _dist(x, y, bx, by), s)
+    return _phi(_pin_alpha(W, i), _dist(x, y, ax, ay), _dist(x, y, bx, by), s)
 
 
 @njit(**JIT)
@@ -925,7 +941,7 @@ def _pin_event(W, i):
     x, y = PF[PX, i], PF[PY, i]
     ax, ay = _prev_pos(W, i)
     bx, by = _next_pos(W, i)
-    sr = release_stress(PF[PAL, i], W[W_OB][2, PI[PK, i]], _dist(x, y, ax, ay),
+    sr = release_stress(_pin_alpha(W, i), W[W_OB][2, PI[PK, i]], _dist(x, y, ax, ay),
                         _dist(x, y, bx, by))
     EP[EKIND, e], EP[EVER, e] = EV_RELEASE, PI[PVER, i]
     if sr == np.inf:

@@ -34,3 +34,16 @@ def test_nodal_line_agrees_with_arc_construction(kind, angle, seed):
     nodal, _, crossings = solve(case_dict(kind, angle, seed, POINTS, NODE_SPACING, "nodal"))
     assert crossings == 0
     assert nodal / arcs == pytest.approx(1.0, abs=TOLERANCE)
+
+
+@pytest.mark.parametrize("seed", [3, 20])
+def test_small_box_weak_points_where_a_tracked_chord_angle_went_stale(seed):
+    # Boxes of 36 weak points (φc = 150°) hold few pins a period; there the arc construction's
+    # incrementally tracked chord angle of a pin fell behind its neighbours' positions and the
+    # arcs read 13 % (seed 3) and 11 % (seed 20) above the nodal line, whose value the exact
+    # two-arc geometry of its pinned configuration confirms (Foreman & Makin's construction;
+    # the chord angle is now read from the positions, docs/physics.md, "The arc solver").
+    arcs, _, _ = solve(case_dict("random", 150.0, seed, 36, NODE_SPACING, "arcs"))
+    nodal, _, crossings = solve(case_dict("random", 150.0, seed, 36, NODE_SPACING, "nodal"))
+    assert crossings == 0
+    assert nodal / arcs == pytest.approx(1.0, abs=TOLERANCE)
