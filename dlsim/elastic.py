@@ -31,9 +31,17 @@ On a straight segment write ``R = s t + d n`` (``n = ẑ × t``, ``s = R·t``, `
     Fseg(s) = c w [k0 u + a² u³/(8π)] + d v [c² (2 + 2a²/ρ² + q)/(8π) + w²/(4π(1-ν))],
     k0 = -ν/(4π(1-ν)),
 
-and the segment from node A to node B contributes ``τ = Fseg(s_A) - Fseg(s_B)``.  Only one square
-root (shared by the two segments meeting at a node) and one division per pair (it yields 1/R_a at
-both ends and 1/ρ²): no transcendental call in the pair loop.  For a → 0 and an infinite line this is ``(c² + w²/(1-ν))/(2π d)``.
+and the segment from node A to node B contributes ``τ = Fseg(s_A) - Fseg(s_B)``.  For a → 0 and an
+infinite line this is ``(c² + w²/(1-ν))/(2π d)``.  The pair loop evaluates the difference regrouped
+(using ``v_A - v_B = P/ρ²`` and ``u_A² v_A - u_B² v_B = Q/ρ²``) as
+
+    τ = F1 (u_A - u_B) + F2 (u_A³ - u_B³) + (d/ρ²) [P (E1 + E2/ρ²) + E3 Q],
+    P = s_A u_A - s_B u_B,  Q = s_A u_A³ - s_B u_B³,
+
+with the per-segment weights ``F1 = c w k0``, ``F2 = c w a²/(8π)``, ``E1 = 2c²/(8π) + w²/(4π(1-ν))``,
+``E2 = 2a² c²/(8π)``, ``E3 = a² c²/(8π)`` computed once per call.  Per pair that is one square root
+(at the node, shared by the two segments meeting there) and one division (it yields 1/R_a at both
+ends and 1/ρ²): no transcendental call in the pair loop.
 
 Local part (the node's own two arms)
 ------------------------------------
@@ -84,56 +92,61 @@ import numpy as np
 from numba import njit, prange
 
 from dlsim.geometry import neighbours
-from dlsim.jit import JIT, JIT_PARALLEL
+from dlsim.jit import JIT, JIT_FMA, JIT_PARALLEL, JIT_SUM
 
 INV_4PI = 1.0 / (4.0 * np.pi)
 INV_8PI = 1.0 / (8.0 * np.pi)
 #: Target nodes are dealt to this many interleaved blocks (prange runs over blocks): enough to
 #: balance any common thread count, few enough that each block's scratch allocation is free.
 TARGET_BLOCKS = 64
+# Rows of a chain's segment table (structure of arrays).  Column j holds node j and the segment
+# from node j to node j + 1; the last column only its node.  Weights of the pair term
+# (module notes), with c = t·b, w = (t×b)_z, k0 = -ν/(4π(1-ν)):
+S_X, S_Y = 0, 1             # node position (b)
+S_TX, S_TY, S_L = 2, 3, 4   # unit tangent and length (b) of the segment
+S_F1, S_F2 = 5, 6           # c w k0, c w a²/(8π)
+S_E1, S_E2, S_E3 = 7, 8, 9  # 2c²/(8π) + w²/(4π(1-ν)), 2a² c²/(8π), a² c²/(8π)
+SEG_ROWS = 10
 
 
 # ------------------------------------------------------------------------------------------------
 # geometry and per-segment constants
 # ------------------------------------------------------------------------------------------------
-@njit(**JIT)
-def _extend(x, y, n, shift, xe, ye):
-    """Copy nodes 0..n-1 into xe, ye and append node n = node 0 shifted by (shift, 0)."""
-    for j in range(n):
-        xe[j] = x[j]
-        ye[j] = y[j]
-    xe[n] = x[0] + shift
-    ye[n] = y[0]
+@njit(**JIT, inline="always")
+def _weights(c, w, nu, a2):
+    """The five character weights of the pair term (rows S_F1 .. S_E3) of a segment."""
+    cw = c * w
+    cb = c * c * INV_8PI
+    return (-cw * nu * INV_4PI / (1.0 - nu), cw * a2 * INV_8PI,
+            2.0 * cb + w * w * INV_4PI / (1.0 - nu), 2.0 * a2 * cb, a2 * cb)
 
 
 @njit(**JIT)
-def _segment_constants(xe, ye, j0, j1, bx, by, nu, tx, ty, sl, ca, cb, cc):
-    """Unit tangent, length and the three character weights of segments j0..j1-1 (node j to j+1).
-
-    ``ca = c w``, ``cb = c²/(8π)``, ``cc = w²/(4π(1-ν))`` with ``c = t·b``, ``w = (t×b)_z``.
-    """
+def _fill_segments(seg, j0, j1, bx, by, nu, a2):
+    """Tangent, length and weights of segments j0..j1-1 from the nodes in rows S_X, S_Y."""
     for j in range(j0, j1):
-        sx = xe[j + 1] - xe[j]
-        sy = ye[j + 1] - ye[j]
+        sx = seg[S_X, j + 1] - seg[S_X, j]
+        sy = seg[S_Y, j + 1] - seg[S_Y, j]
         h = np.sqrt(sx * sx + sy * sy)
         ux = sx / h
         uy = sy / h
-        c = ux * bx + uy * by
-        w = ux * by - uy * bx
-        tx[j] = ux
-        ty[j] = uy
-        sl[j] = h
-        ca[j] = c * w
-        cb[j] = c * c * INV_8PI
-        cc[j] = w * w * INV_4PI / (1.0 - nu)
+        f1, f2, e1, e2, e3 = _weights(ux * bx + uy * by, ux * by - uy * bx, nu, a2)
+        seg[S_TX, j] = ux
+        seg[S_TY, j] = uy
+        seg[S_L, j] = h
+        seg[S_F1, j] = f1
+        seg[S_F2, j] = f2
+        seg[S_E1, j] = e1
+        seg[S_E2, j] = e2
+        seg[S_E3, j] = e3
 
 
-@njit(**JIT, inline="always")
-def _pair_term(dx, dy, tx, ty, sl, ra, rb, ca, cb, cc, a2, k0):
+@njit(**JIT_FMA, inline="always")
+def _pair_term(dx, dy, tx, ty, sl, ra, rb, f1, f2, e1, e2, e3, a2):
     """Fseg(s_A) - Fseg(s_B) of one segment; (dx, dy) = target - node A, ra, rb = R_a at A, B.
 
-    One division gives all three reciprocals 1/R_a(A), 1/R_a(B) and 1/ρ² (the divider is the
-    bottleneck of the pair loop).
+    The regrouped difference of the module notes.  One division gives all three reciprocals
+    1/R_a(A), 1/R_a(B) and 1/ρ² (the divider is the bottleneck of the pair loop).
     """
     d = tx * dy - ty * dx
     sa = tx * dx + ty * dy
@@ -141,16 +154,15 @@ def _pair_term(dx, dy, tx, ty, sl, ra, rb, ca, cb, cc, a2, k0):
     rho2 = d * d + a2
     rab = ra * rb
     inv = 1.0 / (rho2 * rab)
-    ua = inv * rho2 * rb
-    ub = inv * rho2 * ra
+    g = inv * rho2
+    ua = g * rb
+    ub = g * ra
     ir = inv * rab
-    qa = a2 * ua * ua
-    qb = a2 * ub * ub
-    va = sa * ua * ir
-    vb = sb * ub * ir
-    dv = va - vb
-    return (ca * (k0 * (ua - ub) + (qa * ua - qb * ub) * INV_8PI)
-            + d * (cb * ((2.0 + 2.0 * a2 * ir) * dv + qa * va - qb * vb) + cc * dv))
+    ua3 = ua * ua * ua
+    ub3 = ub * ub * ub
+    p = sa * ua - sb * ub
+    q = sa * ua3 - sb * ub3
+    return f1 * (ua - ub) + f2 * (ua3 - ub3) + d * ir * (p * (e1 + e2 * ir) + e3 * q)
 
 
 @njit(**JIT)
@@ -174,7 +186,7 @@ def segment_stress(px, py, xa, ya, xb, yb, theta0, nu, a_core):
                            a_core * a_core)
 
 
-@njit(**JIT)
+@njit(**JIT_FMA)
 def _segment_stress(px, py, xa, ya, xb, yb, bx, by, nu, a2):
     """:func:`segment_stress` with b = (bx, by) and a² given."""
     sx = xb - xa
@@ -184,61 +196,56 @@ def _segment_stress(px, py, xa, ya, xb, yb, bx, by, nu, a2):
         return 0.0
     tx = sx / h
     ty = sy / h
-    c = tx * bx + ty * by
-    w = tx * by - ty * bx
+    f1, f2, e1, e2, e3 = _weights(tx * bx + ty * by, tx * by - ty * bx, nu, a2)
     dax = px - xa
     day = py - ya
     dbx = px - xb
     dby = py - yb
     ra = np.sqrt(dax * dax + day * day + a2)
     rb = np.sqrt(dbx * dbx + dby * dby + a2)
-    return _pair_term(dax, day, tx, ty, h, ra, rb, c * w, c * c * INV_8PI,
-                      w * w * INV_4PI / (1.0 - nu), a2, -nu * INV_4PI / (1.0 - nu))
+    return _pair_term(dax, day, tx, ty, h, ra, rb, f1, f2, e1, e2, e3, a2)
 
 
-@njit(**JIT)
-def _chain_sum(px, py, xe, ye, j0, j1, tx, ty, sl, ca, cb, cc, a2, k0, uu, tmp):
-    """Resolved shear at (px, py) from segments j0..j1-1 of a chain (Fseg(s_A) - Fseg(s_B)).
+@njit(**JIT_FMA)
+def _chain_sum(px, py, seg, j0, j1, a2, rr, tt):
+    """Resolved shear at (px, py) from segments j0..j1-1 of a segment table (Fseg(s_A) - Fseg(s_B)).
 
-    Works on views starting at j0, so that every index is provably non-negative and LLVM
-    vectorises the first two loops (numba's negative-index wrap-around otherwise defeats it)
-    without reordering any sum: regularised distances R_a at the nodes (one square root per
-    node, shared by two segments), the segment terms, then a sum with four interleaved partial sums (fixed
-    order, the same for any thread count).
+    Three vectorised passes over row views that start at j0 (every index provably non-negative,
+    so numba's wrap-around of negative indices does not defeat LLVM's vectoriser): the
+    regularised distances R_a at the nodes into ``rr`` (one square root per node, shared by its
+    two segments), the segment terms into ``tt``, then their fixed-order sum.
     """
     m = j1 - j0
-    xs = xe[j0:j1 + 1]
-    ys = ye[j0:j1 + 1]
-    us = uu[: m + 1]
+    xs = seg[S_X, j0:j1 + 1]
+    ys = seg[S_Y, j0:j1 + 1]
+    rs = rr[:m + 1]
     for j in range(m + 1):
         dx = px - xs[j]
         dy = py - ys[j]
-        us[j] = np.sqrt(dx * dx + dy * dy + a2)
-    txs = tx[j0:j1]
-    tys = ty[j0:j1]
-    sls = sl[j0:j1]
-    cas = ca[j0:j1]
-    cbs = cb[j0:j1]
-    ccs = cc[j0:j1]
-    ts = tmp[:m]
+        rs[j] = np.sqrt(dx * dx + dy * dy + a2)
+    tx = seg[S_TX, j0:j1]
+    ty = seg[S_TY, j0:j1]
+    sl = seg[S_L, j0:j1]
+    f1 = seg[S_F1, j0:j1]
+    f2 = seg[S_F2, j0:j1]
+    e1 = seg[S_E1, j0:j1]
+    e2 = seg[S_E2, j0:j1]
+    e3 = seg[S_E3, j0:j1]
+    ts = tt[:m]
     for j in range(m):
-        ts[j] = _pair_term(px - xs[j], py - ys[j], txs[j], tys[j], sls[j], us[j], us[j + 1],
-                           cas[j], cbs[j], ccs[j], a2, k0)
-    s0 = 0.0
-    s1 = 0.0
-    s2 = 0.0
-    s3 = 0.0
-    j = 0
-    while j + 4 <= m:
-        s0 += ts[j]
-        s1 += ts[j + 1]
-        s2 += ts[j + 2]
-        s3 += ts[j + 3]
-        j += 4
-    while j < m:
-        s0 += ts[j]
-        j += 1
-    return (s0 + s1) + (s2 + s3)
+        ts[j] = _pair_term(px - xs[j], py - ys[j], tx[j], ty[j], sl[j], rs[j], rs[j + 1],
+                           f1[j], f2[j], e1[j], e2[j], e3[j], a2)
+    return _lane_sum(ts, m)
+
+
+@njit(**JIT_SUM)
+def _lane_sum(ts, m):
+    """Σ ts[:m].  JIT_SUM lets LLVM split the sum into vector partial sums: the order depends on
+    m only, so the result is the same on every call and for any thread count."""
+    s = 0.0
+    for j in range(m):
+        s += ts[j]
+    return s
 
 
 @njit(**JIT)
@@ -375,108 +382,103 @@ def mean_height(x, y, n, Lx):
 # self-stress of the periodic line
 # ------------------------------------------------------------------------------------------------
 @njit(**JIT)
-def _window(i, n, xe, Lx, n_images, cutoff, tx, sl):
+def _window(i, n, seg, Lx, n_images, cutoff):
     """Global segment range [g_lo, g_hi) summed exactly for target node i (module notes)."""
     half = n_images * n + n // 2
     g_lo = i - half
     g_hi = g_lo + (2 * n_images + 1) * n
     if cutoff <= 0.0:
         return g_lo, g_hi
-    xi = xe[i]
+    xi = seg[S_X, i]
     g = i
-    while g < g_hi:
-        k = g // n
-        j = g - k * n
-        if abs(xe[j] + 0.5 * tx[j] * sl[j] + k * Lx - xi) > cutoff:
-            break
+    while g < g_hi and abs(_midpoint_x(seg, g, n, Lx) - xi) <= cutoff:
         g += 1
     hi = g
     g = i - 1
-    while g >= g_lo:
-        k = g // n
-        j = g - k * n
-        if abs(xe[j] + 0.5 * tx[j] * sl[j] + k * Lx - xi) > cutoff:
-            break
+    while g >= g_lo and abs(_midpoint_x(seg, g, n, Lx) - xi) <= cutoff:
         g -= 1
     return g + 1, hi
 
 
+@njit(**JIT, inline="always")
+def _midpoint_x(seg, g, n, Lx):
+    """x of the midpoint of global segment g (segment g mod n of period g // n)."""
+    k = g // n
+    j = g - k * n
+    return seg[S_X, j] + 0.5 * seg[S_TX, j] * seg[S_L, j] + k * Lx
+
+
 @njit(**JIT)
-def _self_stress_target(i, x, y, n, Lx, bx, by, nu, a2, n_images, cutoff, ybar,
-                        xe, ye, tx, ty, sl, ca, cb, cc, uu, tmp):
-    """τ_self at node i of the periodic line: window sum, straight remainder, arc correction."""
-    k0 = -nu * INV_4PI / (1.0 - nu)
-    px = xe[i]
-    py = ye[i]
-    g_lo, g_hi = _window(i, n, xe, Lx, n_images, cutoff, tx, sl)
+def _self_stress_target(i, line, n_images, cutoff, rr, tt):
+    """τ_self at node i of the periodic line: window sum, straight remainder, arc correction.
+
+    ``line`` is the tuple of :func:`_prepare_self_stress`; rr, tt are scratch of n + 1.
+    """
+    seg, n, Lx, bx, by, nu, a2, ybar = line
+    px = seg[S_X, i]
+    py = seg[S_Y, i]
+    g_lo, g_hi = _window(i, n, seg, Lx, n_images, cutoff)
     total = 0.0
-    k_first = g_lo // n
-    k_last = (g_hi - 1) // n
-    for k in range(k_first, k_last + 1):
-        j0 = max(g_lo - k * n, 0)
-        j1 = min(g_hi - k * n, n)
-        total += _chain_sum(px - k * Lx, py, xe, ye, j0, j1, tx, ty, sl, ca, cb, cc, a2, k0,
-                            uu, tmp)
+    for k in range(g_lo // n, (g_hi - 1) // n + 1):
+        total += _chain_sum(px - k * Lx, py, seg, max(g_lo - k * n, 0), min(g_hi - k * n, n),
+                            a2, rr, tt)
     k = g_lo // n
-    x_lo = xe[g_lo - k * n] + k * Lx
-    y_lo = ye[g_lo - k * n]
+    x_lo = seg[S_X, g_lo - k * n] + k * Lx
+    y_lo = seg[S_Y, g_lo - k * n]
     k = g_hi // n
-    x_hi = xe[g_hi - k * n] + k * Lx
-    y_hi = ye[g_hi - k * n]
+    x_hi = seg[S_X, g_hi - k * n] + k * Lx
+    y_hi = seg[S_Y, g_hi - k * n]
     total += _remainder(px, py, x_lo, y_lo, x_hi, y_hi, ybar, bx, by, nu, a2)
     if i == 0:
-        xm = x[n - 1] - Lx
-        ym = y[n - 1]
+        xm = seg[S_X, n - 1] - Lx
+        ym = seg[S_Y, n - 1]
     else:
-        xm = xe[i - 1]
-        ym = ye[i - 1]
-    total += _arc_correction(xm, ym, px, py, xe[i + 1], ye[i + 1], bx, by, nu, a2)
+        xm = seg[S_X, i - 1]
+        ym = seg[S_Y, i - 1]
+    total += _arc_correction(xm, ym, px, py, seg[S_X, i + 1], seg[S_Y, i + 1], bx, by, nu, a2)
     return total
 
 
 @njit(**JIT)
-def _chain_arrays(m):
-    """Scratch for m extended nodes: positions and the per-segment constants (one slot spare)."""
-    return (np.empty(m), np.empty(m), np.empty(m), np.empty(m), np.empty(m), np.empty(m),
-            np.empty(m), np.empty(m))
+def _prepare_line(x, y, n, shift, theta0, nu, a_core):
+    """Segment table of a chain of n nodes plus node n = node 0 shifted by (shift, 0).
 
-
-@njit(**JIT)
-def _prepare_line(x, y, n, shift, theta0, nu):
-    """Extended nodes and per-segment constants of a chain (shift = Lx periodic, 0 closed)."""
+    ``shift`` is Lx for the periodic line, 0 for a closed loop.  Returns (table, bx, by).
+    """
     bx = np.cos(theta0)
     by = np.sin(theta0)
-    xe, ye, tx, ty, sl, ca, cb, cc = _chain_arrays(n + 1)
-    _extend(x, y, n, shift, xe, ye)
-    _segment_constants(xe, ye, 0, n, bx, by, nu, tx, ty, sl, ca, cb, cc)
-    return bx, by, xe, ye, tx, ty, sl, ca, cb, cc
+    seg = np.empty((SEG_ROWS, n + 1))
+    for j in range(n):
+        seg[S_X, j] = x[j]
+        seg[S_Y, j] = y[j]
+    seg[S_X, n] = x[0] + shift
+    seg[S_Y, n] = y[0]
+    _fill_segments(seg, 0, n, bx, by, nu, a_core * a_core)
+    return seg, bx, by
 
 
 @njit(**JIT)
-def _self_stress_block(blk, n_blocks, x, y, n, Lx, theta0, nu, a_core, n_images, cutoff, prep,
-                       out):
+def _prepare_self_stress(x, y, n, Lx, theta0, nu, a_core):
+    """Per-call constants of :func:`self_stress` (the line tuple) and the block count."""
+    seg, bx, by = _prepare_line(x, y, n, Lx, theta0, nu, a_core)
+    line = (seg, n, Lx, bx, by, nu, a_core * a_core, mean_height(x, y, n, Lx))
+    return line, min(n, TARGET_BLOCKS)
+
+
+@njit(**JIT)
+def _self_stress_block(blk, n_blocks, line, n_images, cutoff, out):
     """Targets ``blk, blk + n_blocks, ...``: one scratch allocation per block, out[i] per target."""
-    bx, by, xe, ye, tx, ty, sl, ca, cb, cc, ybar = prep
-    uu = np.empty(n + 1)
-    tmp = np.empty(n)
+    n = line[1]
+    rr = np.empty(n + 1)
+    tt = np.empty(n + 1)
     for i in range(blk, n, n_blocks):
-        out[i] = _self_stress_target(i, x, y, n, Lx, bx, by, nu, a_core * a_core, n_images,
-                                     cutoff, ybar, xe, ye, tx, ty, sl, ca, cb, cc, uu, tmp)
-
-
-@njit(**JIT)
-def _prepare_self_stress(x, y, n, Lx, theta0, nu):
-    """Per-call constants of :func:`self_stress` (segments, b, mean height) and the block count."""
-    bx, by, xe, ye, tx, ty, sl, ca, cb, cc = _prepare_line(x, y, n, Lx, theta0, nu)
-    ybar = mean_height(x, y, n, Lx)
-    return (bx, by, xe, ye, tx, ty, sl, ca, cb, cc, ybar), min(n, TARGET_BLOCKS)
+        out[i] = _self_stress_target(i, line, n_images, cutoff, rr, tt)
 
 
 def _self_stress_impl(x, y, n, Lx, theta0, nu, a_core, n_images, cutoff, out):
-    prep, n_blocks = _prepare_self_stress(x, y, n, Lx, theta0, nu)
+    line, n_blocks = _prepare_self_stress(x, y, n, Lx, theta0, nu, a_core)
     for blk in prange(n_blocks):
-        _self_stress_block(np.int64(blk), n_blocks, x, y, n, Lx, theta0, nu, a_core, n_images,
-                           cutoff, prep, out)
+        _self_stress_block(np.int64(blk), n_blocks, line, n_images, cutoff, out)
 
 
 _SELF_STRESS_DOC = """Non-singular elastic self-stress of the periodic line at its nodes.
@@ -519,10 +521,9 @@ self_stress.__doc__ = _SELF_STRESS_DOC
 
 
 def _self_stress_serial_impl(x, y, n, Lx, theta0, nu, a_core, n_images, cutoff, out):
-    prep, n_blocks = _prepare_self_stress(x, y, n, Lx, theta0, nu)
+    line, n_blocks = _prepare_self_stress(x, y, n, Lx, theta0, nu, a_core)
     for blk in range(n_blocks):
-        _self_stress_block(np.int64(blk), n_blocks, x, y, n, Lx, theta0, nu, a_core, n_images,
-                           cutoff, prep, out)
+        _self_stress_block(np.int64(blk), n_blocks, line, n_images, cutoff, out)
 
 
 self_stress_serial = njit(**JIT)(_self_stress_serial_impl)
@@ -541,16 +542,25 @@ def _closed_neighbours(x, y, n, i):
     return x[im], y[im], x[ip], y[ip]
 
 
-def _loop_self_stress_impl(x, y, n, theta0, nu, a_core, out):
-    bx, by, xe, ye, tx, ty, sl, ca, cb, cc = _prepare_line(x, y, n, 0.0, theta0, nu)
-    a2 = a_core * a_core
-    k0 = -nu * INV_4PI / (1.0 - nu)
-    for i in prange(n):
-        uu = np.empty(n + 1)
-        tmp = np.empty(n)
+@njit(**JIT)
+def _loop_self_stress_block(blk, n_blocks, x, y, n, loop, out):
+    """Targets ``blk, blk + n_blocks, ...`` of :func:`loop_self_stress` (loop = (seg, bx, by,
+    nu, a²))."""
+    seg, bx, by, nu, a2 = loop
+    rr = np.empty(n + 1)
+    tt = np.empty(n + 1)
+    for i in range(blk, n, n_blocks):
         xm, ym, xp, yp = _closed_neighbours(x, y, n, i)
-        out[i] = (_chain_sum(x[i], y[i], xe, ye, 0, n, tx, ty, sl, ca, cb, cc, a2, k0, uu, tmp)
+        out[i] = (_chain_sum(x[i], y[i], seg, 0, n, a2, rr, tt)
                   + _arc_correction(xm, ym, x[i], y[i], xp, yp, bx, by, nu, a2))
+
+
+def _loop_self_stress_impl(x, y, n, theta0, nu, a_core, out):
+    seg, bx, by = _prepare_line(x, y, n, 0.0, theta0, nu, a_core)
+    loop = (seg, bx, by, nu, a_core * a_core)
+    n_blocks = min(n, TARGET_BLOCKS)
+    for blk in prange(n_blocks):
+        _loop_self_stress_block(np.int64(blk), n_blocks, x, y, n, loop, out)
 
 
 loop_self_stress = njit(**JIT_PARALLEL)(_loop_self_stress_impl)
@@ -576,12 +586,11 @@ loop_self_stress.__doc__ = """Non-singular self-stress at the nodes of one close
 
 
 @njit(**JIT)
-def _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu):
-    """Closed, extended copies of every loop (n_l + 1 nodes each) and their segment constants."""
+def _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu, a_core):
+    """One segment table of every loop, closed (n_l + 1 columns each), and the loops' starts."""
     bx = np.cos(theta0)
     by = np.sin(theta0)
-    xe, ye, tx, ty, sl, ca, cb, cc = _chain_arrays(loop_offsets[n_loops] - loop_offsets[0]
-                                                   + n_loops)
+    seg = np.empty((SEG_ROWS, loop_offsets[n_loops] - loop_offsets[0] + n_loops))
     starts = np.empty(n_loops + 1, dtype=np.int64)
     e = 0
     for k in range(n_loops):
@@ -589,26 +598,31 @@ def _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu):
         lo = loop_offsets[k]
         nl = loop_offsets[k + 1] - lo
         for j in range(nl):
-            xe[e + j] = loop_x[lo + j]
-            ye[e + j] = loop_y[lo + j]
-        xe[e + nl] = loop_x[lo]
-        ye[e + nl] = loop_y[lo]
-        _segment_constants(xe, ye, e, e + nl, bx, by, nu, tx, ty, sl, ca, cb, cc)
+            seg[S_X, e + j] = loop_x[lo + j]
+            seg[S_Y, e + j] = loop_y[lo + j]
+        seg[S_X, e + nl] = loop_x[lo]
+        seg[S_Y, e + nl] = loop_y[lo]
+        _fill_segments(seg, e, e + nl, bx, by, nu, a_core * a_core)
         e += nl + 1
     starts[n_loops] = e
-    return xe, ye, tx, ty, sl, ca, cb, cc, starts
+    return seg, starts
 
 
 @njit(**JIT)
-def _loop_stress_target(px, py, Lx, n_images, n_loops, prep, a2, k0, uu, tmp):
-    """Resolved shear at (px, py) from every loop and its images (``prep``: _prepare_loops)."""
-    xe, ye, tx, ty, sl, ca, cb, cc, starts = prep
-    total = 0.0
-    for k in range(-n_images, n_images + 1):
-        for lp in range(n_loops):
-            total += _chain_sum(px - k * Lx, py, xe, ye, starts[lp], starts[lp + 1] - 1,
-                                tx, ty, sl, ca, cb, cc, a2, k0, uu, tmp)
-    return total
+def _loop_stress_block(blk, n_blocks, x, y, n, Lx, n_images, n_loops, loops, a2, out):
+    """Targets ``blk, blk + n_blocks, ...`` of :func:`loop_stress`: every loop and its images
+    (``loops``: _prepare_loops), one scratch allocation per block."""
+    seg, starts = loops
+    m = seg.shape[1]
+    rr = np.empty(m)
+    tt = np.empty(m)
+    for i in range(blk, n, n_blocks):
+        total = 0.0
+        for k in range(-n_images, n_images + 1):
+            for lp in range(n_loops):
+                total += _chain_sum(x[i] - k * Lx, y[i], seg, starts[lp], starts[lp + 1] - 1,
+                                    a2, rr, tt)
+        out[i] = total
 
 
 # Two Python functions, not two dispatchers of one: numba's on-disk cache names an entry after
@@ -617,24 +631,17 @@ def _loop_stress_target(px, py, Lx, n_images, n_loops, prep, a2, k0, uu, tmp):
 # dispatcher").
 def _loop_stress_impl(x, y, n, loop_x, loop_y, loop_offsets, n_loops, Lx, theta0, nu, a_core,
                       n_images, out):
-    prep = _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu)
-    a2 = a_core * a_core
-    k0 = -nu * INV_4PI / (1.0 - nu)
-    m = prep[0].shape[0]
-    for i in prange(n):
-        out[i] = _loop_stress_target(x[i], y[i], Lx, n_images, n_loops, prep, a2, k0,
-                                     np.empty(m), np.empty(m))
+    loops = _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu, a_core)
+    n_blocks = min(n, TARGET_BLOCKS)
+    for blk in prange(n_blocks):
+        _loop_stress_block(np.int64(blk), n_blocks, x, y, n, Lx, n_images, n_loops, loops,
+                           a_core * a_core, out)
 
 
 def _loop_stress_serial_impl(x, y, n, loop_x, loop_y, loop_offsets, n_loops, Lx, theta0, nu,
                              a_core, n_images, out):
-    prep = _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu)
-    a2 = a_core * a_core
-    k0 = -nu * INV_4PI / (1.0 - nu)
-    m = prep[0].shape[0]
-    uu, tmp = np.empty(m), np.empty(m)
-    for i in range(n):
-        out[i] = _loop_stress_target(x[i], y[i], Lx, n_images, n_loops, prep, a2, k0, uu, tmp)
+    loops = _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu, a_core)
+    _loop_stress_block(0, 1, x, y, n, Lx, n_images, n_loops, loops, a_core * a_core, out)
 
 
 loop_stress = njit(**JIT_PARALLEL)(_loop_stress_impl)
