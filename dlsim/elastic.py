@@ -100,13 +100,15 @@ INV_8PI = 1.0 / (8.0 * np.pi)
 #: balance any common thread count, few enough that each block's scratch allocation is free.
 TARGET_BLOCKS = 64
 # Rows of a chain's segment table (structure of arrays).  Column j holds node j and the segment
-# from node j to node j + 1; the last column only its node.  Weights of the pair term
-# (module notes), with c = t·b, w = (t×b)_z, k0 = -ν/(4π(1-ν)):
-S_X, S_Y = 0, 1             # node position (b)
-S_TX, S_TY, S_L = 2, 3, 4   # unit tangent and length (b) of the segment
-S_F1, S_F2 = 5, 6           # c w k0, c w a²/(8π)
-S_E1, S_E2, S_E3 = 7, 8, 9  # 2c²/(8π) + w²/(4π(1-ν)), 2a² c²/(8π), a² c²/(8π)
-SEG_ROWS = 10
+# from node j to node j + 1; the last column only its node.  A node of a periodic image lies at
+# S_X + S_SH: the pair loops subtract the shift from the target first, so that its rounding moves
+# the target against the whole image rigidly instead of each node by its own error.  Weights of
+# the pair term (module notes), with c = t·b, w = (t×b)_z, k0 = -ν/(4π(1-ν)):
+S_X, S_Y, S_SH = 0, 1, 2     # node position (b) and the image shift k Lx added to x (b)
+S_TX, S_TY, S_L = 3, 4, 5    # unit tangent and length (b) of the segment
+S_F1, S_F2 = 6, 7            # c w k0, c w a²/(8π)
+S_E1, S_E2, S_E3 = 8, 9, 10  # 2c²/(8π) + w²/(4π(1-ν)), 2a² c²/(8π), a² c²/(8π)
+SEG_ROWS = 11
 
 
 # ------------------------------------------------------------------------------------------------
@@ -206,36 +208,60 @@ def _segment_stress(px, py, xa, ya, xb, yb, bx, by, nu, a2):
     return _pair_term(dax, day, tx, ty, h, ra, rb, f1, f2, e1, e2, e3, a2)
 
 
+# ------------------------------------------------------------------------------------------------
+# pair sums over chains of segments
+# ------------------------------------------------------------------------------------------------
 @njit(**JIT_FMA)
-def _chain_sum(px, py, seg, j0, j1, a2, rr, tt):
-    """Resolved shear at (px, py) from segments j0..j1-1 of a segment table (Fseg(s_A) - Fseg(s_B)).
-
-    Three vectorised passes over row views that start at j0 (every index provably non-negative,
-    so numba's wrap-around of negative indices does not defeat LLVM's vectoriser): the
-    regularised distances R_a at the nodes into ``rr`` (one square root per node, shared by its
-    two segments), the segment terms into ``tt``, then their fixed-order sum.
-    """
-    m = j1 - j0
-    xs = seg[S_X, j0:j1 + 1]
-    ys = seg[S_Y, j0:j1 + 1]
-    rs = rr[:m + 1]
-    for j in range(m + 1):
-        dx = px - xs[j]
+def _distances(px, py, seg, c0, m, a2, rs):
+    """rs[j] = R_a from (px, py) to the node in column c0 + j of the table, j < m."""
+    xs = seg[S_X, c0:c0 + m]
+    ys = seg[S_Y, c0:c0 + m]
+    sh = seg[S_SH, c0:c0 + m]
+    for j in range(m):
+        dx = (px - sh[j]) - xs[j]
         dy = py - ys[j]
         rs[j] = np.sqrt(dx * dx + dy * dy + a2)
-    tx = seg[S_TX, j0:j1]
-    ty = seg[S_TY, j0:j1]
-    sl = seg[S_L, j0:j1]
-    f1 = seg[S_F1, j0:j1]
-    f2 = seg[S_F2, j0:j1]
-    e1 = seg[S_E1, j0:j1]
-    e2 = seg[S_E2, j0:j1]
-    e3 = seg[S_E3, j0:j1]
-    ts = tt[:m]
+
+
+@njit(**JIT, inline="always")
+def _columns(seg, c0, m):
+    """Views of every row of the table over columns c0 .. c0 + m - 1 (X, Y, SH, TX .. E3).
+
+    Views that start at c0 keep every index of the loops provably non-negative, so numba's
+    wrap-around of negative indices does not defeat LLVM's vectoriser.
+    """
+    e = c0 + m
+    return (seg[S_X, c0:e], seg[S_Y, c0:e], seg[S_SH, c0:e], seg[S_TX, c0:e], seg[S_TY, c0:e],
+            seg[S_L, c0:e], seg[S_F1, c0:e], seg[S_F2, c0:e], seg[S_E1, c0:e], seg[S_E2, c0:e],
+            seg[S_E3, c0:e])
+
+
+@njit(**JIT_FMA)
+def _terms(px, py, seg, c0, m, a2, rs, ts):
+    """ts[j] = pair term at (px, py) of the segment in column c0 + j, j < m (rs[j] = R_a at its
+    start node, rs[j + 1] at its end)."""
+    xs, ys, sh, tx, ty, sl, f1, f2, e1, e2, e3 = _columns(seg, c0, m)
     for j in range(m):
-        ts[j] = _pair_term(px - xs[j], py - ys[j], tx[j], ty[j], sl[j], rs[j], rs[j + 1],
-                           f1[j], f2[j], e1[j], e2[j], e3[j], a2)
-    return _lane_sum(ts, m)
+        ts[j] = _pair_term((px - sh[j]) - xs[j], py - ys[j], tx[j], ty[j], sl[j], rs[j],
+                           rs[j + 1], f1[j], f2[j], e1[j], e2[j], e3[j], a2)
+
+
+@njit(**JIT_FMA)
+def _terms_and_distances(p, seg, c0, q, d0, m, a2, rs, ts, rn):
+    """:func:`_terms` of target p = (px, py) and :func:`_distances` of target q to the nodes from
+    column d0 into rn, m of each, in one loop (the software pipeline of :func:`_chains_block`)."""
+    px, py = p
+    qx, qy = q
+    xs, ys, sh, tx, ty, sl, f1, f2, e1, e2, e3 = _columns(seg, c0, m)
+    xq = seg[S_X, d0:d0 + m]
+    yq = seg[S_Y, d0:d0 + m]
+    shq = seg[S_SH, d0:d0 + m]
+    for j in range(m):
+        dx = (qx - shq[j]) - xq[j]
+        dy = qy - yq[j]
+        rn[j] = np.sqrt(dx * dx + dy * dy + a2)
+        ts[j] = _pair_term((px - sh[j]) - xs[j], py - ys[j], tx[j], ty[j], sl[j], rs[j],
+                           rs[j + 1], f1[j], f2[j], e1[j], e2[j], e3[j], a2)
 
 
 @njit(**JIT_SUM)
@@ -246,6 +272,42 @@ def _lane_sum(ts, m):
     for j in range(m):
         s += ts[j]
     return s
+
+
+@njit(**JIT)
+def _chains_block(blk, n_blocks, seg, qx, qy, lo, hi, a2, out):
+    """out[i] = Σ pair terms at target (qx[i], qy[i]) of the table's segments lo[i]..hi[i]-1,
+    for the targets i = blk, blk + n_blocks, ... < len(out) (written, not added).
+
+    Software-pipelined: the pass over the segments of target i also computes the node distances
+    of the block's next target, so that the square roots (for that one) and the divisions of the
+    pair terms (for this one) share a loop and the divider works while the multiply-adds do.
+    Each target's sum is the same as if it were computed alone: the result does not depend on
+    the blocks.
+    """
+    n = out.shape[0]
+    width = 1
+    for i in range(blk, n, n_blocks):
+        width = max(width, hi[i] - lo[i] + 1)
+    rs = np.empty(width)
+    rn = np.empty(width)
+    ts = np.empty(width)
+    if blk < n:
+        _distances(qx[blk], qy[blk], seg, lo[blk], hi[blk] - lo[blk] + 1, a2, rs)
+    for i in range(blk, n, n_blocks):
+        m = hi[i] - lo[i]
+        nxt = i + n_blocks
+        if nxt < n:
+            mq = hi[nxt] - lo[nxt] + 1          # nodes of the next target's window
+            both = min(m, mq)
+            _terms_and_distances((qx[i], qy[i]), seg, lo[i], (qx[nxt], qy[nxt]), lo[nxt], both,
+                                 a2, rs, ts, rn)
+            _terms(qx[i], qy[i], seg, lo[i] + both, m - both, a2, rs[both:], ts[both:])
+            _distances(qx[nxt], qy[nxt], seg, lo[nxt] + both, mq - both, a2, rn[both:])
+        else:
+            _terms(qx[i], qy[i], seg, lo[i], m, a2, rs, ts)
+        out[i] = _lane_sum(ts, m)
+        rs, rn = rn, rs
 
 
 @njit(**JIT)
@@ -382,103 +444,115 @@ def mean_height(x, y, n, Lx):
 # self-stress of the periodic line
 # ------------------------------------------------------------------------------------------------
 @njit(**JIT)
-def _window(i, n, seg, Lx, n_images, cutoff):
-    """Global segment range [g_lo, g_hi) summed exactly for target node i (module notes)."""
-    half = n_images * n + n // 2
-    g_lo = i - half
-    g_hi = g_lo + (2 * n_images + 1) * n
+def _base_table(x, y, n, shift, bx, by, nu, a2):
+    """Segment table of a chain of n nodes closed by node n = node 0 shifted by (shift, 0):
+    shift = Lx for one period of the line, 0 for a closed loop."""
+    seg = np.empty((SEG_ROWS, n + 1))
+    for j in range(n):
+        seg[S_X, j] = x[j]
+        seg[S_Y, j] = y[j]
+        seg[S_SH, j] = 0.0
+    seg[S_X, n] = x[0] + shift
+    seg[S_Y, n] = y[0]
+    seg[S_SH, n] = 0.0
+    _fill_segments(seg, 0, n, bx, by, nu, a2)
+    return seg
+
+
+@njit(**JIT)
+def _unrolled_table(base, n, Lx, g0, cols):
+    """Columns g0 .. g0 + cols - 1 of a chain of period n laid out end to end: column c holds
+    global node g = g0 + c, i.e. node g mod n of ``base`` in image k = g // n (shift k Lx)."""
+    seg = np.empty((SEG_ROWS, cols))
+    for c in range(cols):
+        g = g0 + c
+        k = g // n
+        j = g - k * n
+        for row in range(SEG_ROWS):
+            seg[row, c] = base[row, j]
+        seg[S_SH, c] = k * Lx
+    return seg
+
+
+@njit(**JIT)
+def _window(c, seg, span, cutoff):
+    """Segment columns [lo, hi) summed exactly for the target node in column c (module notes):
+    the ``span`` segments centred on it, cut to those whose midpoints lie within the cutoff."""
+    lo = c - span // 2
+    hi = lo + span
     if cutoff <= 0.0:
-        return g_lo, g_hi
-    xi = seg[S_X, i]
-    g = i
-    while g < g_hi and abs(_midpoint_x(seg, g, n, Lx) - xi) <= cutoff:
+        return lo, hi
+    xi = _node_x(seg, c)
+    g = c
+    while g < hi and abs(_midpoint_x(seg, g) - xi) <= cutoff:
         g += 1
     hi = g
-    g = i - 1
-    while g >= g_lo and abs(_midpoint_x(seg, g, n, Lx) - xi) <= cutoff:
+    g = c - 1
+    while g >= lo and abs(_midpoint_x(seg, g) - xi) <= cutoff:
         g -= 1
     return g + 1, hi
 
 
 @njit(**JIT, inline="always")
-def _midpoint_x(seg, g, n, Lx):
-    """x of the midpoint of global segment g (segment g mod n of period g // n)."""
-    k = g // n
-    j = g - k * n
-    return seg[S_X, j] + 0.5 * seg[S_TX, j] * seg[S_L, j] + k * Lx
+def _node_x(seg, c):
+    """x of the node in column c, image shift included (b)."""
+    return seg[S_X, c] + seg[S_SH, c]
+
+
+@njit(**JIT, inline="always")
+def _midpoint_x(seg, c):
+    """x of the midpoint of the segment in column c, image shift included (b)."""
+    return seg[S_X, c] + 0.5 * seg[S_TX, c] * seg[S_L, c] + seg[S_SH, c]
 
 
 @njit(**JIT)
-def _self_stress_target(i, line, n_images, cutoff, rr, tt):
-    """τ_self at node i of the periodic line: window sum, straight remainder, arc correction.
+def _prepare_self_stress(x, y, n, Lx, theta0, nu, a_core, n_images, cutoff):
+    """Per-call constants of :func:`self_stress`: the line tuple and the windows.
 
-    ``line`` is the tuple of :func:`_prepare_self_stress`; rr, tt are scratch of n + 1.
-    """
-    seg, n, Lx, bx, by, nu, a2, ybar = line
-    px = seg[S_X, i]
-    py = seg[S_Y, i]
-    g_lo, g_hi = _window(i, n, seg, Lx, n_images, cutoff)
-    total = 0.0
-    for k in range(g_lo // n, (g_hi - 1) // n + 1):
-        total += _chain_sum(px - k * Lx, py, seg, max(g_lo - k * n, 0), min(g_hi - k * n, n),
-                            a2, rr, tt)
-    k = g_lo // n
-    x_lo = seg[S_X, g_lo - k * n] + k * Lx
-    y_lo = seg[S_Y, g_lo - k * n]
-    k = g_hi // n
-    x_hi = seg[S_X, g_hi - k * n] + k * Lx
-    y_hi = seg[S_Y, g_hi - k * n]
-    total += _remainder(px, py, x_lo, y_lo, x_hi, y_hi, ybar, bx, by, nu, a2)
-    if i == 0:
-        xm = seg[S_X, n - 1] - Lx
-        ym = seg[S_Y, n - 1]
-    else:
-        xm = seg[S_X, i - 1]
-        ym = seg[S_Y, i - 1]
-    total += _arc_correction(xm, ym, px, py, seg[S_X, i + 1], seg[S_Y, i + 1], bx, by, nu, a2)
-    return total
-
-
-@njit(**JIT)
-def _prepare_line(x, y, n, shift, theta0, nu, a_core):
-    """Segment table of a chain of n nodes plus node n = node 0 shifted by (shift, 0).
-
-    ``shift`` is Lx for the periodic line, 0 for a closed loop.  Returns (table, bx, by).
+    The table unrolls the ``2 n_images + 2`` periods that the targets' windows reach (window of
+    node i: ``(2 n_images + 1) n`` segments centred on it), so every window is one run of columns.
     """
     bx = np.cos(theta0)
     by = np.sin(theta0)
-    seg = np.empty((SEG_ROWS, n + 1))
-    for j in range(n):
-        seg[S_X, j] = x[j]
-        seg[S_Y, j] = y[j]
-    seg[S_X, n] = x[0] + shift
-    seg[S_Y, n] = y[0]
-    _fill_segments(seg, 0, n, bx, by, nu, a_core * a_core)
-    return seg, bx, by
+    a2 = a_core * a_core
+    span = (2 * n_images + 1) * n
+    half = span // 2                    # = n_images n + n // 2
+    seg = _unrolled_table(_base_table(x, y, n, Lx, bx, by, nu, a2), n, Lx, -half, span + n)
+    lo = np.empty(n, dtype=np.int64)
+    hi = np.empty(n, dtype=np.int64)
+    for i in range(n):
+        lo[i], hi[i] = _window(i + half, seg, span, cutoff)
+    return (seg, lo, hi, half, bx, by, nu, a2, mean_height(x, y, n, Lx))
 
 
 @njit(**JIT)
-def _prepare_self_stress(x, y, n, Lx, theta0, nu, a_core):
-    """Per-call constants of :func:`self_stress` (the line tuple) and the block count."""
-    seg, bx, by = _prepare_line(x, y, n, Lx, theta0, nu, a_core)
-    line = (seg, n, Lx, bx, by, nu, a_core * a_core, mean_height(x, y, n, Lx))
-    return line, min(n, TARGET_BLOCKS)
+def _line_ends(i, line):
+    """The part of τ_self at node i beyond its window's pair sum: the straight remainder of the
+    line outside the window and the arc correction of the node's own arms (module notes)."""
+    seg, lo, hi, half, bx, by, nu, a2, ybar = line
+    c = i + half
+    px = _node_x(seg, c)
+    py = seg[S_Y, c]
+    return (_remainder(px, py, _node_x(seg, lo[i]), seg[S_Y, lo[i]], _node_x(seg, hi[i]),
+                       seg[S_Y, hi[i]], ybar, bx, by, nu, a2)
+            + _arc_correction(_node_x(seg, c - 1), seg[S_Y, c - 1], px, py, _node_x(seg, c + 1),
+                              seg[S_Y, c + 1], bx, by, nu, a2))
 
 
 @njit(**JIT)
-def _self_stress_block(blk, n_blocks, line, n_images, cutoff, out):
-    """Targets ``blk, blk + n_blocks, ...``: one scratch allocation per block, out[i] per target."""
-    n = line[1]
-    rr = np.empty(n + 1)
-    tt = np.empty(n + 1)
-    for i in range(blk, n, n_blocks):
-        out[i] = _self_stress_target(i, line, n_images, cutoff, rr, tt)
+def _self_stress_block(blk, n_blocks, x, y, line, out):
+    """τ_self at the targets ``blk, blk + n_blocks, ...`` (out[i] per target only)."""
+    seg, lo, hi = line[0], line[1], line[2]
+    _chains_block(blk, n_blocks, seg, x, y, lo, hi, line[7], out)
+    for i in range(blk, out.shape[0], n_blocks):
+        out[i] += _line_ends(i, line)
 
 
 def _self_stress_impl(x, y, n, Lx, theta0, nu, a_core, n_images, cutoff, out):
-    line, n_blocks = _prepare_self_stress(x, y, n, Lx, theta0, nu, a_core)
+    line = _prepare_self_stress(x, y, n, Lx, theta0, nu, a_core, n_images, cutoff)
+    n_blocks = min(n, TARGET_BLOCKS)
     for blk in prange(n_blocks):
-        _self_stress_block(np.int64(blk), n_blocks, line, n_images, cutoff, out)
+        _self_stress_block(np.int64(blk), n_blocks, x, y, line, out[:n])
 
 
 _SELF_STRESS_DOC = """Non-singular elastic self-stress of the periodic line at its nodes.
@@ -521,9 +595,10 @@ self_stress.__doc__ = _SELF_STRESS_DOC
 
 
 def _self_stress_serial_impl(x, y, n, Lx, theta0, nu, a_core, n_images, cutoff, out):
-    line, n_blocks = _prepare_self_stress(x, y, n, Lx, theta0, nu, a_core)
+    line = _prepare_self_stress(x, y, n, Lx, theta0, nu, a_core, n_images, cutoff)
+    n_blocks = min(n, TARGET_BLOCKS)
     for blk in range(n_blocks):
-        _self_stress_block(np.int64(blk), n_blocks, line, n_images, cutoff, out)
+        _self_stress_block(np.int64(blk), n_blocks, x, y, line, out[:n])
 
 
 self_stress_serial = njit(**JIT)(_self_stress_serial_impl)
@@ -543,24 +618,30 @@ def _closed_neighbours(x, y, n, i):
 
 
 @njit(**JIT)
-def _loop_self_stress_block(blk, n_blocks, x, y, n, loop, out):
-    """Targets ``blk, blk + n_blocks, ...`` of :func:`loop_self_stress` (loop = (seg, bx, by,
-    nu, a²))."""
-    seg, bx, by, nu, a2 = loop
-    rr = np.empty(n + 1)
-    tt = np.empty(n + 1)
+def _whole_chain(n_targets, cols):
+    """Windows of targets that all sum every segment of a table of ``cols`` columns."""
+    return (np.zeros(n_targets, dtype=np.int64),
+            np.full(n_targets, max(cols - 1, 0), dtype=np.int64))
+
+
+@njit(**JIT)
+def _loop_self_stress_block(blk, n_blocks, x, y, loop, out):
+    """Targets ``blk, blk + n_blocks, ...`` of :func:`loop_self_stress`."""
+    seg, lo, hi, bx, by, nu, a2 = loop
+    n = out.shape[0]
+    _chains_block(blk, n_blocks, seg, x, y, lo, hi, a2, out)
     for i in range(blk, n, n_blocks):
         xm, ym, xp, yp = _closed_neighbours(x, y, n, i)
-        out[i] = (_chain_sum(x[i], y[i], seg, 0, n, a2, rr, tt)
-                  + _arc_correction(xm, ym, x[i], y[i], xp, yp, bx, by, nu, a2))
+        out[i] += _arc_correction(xm, ym, x[i], y[i], xp, yp, bx, by, nu, a2)
 
 
 def _loop_self_stress_impl(x, y, n, theta0, nu, a_core, out):
-    seg, bx, by = _prepare_line(x, y, n, 0.0, theta0, nu, a_core)
-    loop = (seg, bx, by, nu, a_core * a_core)
+    bx, by, a2 = np.cos(theta0), np.sin(theta0), a_core * a_core
+    lo, hi = _whole_chain(n, n + 1)
+    loop = (_base_table(x, y, n, 0.0, bx, by, nu, a2), lo, hi, bx, by, nu, a2)
     n_blocks = min(n, TARGET_BLOCKS)
     for blk in prange(n_blocks):
-        _loop_self_stress_block(np.int64(blk), n_blocks, x, y, n, loop, out)
+        _loop_self_stress_block(np.int64(blk), n_blocks, x, y, loop, out[:n])
 
 
 loop_self_stress = njit(**JIT_PARALLEL)(_loop_self_stress_impl)
@@ -586,43 +667,42 @@ loop_self_stress.__doc__ = """Non-singular self-stress at the nodes of one close
 
 
 @njit(**JIT)
-def _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu, a_core):
-    """One segment table of every loop, closed (n_l + 1 columns each), and the loops' starts."""
+def _loops_table(loop_x, loop_y, loop_offsets, n_loops, Lx, n_images, theta0, nu, a2):
+    """Every loop, closed, in one chain, repeated at k Lx for |k| <= n_images.
+
+    Loop after loop, each as its n_l nodes and its first node again; the segment from that
+    closing node to the next loop's first node is a gap of zero weight (its pair term is exactly
+    0), so that one pass over the whole table sums every loop and image.
+    """
     bx = np.cos(theta0)
     by = np.sin(theta0)
-    seg = np.empty((SEG_ROWS, loop_offsets[n_loops] - loop_offsets[0] + n_loops))
-    starts = np.empty(n_loops + 1, dtype=np.int64)
+    cols = loop_offsets[n_loops] - loop_offsets[0] + n_loops
+    base = np.empty((SEG_ROWS, cols))
     e = 0
     for k in range(n_loops):
-        starts[k] = e
         lo = loop_offsets[k]
         nl = loop_offsets[k + 1] - lo
         for j in range(nl):
-            seg[S_X, e + j] = loop_x[lo + j]
-            seg[S_Y, e + j] = loop_y[lo + j]
-        seg[S_X, e + nl] = loop_x[lo]
-        seg[S_Y, e + nl] = loop_y[lo]
-        _fill_segments(seg, e, e + nl, bx, by, nu, a_core * a_core)
+            base[S_X, e + j] = loop_x[lo + j]
+            base[S_Y, e + j] = loop_y[lo + j]
+            base[S_SH, e + j] = 0.0
+        base[S_SH, e + nl] = 0.0
+        base[S_X, e + nl] = loop_x[lo]
+        base[S_Y, e + nl] = loop_y[lo]
+        _fill_segments(base, e, e + nl, bx, by, nu, a2)
         e += nl + 1
-    starts[n_loops] = e
-    return seg, starts
+        for row in range(S_TX, SEG_ROWS):      # the gap: finite geometry, no weight
+            base[row, e - 1] = 0.0
+        base[S_TX, e - 1] = 1.0
+        base[S_L, e - 1] = 1.0
+    return _unrolled_table(base, cols, Lx, -n_images * cols, (2 * n_images + 1) * cols)
 
 
 @njit(**JIT)
-def _loop_stress_block(blk, n_blocks, x, y, n, Lx, n_images, n_loops, loops, a2, out):
-    """Targets ``blk, blk + n_blocks, ...`` of :func:`loop_stress`: every loop and its images
-    (``loops``: _prepare_loops), one scratch allocation per block."""
-    seg, starts = loops
-    m = seg.shape[1]
-    rr = np.empty(m)
-    tt = np.empty(m)
-    for i in range(blk, n, n_blocks):
-        total = 0.0
-        for k in range(-n_images, n_images + 1):
-            for lp in range(n_loops):
-                total += _chain_sum(x[i] - k * Lx, y[i], seg, starts[lp], starts[lp + 1] - 1,
-                                    a2, rr, tt)
-        out[i] = total
+def _loop_stress_block(blk, n_blocks, x, y, seg, a2, out):
+    """Targets ``blk, blk + n_blocks, ...`` of :func:`loop_stress` (seg: _loops_table)."""
+    lo, hi = _whole_chain(out.shape[0], seg.shape[1])
+    _chains_block(blk, n_blocks, seg, x, y, lo, hi, a2, out)
 
 
 # Two Python functions, not two dispatchers of one: numba's on-disk cache names an entry after
@@ -631,17 +711,18 @@ def _loop_stress_block(blk, n_blocks, x, y, n, Lx, n_images, n_loops, loops, a2,
 # dispatcher").
 def _loop_stress_impl(x, y, n, loop_x, loop_y, loop_offsets, n_loops, Lx, theta0, nu, a_core,
                       n_images, out):
-    loops = _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu, a_core)
+    a2 = a_core * a_core
+    seg = _loops_table(loop_x, loop_y, loop_offsets, n_loops, Lx, n_images, theta0, nu, a2)
     n_blocks = min(n, TARGET_BLOCKS)
     for blk in prange(n_blocks):
-        _loop_stress_block(np.int64(blk), n_blocks, x, y, n, Lx, n_images, n_loops, loops,
-                           a_core * a_core, out)
+        _loop_stress_block(np.int64(blk), n_blocks, x, y, seg, a2, out[:n])
 
 
 def _loop_stress_serial_impl(x, y, n, loop_x, loop_y, loop_offsets, n_loops, Lx, theta0, nu,
                              a_core, n_images, out):
-    loops = _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu, a_core)
-    _loop_stress_block(0, 1, x, y, n, Lx, n_images, n_loops, loops, a_core * a_core, out)
+    a2 = a_core * a_core
+    seg = _loops_table(loop_x, loop_y, loop_offsets, n_loops, Lx, n_images, theta0, nu, a2)
+    _loop_stress_block(np.int64(0), np.int64(1), x, y, seg, a2, out[:n])
 
 
 loop_stress = njit(**JIT_PARALLEL)(_loop_stress_impl)
