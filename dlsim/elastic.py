@@ -96,9 +96,12 @@ from dlsim.jit import JIT, JIT_FMA, JIT_PARALLEL, JIT_SUM
 
 INV_4PI = 1.0 / (4.0 * np.pi)
 INV_8PI = 1.0 / (8.0 * np.pi)
-#: Target nodes are dealt to this many interleaved blocks (prange runs over blocks): enough to
-#: balance any common thread count, few enough that each block's scratch allocation is free.
+#: Target nodes are dealt to at most this many interleaved blocks (prange runs over blocks):
+#: enough to balance any common thread count, few enough that each block's scratch allocation is
+#: free.  A block gets at least BLOCK_TARGETS targets (on short lines the cost of a block, about a
+#: microsecond, is that of a few targets).  The result does not depend on the blocks.
 TARGET_BLOCKS = 64
+BLOCK_TARGETS = 16
 #: Longest run of segments summed in one pass (its scratch: 3 × 32 kB).  Windows are cut into
 #: runs of equal length (at most RUN and at most one period), so that consecutive runs pair up in
 #: the software pipeline of :func:`_run_sums`; each run costs about 0.1 µs more than its pairs
@@ -293,6 +296,12 @@ def _lane_sum(ts, m):
 
 
 @njit(**JIT)
+def _blocks(n):
+    """How many interleaved blocks the n targets of a parallel kernel are dealt to."""
+    return max(1, min(TARGET_BLOCKS, n // BLOCK_TARGETS))
+
+
+@njit(**JIT)
 def _new_runs(count):
     """Room for ``count`` runs: target index, field point x and y, first column, segments."""
     return (np.empty(count, dtype=np.int64), np.empty(count), np.empty(count),
@@ -311,9 +320,12 @@ def _run_sums(seg, runs, count, kc, out):
     into runs, not on the blocks or threads.
     """
     tgt, px, py, c0, m = runs
-    rs = np.empty(RUN + 1)
-    rq = np.empty(RUN + 1)
-    ts = np.empty(RUN)
+    width = 1
+    for r in range(count):
+        width = max(width, m[r] + 1)
+    rs = np.empty(width)
+    rq = np.empty(width)
+    ts = np.empty(width)
     if count > 0:
         _distances(px[0], py[0], seg, c0[0], m[0] + 1, kc[0], rs)
     for r in range(count):
@@ -626,7 +638,7 @@ def _self_stress_block(blk, n_blocks, line, out):
 
 def _self_stress_impl(x, y, n, Lx, theta0, nu, a_core, n_images, cutoff, out):
     line = _prepare_self_stress(x, y, n, Lx, theta0, nu, a_core, n_images, cutoff)
-    n_blocks = min(n, TARGET_BLOCKS)
+    n_blocks = _blocks(n)
     for blk in prange(n_blocks):
         _self_stress_block(np.int64(blk), n_blocks, line, out)
 
@@ -672,9 +684,7 @@ self_stress.__doc__ = _SELF_STRESS_DOC
 
 def _self_stress_serial_impl(x, y, n, Lx, theta0, nu, a_core, n_images, cutoff, out):
     line = _prepare_self_stress(x, y, n, Lx, theta0, nu, a_core, n_images, cutoff)
-    n_blocks = min(n, TARGET_BLOCKS)
-    for blk in range(n_blocks):
-        _self_stress_block(np.int64(blk), n_blocks, line, out)
+    _self_stress_block(np.int64(0), np.int64(1), line, out)    # one block: one pipeline
 
 
 self_stress_serial = njit(**JIT)(_self_stress_serial_impl)
@@ -723,7 +733,7 @@ def _loop_self_stress_block(blk, n_blocks, x, y, n, loop, out):
 def _loop_self_stress_impl(x, y, n, theta0, nu, a_core, out):
     bx, by, a2 = np.cos(theta0), np.sin(theta0), a_core * a_core
     loop = (_closed_table(x, y, n, 0.0, bx, by, nu, a2), bx, by, nu, a2)
-    n_blocks = min(n, TARGET_BLOCKS)
+    n_blocks = _blocks(n)
     for blk in prange(n_blocks):
         _loop_self_stress_block(np.int64(blk), n_blocks, x, y, n, loop, out)
 
@@ -803,7 +813,7 @@ def _loop_stress_impl(x, y, n, loop_x, loop_y, loop_offsets, n_loops, Lx, theta0
     a2 = a_core * a_core
     loops = _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu, a2)
     kc = _call_constants(nu, a2)
-    n_blocks = min(n, TARGET_BLOCKS)
+    n_blocks = _blocks(n)
     for blk in prange(n_blocks):
         _loop_stress_block(np.int64(blk), n_blocks, x, y, n, Lx, n_images, loops, kc, out)
 
