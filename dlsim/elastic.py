@@ -226,63 +226,53 @@ def _segment_stress(px, py, xa, ya, xb, yb, bx, by, nu, a2):
 # pair sums over runs of segments
 # ------------------------------------------------------------------------------------------------
 @njit(**JIT_FMA, inline="always")
-def _distance(px, py, xs, ys, sh, j, a2):
-    """R_a from (px, py) to node j of row views (x = xs + sh: the shift is taken off the point)."""
-    dx = (px - sh[j]) - xs[j]
-    dy = py - ys[j]
+def _distance(px, py, seg, c, a2):
+    """R_a from (px, py) to the node in column c (x = S_X + S_SH: the shift is taken off the
+    point)."""
+    dx = (px - seg[S_SH, c]) - seg[S_X, c]
+    dy = py - seg[S_Y, c]
     return np.sqrt(dx * dx + dy * dy + a2)
 
 
 @njit(**JIT_FMA)
 def _distances(px, py, seg, c0, m, a2, rs):
-    """rs[j] = R_a from (px, py) to the node in column c0 + j of the table, j < m."""
-    xs = seg[S_X, c0:c0 + m]
-    ys = seg[S_Y, c0:c0 + m]
-    sh = seg[S_SH, c0:c0 + m]
-    for j in range(m):
-        rs[j] = _distance(px, py, xs, ys, sh, j, a2)
+    """rs[j] = R_a from (px, py) to the node in column c0 + j of the table, j < m.
 
-
-@njit(**JIT, inline="always")
-def _rows(seg, c0, m):
-    """Views of the rows over columns c0 .. c0 + m - 1 (X, Y, SH, TX, TY, L, CW, E1, E3).
-
-    Views that start at c0 keep every index of the loops provably non-negative, so numba's
-    wrap-around of negative indices does not defeat LLVM's vectoriser.
+    Unsigned indices: numba then skips its wrap-around of negative indices, which would defeat
+    LLVM's vectoriser, and the table needs no row views (whose reference counting costs about as
+    much as a short loop).
     """
-    e = c0 + m
-    return (seg[S_X, c0:e], seg[S_Y, c0:e], seg[S_SH, c0:e], seg[S_TX, c0:e], seg[S_TY, c0:e],
-            seg[S_L, c0:e], seg[S_CW, c0:e], seg[S_E1, c0:e], seg[S_E3, c0:e])
+    c = np.uint64(c0)
+    for j in range(np.uint64(m)):
+        rs[j] = _distance(px, py, seg, c + j, a2)
 
 
 @njit(**JIT_FMA, inline="always")
-def _term(p, rows, rs, j, kc):
-    """Pair term at point p of segment j of row views ``rows`` (rs[j], rs[j + 1]: R_a at its
-    nodes)."""
-    xs, ys, sh, tx, ty, sl, cw, e1, e3 = rows
-    return _pair_term((p[0] - sh[j]) - xs[j], p[1] - ys[j], tx[j], ty[j], sl[j], rs[j],
-                      rs[j + 1], cw[j], e1[j], e3[j], kc)
+def _term(p, seg, c, rs, k, kc):
+    """Pair term at point p of the segment in column c (rs[k], rs[k + 1]: R_a at its nodes)."""
+    return _pair_term((p[0] - seg[S_SH, c]) - seg[S_X, c], p[1] - seg[S_Y, c], seg[S_TX, c],
+                      seg[S_TY, c], seg[S_L, c], rs[k], rs[k + 1], seg[S_CW, c], seg[S_E1, c],
+                      seg[S_E3, c], kc)
 
 
 @njit(**JIT_FMA)
 def _terms(p, seg, c0, m, kc, rs, ts):
-    """ts[j] = pair term at point p of the segment in column c0 + j, j < m."""
-    rows = _rows(seg, c0, m)
-    for j in range(m):
-        ts[j] = _term(p, rows, rs, j, kc)
+    """ts[j] = pair term at point p of the segment in column c0 + j, j < m (R_a of its nodes in
+    rs[j], rs[j + 1])."""
+    c = np.uint64(c0)
+    for j in range(np.uint64(m)):
+        ts[j] = _term(p, seg, c + j, rs, j, kc)
 
 
 @njit(**JIT_FMA)
 def _terms_and_distances(p, seg, c0, q, d0, m, kc, rs, ts, rq):
     """:func:`_terms` at point p from column c0 and :func:`_distances` of point q to the nodes
     from column d0 into rq, m of each, in one loop (the software pipeline of _run_sums)."""
-    rows = _rows(seg, c0, m)
-    xq = seg[S_X, d0:d0 + m]
-    yq = seg[S_Y, d0:d0 + m]
-    sh = seg[S_SH, d0:d0 + m]
-    for j in range(m):
-        rq[j] = _distance(q[0], q[1], xq, yq, sh, j, kc[0])
-        ts[j] = _term(p, rows, rs, j, kc)
+    c = np.uint64(c0)
+    d = np.uint64(d0)
+    for j in range(np.uint64(m)):
+        rq[j] = _distance(q[0], q[1], seg, d + j, kc[0])
+        ts[j] = _term(p, seg, c + j, rs, j, kc)
 
 
 @njit(**JIT_SUM)
@@ -337,8 +327,7 @@ def _run_sums(seg, runs, count, kc, out):
             _terms_and_distances(p, seg, c0[r], (px[r + 1], py[r + 1]), c0[r + 1], both, kc,
                                  rs, ts, rq)
             _terms(p, seg, c0[r] + both, mr - both, kc, rs[both:], ts[both:])
-            _distances(px[r + 1], py[r + 1], seg, c0[r + 1] + both, mq - both, kc[0],
-                       rq[both:])
+            _distances(px[r + 1], py[r + 1], seg, c0[r + 1] + both, mq - both, kc[0], rq[both:])
         else:
             _terms(p, seg, c0[r], mr, kc, rs, ts)
         out[tgt[r]] += _lane_sum(ts, mr)
