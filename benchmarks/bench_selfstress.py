@@ -115,10 +115,11 @@ def fmt(value):
 
 
 def print_rates(rates, before=None):
-    """The table of rates; with ``before`` (a saved run) its rates and the ratio beside them."""
+    """The table of rates; with ``before`` (a saved run) its rates and the ratio after/before
+    beside them (of CPU rates for one thread, of wall rates for two)."""
     head = f"{'N':>6} {'variant':>8} {'wall':>10} {'cpu':>10}"
     if before:
-        head += f" | {'before wall':>11} {'before cpu':>10} {'after/before (cpu; wall if 2 thr)':>34}"
+        head += f" | {'before wall':>11} {'before cpu':>10} {'ratio':>6}"
     print("pairs/s")
     print(head)
     for n, row in rates.items():
@@ -127,7 +128,7 @@ def print_rates(rates, before=None):
             old = (before or {}).get(str(n), {}).get(name)
             if old:
                 ratio = cpu / old[1] if cpu and old[1] else wall / old[0]
-                line += f" | {fmt(old[0]):>11} {fmt(old[1])} {ratio:34.2f}"
+                line += f" | {fmt(old[0]):>11} {fmt(old[1])} {ratio:6.2f}"
             print(line)
     print("two-thread scaling (par-2 / par-1, wall): "
           + ", ".join(f"N = {n}: {row['par-2'][0] / row['par-1'][0]:.2f}"

@@ -32,16 +32,16 @@ On a straight segment write ``R = s t + d n`` (``n = ẑ × t``, ``s = R·t``, `
     k0 = -ν/(4π(1-ν)),
 
 and the segment from node A to node B contributes ``τ = Fseg(s_A) - Fseg(s_B)``.  For a → 0 and an
-infinite line this is ``(c² + w²/(1-ν))/(2π d)``.  The pair loop evaluates the difference regrouped
-(using ``v_A - v_B = P/ρ²`` and ``u_A² v_A - u_B² v_B = Q/ρ²``) as
+infinite line this is ``(c² + w²/(1-ν))/(2π d)``.  The pair loop evaluates the difference
+regrouped (using ``v_A - v_B = P/ρ²`` and ``u_A² v_A - u_B² v_B = Q/ρ²``) as
 
-    τ = F1 (u_A - u_B) + F2 (u_A³ - u_B³) + (d/ρ²) [P (E1 + E2/ρ²) + E3 Q],
+    τ = c w [k0 (u_A - u_B) + a² (u_A³ - u_B³)/(8π)] + (d/ρ²) [E1 P + E3 (2P/ρ² + Q)],
     P = s_A u_A - s_B u_B,  Q = s_A u_A³ - s_B u_B³,
 
-with the per-segment weights ``F1 = c w k0``, ``F2 = c w a²/(8π)``, ``E1 = 2c²/(8π) + w²/(4π(1-ν))``,
-``E2 = 2a² c²/(8π)``, ``E3 = a² c²/(8π)`` computed once per call.  Per pair that is one square root
-(at the node, shared by the two segments meeting there) and one division (it yields 1/R_a at both
-ends and 1/ρ²): no transcendental call in the pair loop.
+with the per-segment weights ``c w``, ``E1 = 2c²/(8π) + w²/(4π(1-ν))`` and ``E3 = a² c²/(8π)``
+computed once per call.  Per pair that is one square root (at the node, shared by the two segments
+meeting there) and one division (it yields 1/R_a at both ends and 1/ρ²): no transcendental call in
+the pair loop.
 
 Local part (the node's own two arms)
 ------------------------------------
@@ -102,17 +102,17 @@ INV_8PI = 1.0 / (8.0 * np.pi)
 #: microsecond, is that of a few targets).  The result does not depend on the blocks.
 TARGET_BLOCKS = 64
 BLOCK_TARGETS = 16
-#: Longest run of segments summed in one pass (its scratch: 3 × 32 kB).  Windows are cut into
-#: runs of equal length (at most RUN and at most one period), so that consecutive runs pair up in
-#: the software pipeline of :func:`_run_sums`; each run costs about 0.1 µs more than its pairs
-#: (measured: RUN = 512 ran 10 % slower than 4096 at N = 4000).
+#: Longest run of segments summed in one pass (its scratch: at most 3 × 32 kB).  Windows are
+#: cut into runs of equal length (at most RUN and at most one period), so that consecutive runs
+#: pair up in the software pipeline of :func:`_run_sums`; each run costs about 0.1 µs more than
+#: its pairs (measured: RUN = 512 ran 10 % slower than 4096 at N = 4000).
 RUN = 4096
 
 # Rows of a segment table (structure of arrays).  Column j holds node j and the segment from
 # node j to node j + 1.  A node lies at x = S_X + S_SH: the pair loops subtract the period
-# shift S_SH (0 or Lx) from the field point first, so that its rounding moves the point against a
-# whole period rigidly instead of each node by its own error.  Weights of the pair term (module
-# notes), with c = t·b, w = (t×b)_z:
+# shift S_SH (a multiple of Lx) from the field point first, so that its rounding moves the point
+# against a whole period rigidly instead of each node by its own error.  Weights of the pair term
+# (module notes), with c = t·b, w = (t×b)_z:
 S_X, S_Y, S_SH = 0, 1, 2     # node position and period shift (b)
 S_TX, S_TY, S_L = 3, 4, 5    # unit tangent and length (b) of the segment
 S_CW, S_E1, S_E3 = 6, 7, 8   # c w, 2c²/(8π) + w²/(4π(1-ν)), a² c²/(8π)
@@ -304,8 +304,8 @@ def _run_sums(seg, runs, count, kc, out):
     runs taken in order, each summed by itself.
 
     Software-pipelined: the pass over one run's segments also computes the node distances of the
-    next run, so that the square roots (for that one) and the divisions of the
-    pair terms (for this one) share a loop and the divider works while the multiply-adds do.
+    next run, so that the square roots (for that one) and the divisions of the pair terms (for
+    this one) share a loop and the divider works while the multiply-adds do.
     Every run's sum is what it would be alone, so the result depends only on how targets split
     into runs, not on the blocks or threads.
     """
