@@ -751,15 +751,14 @@ loop_self_stress.__doc__ = """Non-singular self-stress at the nodes of one close
 
 @njit(**JIT)
 def _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu, a2):
-    """One segment table of every loop, closed (n_l + 1 columns each), and the loops' starts."""
+    """Every loop in one segment table: loop after loop, each as its n_l nodes and its first
+    node again, the segment from that closing node to the next loop's first node a gap of zero
+    weight (its pair term is exactly 0), so that one run sums every loop.  Returns the table."""
     bx = np.cos(theta0)
     by = np.sin(theta0)
-    seg = np.empty((SEG_ROWS, loop_offsets[n_loops] - loop_offsets[0] + n_loops))
-    seg[S_SH, :] = 0.0
-    starts = np.empty(n_loops + 1, dtype=np.int64)
+    seg = np.zeros((SEG_ROWS, loop_offsets[n_loops] - loop_offsets[0] + n_loops))
     e = 0
     for k in range(n_loops):
-        starts[k] = e
         lo = loop_offsets[k]
         nl = loop_offsets[k + 1] - lo
         for j in range(nl):
@@ -769,27 +768,23 @@ def _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu, a2):
         seg[S_Y, e + nl] = loop_y[lo]
         _fill_segments(seg, e, e + nl, bx, by, nu, a2)
         e += nl + 1
-    starts[n_loops] = e
-    return seg, starts
+        seg[S_TX, e - 1] = 1.0          # the gap: finite geometry, weights left at 0
+        seg[S_L, e - 1] = 1.0
+    return seg
 
 
 @njit(**JIT)
-def _loop_stress_block(blk, n_blocks, x, y, n, Lx, n_images, loops, kc, out):
-    """Targets ``blk, blk + n_blocks, ...`` of :func:`loop_stress`: every loop and its images
-    (``loops``: _prepare_loops), as runs seen from the target shifted by -k Lx."""
-    seg, starts = loops
-    n_loops = starts.shape[0] - 1
-    per_target = 0
-    for lp in range(n_loops):
-        per_target += _split(starts[lp + 1] - 1 - starts[lp], RUN)[0]
-    runs = _new_runs(((n - 1 - blk) // n_blocks + 1) * (2 * n_images + 1) * per_target)
+def _loop_stress_block(blk, n_blocks, x, y, n, Lx, n_images, seg, kc, out):
+    """Targets ``blk, blk + n_blocks, ...`` of :func:`loop_stress`: the loops' table (``seg``,
+    :func:`_prepare_loops`) once per image, seen from the target shifted by -k Lx."""
+    m = max(seg.shape[1] - 1, 0)
+    per_target = (2 * n_images + 1) * _split(m, RUN)[0]
+    runs = _new_runs(((n - 1 - blk) // n_blocks + 1) * per_target)
     r = 0
     for i in range(blk, n, n_blocks):
         out[i] = 0.0
         for k in range(-n_images, n_images + 1):
-            for lp in range(n_loops):
-                r = _add_split(runs, r, i, x[i] - k * Lx, y[i], starts[lp],
-                               starts[lp + 1] - 1 - starts[lp])
+            r = _add_split(runs, r, i, x[i] - k * Lx, y[i], 0, m)
     _run_sums(seg, runs, r, kc, out)
 
 
@@ -800,18 +795,18 @@ def _loop_stress_block(blk, n_blocks, x, y, n, Lx, n_images, loops, kc, out):
 def _loop_stress_impl(x, y, n, loop_x, loop_y, loop_offsets, n_loops, Lx, theta0, nu, a_core,
                       n_images, out):
     a2 = a_core * a_core
-    loops = _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu, a2)
+    seg = _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu, a2)
     kc = _call_constants(nu, a2)
     n_blocks = _blocks(n)
     for blk in prange(n_blocks):
-        _loop_stress_block(np.int64(blk), n_blocks, x, y, n, Lx, n_images, loops, kc, out)
+        _loop_stress_block(np.int64(blk), n_blocks, x, y, n, Lx, n_images, seg, kc, out)
 
 
 def _loop_stress_serial_impl(x, y, n, loop_x, loop_y, loop_offsets, n_loops, Lx, theta0, nu,
                              a_core, n_images, out):
     a2 = a_core * a_core
-    loops = _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu, a2)
-    _loop_stress_block(np.int64(0), np.int64(1), x, y, n, Lx, n_images, loops,
+    seg = _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu, a2)
+    _loop_stress_block(np.int64(0), np.int64(1), x, y, n, Lx, n_images, seg,
                        _call_constants(nu, a2), out)
 
 
