@@ -151,6 +151,8 @@ HEADROOM = 2 * MAX_CAPTURES + 16
 MIN_CAPACITY = 4 * MAX_CAPTURES
 #: Pair interactions (target nodes × source segments × periodic copies) of one self-stress
 #: evaluation below which the stepper sums on one thread: a thread team costs tens of µs to wake
-#: and, on a loaded machine, spins against the other processes, while 1e6 pairs take about 5 ms
-#: on one core.  Above it the parallel kernels of :mod:`dlsim.elastic` take over.
+#: and, on a loaded machine, waits for the other processes (``bench_selfstress.py --crossover``
+#: measured 7-22 ms per two-thread call whatever its size at load averages 4.8-6.3 on 2 CPUs),
+#: while 1e6 pairs take about 2 ms on one core.  Above it the parallel kernels of
+#: :mod:`dlsim.elastic` take over.
 PARALLEL_MIN_PAIRS = 1_000_000
