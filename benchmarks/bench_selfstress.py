@@ -1,6 +1,7 @@
 """Pair interactions per second of the non-singular self-stress kernel.
 
-Run: ``python benchmarks/bench_selfstress.py [--repeats 3] [--sizes 1000 2000 4000] [--steps-only]``.
+Run: ``python benchmarks/bench_selfstress.py [--repeats 3] [--sizes 1000 2000 4000]
+[--save FILE] [--before FILE] [--crossover] [--no-steps] [--steps-only]``.
 
 A wavy periodic line of N nodes (node spacing 10 b, three Fourier modes of amplitude up to 50 b,
 mixed character) with ``n_images = 0`` and no cutoff: every target node sums exactly N segments
@@ -11,18 +12,26 @@ rate of
 - ``par-1``, ``par-2``: :func:`dlsim.elastic.self_stress` with ``numba.set_num_threads(1)`` and 2;
 - ``numpy``: the NumPy twin in ``tests/naive_elastic.py`` (one call, vectorised over segments).
 
-A second table times the whole time step of :func:`dlsim.kernels.relax_line` with each line model
+``--save FILE`` writes the rates as JSON; ``--before FILE`` prints a saved run beside this one
+(run the script once with ``PYTHONPATH`` on the old tree and ``--save``, then on the new one with
+``--before``).  The two-thread scaling is par-2 over par-1 on wall time: it means something only
+on an otherwise idle machine, so the load average is printed before and after.  ``--crossover``
+times the serial and the two-thread kernel on short lines with one image on each side (the
+stepper's case) to place :data:`dlsim.contract.PARALLEL_MIN_PAIRS`.
+
+A last table times the whole time step of :func:`dlsim.kernels.relax_line` with each line model
 (constant Γ, de Wit–Koehler, self-stress with the non-local part every step and every 10 steps) on
 lines of a few hundred to a thousand nodes bowing through a random field of impenetrable points:
 node-steps per second, one thread.
 
 Rates are the best of ``--repeats`` runs, on wall time and, for the one-thread runs, on the
-process's CPU time (which stays meaningful when other jobs share the machine; the load average
-is printed).  The JIT is warmed first.  A measurement, not a test.
+process's CPU time (which stays meaningful when other jobs share the machine).  The JIT is warmed
+first.  A measurement, not a test.
 """
 from __future__ import annotations
 
 import argparse
+import json
 import os
 import sys
 import time
@@ -41,6 +50,7 @@ THETA0 = 0.7          # rad, mixed character
 NU = 0.3
 A_CORE = 1.0          # b
 MIN_SECONDS = 0.5     # each timing repeats calls until it lasts at least this long
+VARIANTS = (("serial", 1), ("par-1", 1), ("par-2", 2), ("numpy", 1))
 
 
 def test_line(n, seed=1):
@@ -54,8 +64,8 @@ def test_line(n, seed=1):
     return x, y, Lx
 
 
-def time_call(fn, repeats):
-    """Best (wall, cpu) seconds per call over ``repeats`` timings of at least MIN_SECONDS."""
+def time_call(fn, repeats, min_seconds=MIN_SECONDS):
+    """Best (wall, cpu) seconds per call over ``repeats`` timings of at least min_seconds."""
     best_wall = best_cpu = np.inf
     for _ in range(repeats):
         calls = 0
@@ -63,17 +73,93 @@ def time_call(fn, repeats):
         while True:
             fn()
             calls += 1
-            if time.perf_counter() - w0 >= MIN_SECONDS:
+            if time.perf_counter() - w0 >= min_seconds:
                 break
         best_wall = min(best_wall, (time.perf_counter() - w0) / calls)
         best_cpu = min(best_cpu, (time.process_time() - c0) / calls)
     return best_wall, best_cpu
 
 
+def kernel_call(name, n, n_images=0):
+    """A no-argument call of one variant on the test line of n nodes."""
+    x, y, Lx = test_line(n)
+    out = np.zeros(n)
+    if name == "numpy":
+        return lambda: N.self_stress_np(x, y, n, Lx, THETA0, NU, A_CORE, n_images, 0.0)
+    kernel = E.self_stress_serial if name == "serial" else E.self_stress
+    return lambda: kernel(x, y, n, Lx, THETA0, NU, A_CORE, n_images, 0.0, out)
+
+
+def set_threads(threads):
+    numba.set_num_threads(min(threads, numba.config.NUMBA_NUM_THREADS))
+
+
+def load():
+    return f"load average {os.getloadavg()[0]:.2f} on {os.cpu_count()} CPUs"
+
+
+def pair_rates(sizes, repeats):
+    """{N: {variant: [pairs/s wall, pairs/s cpu or None]}} of the variants on the test lines."""
+    rates = {}
+    for n in sizes:
+        rates[n] = {}
+        for name, threads in VARIANTS:
+            set_threads(threads)
+            wall, cpu = time_call(kernel_call(name, n), 1 if name == "numpy" else repeats)
+            rates[n][name] = [n * n / wall, n * n / cpu if threads == 1 else None]
+    return rates
+
+
+def fmt(value):
+    return f"{value:10.3g}" if value else f"{'-':>10}"
+
+
+def print_rates(rates, before=None):
+    """The table of rates; with ``before`` (a saved run) its rates and the ratio after/before
+    beside them (of CPU rates for one thread, of wall rates for two)."""
+    head = f"{'N':>6} {'variant':>8} {'wall':>10} {'cpu':>10}"
+    if before:
+        head += f" | {'before wall':>11} {'before cpu':>10} {'ratio':>6}"
+    print("pairs/s")
+    print(head)
+    for n, row in rates.items():
+        for name, (wall, cpu) in row.items():
+            line = f"{n:>6} {name:>8} {fmt(wall)} {fmt(cpu)}"
+            old = (before or {}).get(str(n), {}).get(name)
+            if old:
+                ratio = cpu / old[1] if cpu and old[1] else wall / old[0]
+                line += f" | {fmt(old[0]):>11} {fmt(old[1])} {ratio:6.2f}"
+            print(line)
+    print("two-thread scaling (par-2 / par-1, wall): "
+          + ", ".join(f"N = {n}: {row['par-2'][0] / row['par-1'][0]:.2f}"
+                      for n, row in rates.items()))
+    if before:
+        print("before:          " + ", ".join(
+            f"N = {n}: {row['par-2'][0] / row['par-1'][0]:.2f}" for n, row in before.items()
+            if "par-1" in row and "par-2" in row))
+
+
+def crossover(repeats):
+    """Serial against two threads on short lines with one image per side (the stepper's case)."""
+    print(f"\ncrossover, n_images = 1 (3 N² pairs per call), {load()}")
+    print(f"{'N':>6} {'pairs':>10} {'serial µs':>10} {'par-2 µs':>10} {'par-2/serial':>13}")
+    for n in (64, 128, 256, 384, 512, 768, 1024):
+        set_threads(1)
+        serial = time_call(kernel_call("serial", n, 1), repeats, 0.2)[0]
+        set_threads(2)
+        par = time_call(kernel_call("par-2", n, 1), repeats, 0.2)[0]
+        print(f"{n:>6} {3 * n * n:>10} {1e6 * serial:10.1f} {1e6 * par:10.1f} {par / serial:13.2f}")
+
+
 def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--repeats", type=int, default=3)
     parser.add_argument("--sizes", type=int, nargs="+", default=[1000, 2000, 4000])
+    parser.add_argument("--save", help="write the pair rates to this JSON file")
+    parser.add_argument("--before", help="a JSON file of --save to print beside this run")
+    parser.add_argument("--crossover", action="store_true",
+                        help="also time serial against two threads on short lines")
+    parser.add_argument("--no-steps", action="store_true", help="skip the full-step table")
     parser.add_argument("--steps-only", action="store_true",
                         help="only the table of the full time step with each line model")
     args = parser.parse_args()
@@ -81,31 +167,25 @@ def main():
         step_table(args.repeats)
         return
     threads_before = numba.get_num_threads()
-    x, y, Lx = test_line(64)
-    out = np.zeros(64)
-    E.self_stress_serial(x, y, 64, Lx, THETA0, NU, A_CORE, 0, 0.0, out)   # warm the JIT
-    E.self_stress(x, y, 64, Lx, THETA0, NU, A_CORE, 0, 0.0, out)
-    print(f"load average {os.getloadavg()[0]:.2f} on {os.cpu_count()} CPUs; "
-          f"numba {numba.__version__}, threading layer {numba.threading_layer()}")
-    print(f"{'N':>6} {'variant':>8} {'pairs/s (wall)':>15} {'pairs/s (cpu)':>15} {'speed-up':>9}")
-    for n in args.sizes:
-        x, y, Lx = test_line(n)
-        out = np.zeros(n)
-        pairs = float(n) * n
-        runs = [("serial", 1, lambda: E.self_stress_serial(x, y, n, Lx, THETA0, NU, A_CORE, 0,
-                                                           0.0, out)),
-                ("par-1", 1, lambda: E.self_stress(x, y, n, Lx, THETA0, NU, A_CORE, 0, 0.0, out)),
-                ("par-2", 2, lambda: E.self_stress(x, y, n, Lx, THETA0, NU, A_CORE, 0, 0.0, out)),
-                ("numpy", 1, lambda: N.self_stress_np(x, y, n, Lx, THETA0, NU, A_CORE, 0, 0.0))]
-        serial_wall = None
-        for name, threads, fn in runs:
-            numba.set_num_threads(min(threads, numba.config.NUMBA_NUM_THREADS))
-            wall, cpu = time_call(fn, 1 if name == "numpy" else args.repeats)
-            serial_wall = serial_wall or wall
-            cpu_rate = f"{pairs / cpu:15.3g}" if threads == 1 else f"{'-':>15}"
-            print(f"{n:>6} {name:>8} {pairs / wall:15.3g} {cpu_rate} {serial_wall / wall:9.2f}")
-    numba.set_num_threads(threads_before)
-    step_table(args.repeats)
+    for name, _ in VARIANTS[:3]:
+        kernel_call(name, 64)()                                  # warm the JIT
+    print(f"{load()} at the start; numba {numba.__version__}, "
+          f"threading layer {numba.threading_layer()}")
+    rates = pair_rates(args.sizes, args.repeats)
+    before = None
+    if args.before:
+        with open(args.before) as f:
+            before = json.load(f)["rates"]
+    print_rates(rates, before)
+    print(f"{load()} at the end")
+    if args.save:
+        with open(args.save, "w") as f:
+            json.dump({"rates": rates, "load": os.getloadavg()[0]}, f, indent=1)
+    if args.crossover:
+        crossover(args.repeats)
+    set_threads(threads_before)
+    if not args.no_steps:
+        step_table(args.repeats)
 
 
 def step_table(repeats: int, steps: int = 400) -> None:

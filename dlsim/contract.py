@@ -187,6 +187,9 @@ HEADROOM = 2 * MAX_CAPTURES + 16
 MIN_CAPACITY = 4 * MAX_CAPTURES
 #: Pair interactions (target nodes × source segments × periodic copies) of one self-stress
 #: evaluation below which the stepper sums on one thread: a thread team costs tens of µs to wake
-#: and, on a loaded machine, spins against the other processes, while 1e6 pairs take about 5 ms
-#: on one core.  Above it the parallel kernels of :mod:`dlsim.elastic` take over.
+#: and, on a loaded machine, waits for the other processes (``bench_selfstress.py --crossover``:
+#: on an idle machine two threads won from 1e4 pairs on, 0.57 of the serial time at 2e5; with one
+#: other job running a two-thread call took 7-8 ms whatever its size, 22 ms at load 6 on 2 CPUs),
+#: while 1e6 pairs take about 2 ms on one core.  Above it the parallel kernels of
+#: :mod:`dlsim.elastic` take over.
 PARALLEL_MIN_PAIRS = 1_000_000

@@ -31,9 +31,17 @@ On a straight segment write ``R = s t + d n`` (``n = ẑ × t``, ``s = R·t``, `
     Fseg(s) = c w [k0 u + a² u³/(8π)] + d v [c² (2 + 2a²/ρ² + q)/(8π) + w²/(4π(1-ν))],
     k0 = -ν/(4π(1-ν)),
 
-and the segment from node A to node B contributes ``τ = Fseg(s_A) - Fseg(s_B)``.  Only one square
-root (shared by the two segments meeting at a node) and one division per pair (it yields 1/R_a at
-both ends and 1/ρ²): no transcendental call in the pair loop.  For a → 0 and an infinite line this is ``(c² + w²/(1-ν))/(2π d)``.
+and the segment from node A to node B contributes ``τ = Fseg(s_A) - Fseg(s_B)``.  For a → 0 and an
+infinite line this is ``(c² + w²/(1-ν))/(2π d)``.  The pair loop evaluates the difference
+regrouped (using ``v_A - v_B = P/ρ²`` and ``u_A² v_A - u_B² v_B = Q/ρ²``) as
+
+    τ = c w [k0 (u_A - u_B) + a² (u_A³ - u_B³)/(8π)] + (d/ρ²) [E1 P + E3 (2P/ρ² + Q)],
+    P = s_A u_A - s_B u_B,  Q = s_A u_A³ - s_B u_B³,
+
+with the per-segment weights ``c w``, ``E1 = 2c²/(8π) + w²/(4π(1-ν))`` and ``E3 = a² c²/(8π)``
+computed once per call.  Per pair that is one square root (at the node, shared by the two segments
+meeting there) and one division (it yields 1/R_a at both ends and 1/ρ²): no transcendental call in
+the pair loop.
 
 Local part (the node's own two arms)
 ------------------------------------
@@ -84,73 +92,93 @@ import numpy as np
 from numba import njit, prange
 
 from dlsim.geometry import neighbours
-from dlsim.jit import JIT, JIT_PARALLEL
+from dlsim.jit import JIT, JIT_FMA, JIT_PARALLEL, JIT_SUM
 
 INV_4PI = 1.0 / (4.0 * np.pi)
 INV_8PI = 1.0 / (8.0 * np.pi)
-#: Target nodes are dealt to this many interleaved blocks (prange runs over blocks): enough to
-#: balance any common thread count, few enough that each block's scratch allocation is free.
+#: Target nodes are dealt to at most this many interleaved blocks (prange runs over blocks):
+#: enough to balance any common thread count, few enough that each block's scratch allocation is
+#: free.  A block gets at least BLOCK_TARGETS targets (on short lines the cost of a block, about a
+#: microsecond, is that of a few targets).  The result does not depend on the blocks.
 TARGET_BLOCKS = 64
+BLOCK_TARGETS = 16
+#: Longest run of segments summed in one pass (its scratch: at most 3 × 32 kB).  Windows are
+#: cut into runs of equal length (at most RUN and at most one period), so that consecutive runs
+#: pair up in the software pipeline of :func:`_run_sums`; each run costs about 0.1 µs more than
+#: its pairs (measured: RUN = 512 ran 10 % slower than 4096 at N = 4000).
+RUN = 4096
+
+# Rows of a segment table (structure of arrays).  Column j holds node j and the segment from
+# node j to node j + 1.  A node lies at x = S_X + S_SH: the pair loops subtract the period
+# shift S_SH (a multiple of Lx) from the field point first, so that its rounding moves the point
+# against a whole period rigidly instead of each node by its own error.  Weights of the pair term
+# (module notes), with c = t·b, w = (t×b)_z:
+S_X, S_Y, S_SH = 0, 1, 2     # node position and period shift (b)
+S_TX, S_TY, S_L = 3, 4, 5    # unit tangent and length (b) of the segment
+S_CW, S_E1, S_E3 = 6, 7, 8   # c w, 2c²/(8π) + w²/(4π(1-ν)), a² c²/(8π)
+SEG_ROWS = 9
 
 
 # ------------------------------------------------------------------------------------------------
 # geometry and per-segment constants
 # ------------------------------------------------------------------------------------------------
-@njit(**JIT)
-def _extend(x, y, n, shift, xe, ye):
-    """Copy nodes 0..n-1 into xe, ye and append node n = node 0 shifted by (shift, 0)."""
-    for j in range(n):
-        xe[j] = x[j]
-        ye[j] = y[j]
-    xe[n] = x[0] + shift
-    ye[n] = y[0]
-
-
-@njit(**JIT)
-def _segment_constants(xe, ye, j0, j1, bx, by, nu, tx, ty, sl, ca, cb, cc):
-    """Unit tangent, length and the three character weights of segments j0..j1-1 (node j to j+1).
-
-    ``ca = c w``, ``cb = c²/(8π)``, ``cc = w²/(4π(1-ν))`` with ``c = t·b``, ``w = (t×b)_z``.
-    """
-    for j in range(j0, j1):
-        sx = xe[j + 1] - xe[j]
-        sy = ye[j + 1] - ye[j]
-        h = np.sqrt(sx * sx + sy * sy)
-        ux = sx / h
-        uy = sy / h
-        c = ux * bx + uy * by
-        w = ux * by - uy * bx
-        tx[j] = ux
-        ty[j] = uy
-        sl[j] = h
-        ca[j] = c * w
-        cb[j] = c * c * INV_8PI
-        cc[j] = w * w * INV_4PI / (1.0 - nu)
+@njit(**JIT, inline="always")
+def _weights(c, w, nu, a2):
+    """The character weights of the pair term (rows S_CW, S_E1, S_E3) of a segment."""
+    cb = c * c * INV_8PI
+    return c * w, 2.0 * cb + w * w * INV_4PI / (1.0 - nu), a2 * cb
 
 
 @njit(**JIT, inline="always")
-def _pair_term(dx, dy, tx, ty, sl, ra, rb, ca, cb, cc, a2, k0):
-    """Fseg(s_A) - Fseg(s_B) of one segment; (dx, dy) = target - node A, ra, rb = R_a at A, B.
+def _call_constants(nu, a2):
+    """(a², k0, a²/(8π)): the constants of the pair term shared by every segment."""
+    return a2, -nu * INV_4PI / (1.0 - nu), a2 * INV_8PI
 
-    One division gives all three reciprocals 1/R_a(A), 1/R_a(B) and 1/ρ² (the divider is the
-    bottleneck of the pair loop).
+
+@njit(**JIT)
+def _fill_segments(seg, j0, j1, bx, by, nu, a2):
+    """Tangent, length and weights of segments j0..j1-1 from the nodes in rows S_X, S_Y (the
+    shift row S_SH is 0 on the columns j0..j1)."""
+    for j in range(j0, j1):
+        sx = seg[S_X, j + 1] - seg[S_X, j]
+        sy = seg[S_Y, j + 1] - seg[S_Y, j]
+        h = np.sqrt(sx * sx + sy * sy)
+        ux = sx / h
+        uy = sy / h
+        cw, e1, e3 = _weights(ux * bx + uy * by, ux * by - uy * bx, nu, a2)
+        seg[S_TX, j] = ux
+        seg[S_TY, j] = uy
+        seg[S_L, j] = h
+        seg[S_CW, j] = cw
+        seg[S_E1, j] = e1
+        seg[S_E3, j] = e3
+
+
+@njit(**JIT_FMA, inline="always")
+def _pair_term(dx, dy, tx, ty, sl, ra, rb, cw, e1, e3, kc):
+    """Fseg(s_A) - Fseg(s_B) of one segment; (dx, dy) = field point - node A, ra, rb = R_a at
+    A, B, kc = :func:`_call_constants`.
+
+    The regrouped difference of the module notes.  One division gives all three reciprocals
+    1/R_a(A), 1/R_a(B) and 1/ρ² (the divider is the bottleneck of the pair loop).
     """
+    a2, k0, ka = kc
     d = tx * dy - ty * dx
     sa = tx * dx + ty * dy
     sb = sa - sl
     rho2 = d * d + a2
     rab = ra * rb
     inv = 1.0 / (rho2 * rab)
-    ua = inv * rho2 * rb
-    ub = inv * rho2 * ra
+    g = inv * rho2
+    ua = g * rb
+    ub = g * ra
     ir = inv * rab
-    qa = a2 * ua * ua
-    qb = a2 * ub * ub
-    va = sa * ua * ir
-    vb = sb * ub * ir
-    dv = va - vb
-    return (ca * (k0 * (ua - ub) + (qa * ua - qb * ub) * INV_8PI)
-            + d * (cb * ((2.0 + 2.0 * a2 * ir) * dv + qa * va - qb * vb) + cc * dv))
+    ua3 = ua * ua * ua
+    ub3 = ub * ub * ub
+    p = sa * ua - sb * ub
+    q = sa * ua3 - sb * ub3
+    return (cw * (k0 * (ua - ub) + ka * (ua3 - ub3))
+            + d * ir * (e1 * p + e3 * (2.0 * p * ir + q)))
 
 
 @njit(**JIT)
@@ -174,7 +202,7 @@ def segment_stress(px, py, xa, ya, xb, yb, theta0, nu, a_core):
                            a_core * a_core)
 
 
-@njit(**JIT)
+@njit(**JIT_FMA)
 def _segment_stress(px, py, xa, ya, xb, yb, bx, by, nu, a2):
     """:func:`segment_stress` with b = (bx, by) and a² given."""
     sx = xb - xa
@@ -184,61 +212,143 @@ def _segment_stress(px, py, xa, ya, xb, yb, bx, by, nu, a2):
         return 0.0
     tx = sx / h
     ty = sy / h
-    c = tx * bx + ty * by
-    w = tx * by - ty * bx
+    cw, e1, e3 = _weights(tx * bx + ty * by, tx * by - ty * bx, nu, a2)
     dax = px - xa
     day = py - ya
     dbx = px - xb
     dby = py - yb
     ra = np.sqrt(dax * dax + day * day + a2)
     rb = np.sqrt(dbx * dbx + dby * dby + a2)
-    return _pair_term(dax, day, tx, ty, h, ra, rb, c * w, c * c * INV_8PI,
-                      w * w * INV_4PI / (1.0 - nu), a2, -nu * INV_4PI / (1.0 - nu))
+    return _pair_term(dax, day, tx, ty, h, ra, rb, cw, e1, e3, _call_constants(nu, a2))
+
+
+# ------------------------------------------------------------------------------------------------
+# pair sums over runs of segments
+# ------------------------------------------------------------------------------------------------
+@njit(**JIT_FMA, inline="always")
+def _distance(px, py, seg, c, a2):
+    """R_a from (px, py) to the node in column c (x = S_X + S_SH: the shift is taken off the
+    point)."""
+    dx = (px - seg[S_SH, c]) - seg[S_X, c]
+    dy = py - seg[S_Y, c]
+    return np.sqrt(dx * dx + dy * dy + a2)
+
+
+@njit(**JIT_FMA)
+def _distances(px, py, seg, c0, m, a2, rs):
+    """rs[j] = R_a from (px, py) to the node in column c0 + j of the table, j < m.
+
+    Unsigned indices: numba then skips its wrap-around of negative indices, which would defeat
+    LLVM's vectoriser, and the table needs no row views (whose reference counting costs about as
+    much as a short loop).
+    """
+    c = np.uint64(c0)
+    for j in range(np.uint64(m)):
+        rs[j] = _distance(px, py, seg, c + j, a2)
+
+
+@njit(**JIT_FMA, inline="always")
+def _term(p, seg, c, rs, k, kc):
+    """Pair term at point p of the segment in column c (rs[k], rs[k + 1]: R_a at its nodes)."""
+    return _pair_term((p[0] - seg[S_SH, c]) - seg[S_X, c], p[1] - seg[S_Y, c], seg[S_TX, c],
+                      seg[S_TY, c], seg[S_L, c], rs[k], rs[k + 1], seg[S_CW, c], seg[S_E1, c],
+                      seg[S_E3, c], kc)
+
+
+@njit(**JIT_FMA)
+def _terms(p, seg, c0, m, kc, rs, ts):
+    """ts[j] = pair term at point p of the segment in column c0 + j, j < m (R_a of its nodes in
+    rs[j], rs[j + 1])."""
+    c = np.uint64(c0)
+    for j in range(np.uint64(m)):
+        ts[j] = _term(p, seg, c + j, rs, j, kc)
+
+
+@njit(**JIT_FMA)
+def _terms_and_distances(p, seg, c0, q, d0, m, kc, rs, ts, rq):
+    """:func:`_terms` at point p from column c0 and :func:`_distances` of point q to the nodes
+    from column d0 into rq, m of each, in one loop (the software pipeline of _run_sums)."""
+    c = np.uint64(c0)
+    d = np.uint64(d0)
+    for j in range(np.uint64(m)):
+        rq[j] = _distance(q[0], q[1], seg, d + j, kc[0])
+        ts[j] = _term(p, seg, c + j, rs, j, kc)
+
+
+@njit(**JIT_SUM)
+def _lane_sum(ts, m):
+    """Σ ts[:m].  JIT_SUM lets LLVM split the sum into vector partial sums: the order depends on
+    m only, so the result is the same on every call and for any thread count."""
+    s = 0.0
+    for j in range(m):
+        s += ts[j]
+    return s
 
 
 @njit(**JIT)
-def _chain_sum(px, py, xe, ye, j0, j1, tx, ty, sl, ca, cb, cc, a2, k0, uu, tmp):
-    """Resolved shear at (px, py) from segments j0..j1-1 of a chain (Fseg(s_A) - Fseg(s_B)).
+def _blocks(n):
+    """How many interleaved blocks the n targets of a parallel kernel are dealt to."""
+    return max(1, min(TARGET_BLOCKS, n // BLOCK_TARGETS))
 
-    Works on views starting at j0, so that every index is provably non-negative and LLVM
-    vectorises the first two loops (numba's negative-index wrap-around otherwise defeats it)
-    without reordering any sum: regularised distances R_a at the nodes (one square root per
-    node, shared by two segments), the segment terms, then a sum with four interleaved partial sums (fixed
-    order, the same for any thread count).
+
+@njit(**JIT)
+def _new_runs(count):
+    """Room for ``count`` runs: target index, field point x and y, first column, segments."""
+    return (np.empty(count, dtype=np.int64), np.empty(count), np.empty(count),
+            np.empty(count, dtype=np.int64), np.empty(count, dtype=np.int64))
+
+
+@njit(**JIT)
+def _run_sums(seg, runs, count, kc, out):
+    """out[t] += Σ pair terms of every run (target t seen from (px, py), segments c0 .. c0+m-1),
+    runs taken in order, each summed by itself.
+
+    Software-pipelined: the pass over one run's segments also computes the node distances of the
+    next run, so that the square roots (for that one) and the divisions of the pair terms (for
+    this one) share a loop and the divider works while the multiply-adds do.
+    Every run's sum is what it would be alone, so the result depends only on how targets split
+    into runs, not on the blocks or threads.
     """
-    m = j1 - j0
-    xs = xe[j0:j1 + 1]
-    ys = ye[j0:j1 + 1]
-    us = uu[: m + 1]
-    for j in range(m + 1):
-        dx = px - xs[j]
-        dy = py - ys[j]
-        us[j] = np.sqrt(dx * dx + dy * dy + a2)
-    txs = tx[j0:j1]
-    tys = ty[j0:j1]
-    sls = sl[j0:j1]
-    cas = ca[j0:j1]
-    cbs = cb[j0:j1]
-    ccs = cc[j0:j1]
-    ts = tmp[:m]
-    for j in range(m):
-        ts[j] = _pair_term(px - xs[j], py - ys[j], txs[j], tys[j], sls[j], us[j], us[j + 1],
-                           cas[j], cbs[j], ccs[j], a2, k0)
-    s0 = 0.0
-    s1 = 0.0
-    s2 = 0.0
-    s3 = 0.0
-    j = 0
-    while j + 4 <= m:
-        s0 += ts[j]
-        s1 += ts[j + 1]
-        s2 += ts[j + 2]
-        s3 += ts[j + 3]
-        j += 4
-    while j < m:
-        s0 += ts[j]
-        j += 1
-    return (s0 + s1) + (s2 + s3)
+    tgt, px, py, c0, m = runs
+    width = 1
+    for r in range(count):
+        width = max(width, m[r] + 1)
+    rs = np.empty(width)
+    rq = np.empty(width)
+    ts = np.empty(width)
+    if count > 0:
+        _distances(px[0], py[0], seg, c0[0], m[0] + 1, kc[0], rs)
+    for r in range(count):
+        p = (px[r], py[r])
+        mr = m[r]
+        if r + 1 < count:
+            mq = m[r + 1] + 1                   # nodes of the next run
+            both = min(mr, mq)
+            _terms_and_distances(p, seg, c0[r], (px[r + 1], py[r + 1]), c0[r + 1], both, kc,
+                                 rs, ts, rq)
+            _terms(p, seg, c0[r] + both, mr - both, kc, rs[both:], ts[both:])
+            _distances(px[r + 1], py[r + 1], seg, c0[r + 1] + both, mq - both, kc[0], rq[both:])
+        else:
+            _terms(p, seg, c0[r], mr, kc, rs, ts)
+        out[tgt[r]] += _lane_sum(ts, mr)
+        rs, rq = rq, rs
+
+
+@njit(**JIT, inline="always")
+def _add_run(runs, r, i, px, py, c0, m):
+    """Put the run of target i seen from (px, py), segments c0 .. c0 + m - 1, in slot r."""
+    tgt, rx, ry, rc, rm = runs
+    tgt[r], rx[r], ry[r], rc[r], rm[r] = i, px, py, c0, m
+    return r + 1
+
+
+@njit(**JIT, inline="always")
+def _split(m, longest):
+    """Cut m segments into the fewest runs of at most ``longest``, of near-equal length: (runs,
+    base length, how many are one longer)."""
+    pieces = max((m + longest - 1) // longest, 1)
+    base = m // pieces
+    return pieces, base, m - base * pieces
 
 
 @njit(**JIT)
@@ -375,108 +485,151 @@ def mean_height(x, y, n, Lx):
 # self-stress of the periodic line
 # ------------------------------------------------------------------------------------------------
 @njit(**JIT)
-def _window(i, n, xe, Lx, n_images, cutoff, tx, sl):
+def _closed_table(x, y, n, shift, bx, by, nu, a2):
+    """Segment table of a chain of n nodes closed by node n = node 0 shifted by (shift, 0):
+    shift = Lx for one period of the line, 0 for a closed loop.  No period shifts (S_SH = 0)."""
+    seg = np.empty((SEG_ROWS, n + 1))
+    for j in range(n):
+        seg[S_X, j] = x[j]
+        seg[S_Y, j] = y[j]
+    seg[S_X, n] = x[0] + shift
+    seg[S_Y, n] = y[0]
+    seg[S_SH, :] = 0.0
+    _fill_segments(seg, 0, n, bx, by, nu, a2)
+    return seg
+
+
+@njit(**JIT)
+def _line_table(x, y, n, Lx, bx, by, nu, a2):
+    """Three periods of the line, k = -1, 0, 1: column c = node and segment c mod n of period
+    c // n - 1 (S_SH = k Lx), so period 0 starts at column n.  Any run of at most n segments
+    that starts in period -1 or 0 is contiguous."""
+    base = _closed_table(x, y, n, Lx, bx, by, nu, a2)
+    seg = np.empty((SEG_ROWS, 3 * n))
+    for k in range(3):
+        seg[:, k * n:(k + 1) * n] = base[:, :n]
+        seg[S_SH, k * n:(k + 1) * n] = (k - 1) * Lx
+    return seg
+
+
+@njit(**JIT, inline="always")
+def _global_node(seg, g, n, Lx):
+    """Position of global node g of the periodic line (node g mod n of period g // n)."""
+    k = g // n
+    j = n + g - k * n
+    return seg[S_X, j] + k * Lx, seg[S_Y, j]
+
+
+@njit(**JIT, inline="always")
+def _midpoint_x(seg, g, n, Lx):
+    """x of the midpoint of global segment g (segment g mod n of period g // n)."""
+    k = g // n
+    j = n + g - k * n
+    return seg[S_X, j] + 0.5 * seg[S_TX, j] * seg[S_L, j] + k * Lx
+
+
+@njit(**JIT, inline="always")
+def _run_shift(g, n):
+    """Periods s by which a run that starts at global segment g is moved to lie in the table:
+    0 for runs starting in periods -1 and 0, which therefore see the target exactly where it
+    is (its near field carries no rounding of the shift), k - 1 or k + 1 beyond."""
+    k = g // n
+    if k > 0:
+        return k
+    if k < -1:
+        return k + 1
+    return 0
+
+
+@njit(**JIT)
+def _window(i, n, seg, Lx, n_images, cutoff):
     """Global segment range [g_lo, g_hi) summed exactly for target node i (module notes)."""
     half = n_images * n + n // 2
     g_lo = i - half
     g_hi = g_lo + (2 * n_images + 1) * n
     if cutoff <= 0.0:
         return g_lo, g_hi
-    xi = xe[i]
+    xi = seg[S_X, n + i]
     g = i
-    while g < g_hi:
-        k = g // n
-        j = g - k * n
-        if abs(xe[j] + 0.5 * tx[j] * sl[j] + k * Lx - xi) > cutoff:
-            break
+    while g < g_hi and abs(_midpoint_x(seg, g, n, Lx) - xi) <= cutoff:
         g += 1
     hi = g
     g = i - 1
-    while g >= g_lo:
-        k = g // n
-        j = g - k * n
-        if abs(xe[j] + 0.5 * tx[j] * sl[j] + k * Lx - xi) > cutoff:
-            break
+    while g >= g_lo and abs(_midpoint_x(seg, g, n, Lx) - xi) <= cutoff:
         g -= 1
     return g + 1, hi
 
 
 @njit(**JIT)
-def _self_stress_target(i, x, y, n, Lx, bx, by, nu, a2, n_images, cutoff, ybar,
-                        xe, ye, tx, ty, sl, ca, cb, cc, uu, tmp):
-    """τ_self at node i of the periodic line: window sum, straight remainder, arc correction."""
-    k0 = -nu * INV_4PI / (1.0 - nu)
-    px = xe[i]
-    py = ye[i]
-    g_lo, g_hi = _window(i, n, xe, Lx, n_images, cutoff, tx, sl)
-    total = 0.0
-    k_first = g_lo // n
-    k_last = (g_hi - 1) // n
-    for k in range(k_first, k_last + 1):
-        j0 = max(g_lo - k * n, 0)
-        j1 = min(g_hi - k * n, n)
-        total += _chain_sum(px - k * Lx, py, xe, ye, j0, j1, tx, ty, sl, ca, cb, cc, a2, k0,
-                            uu, tmp)
-    k = g_lo // n
-    x_lo = xe[g_lo - k * n] + k * Lx
-    y_lo = ye[g_lo - k * n]
-    k = g_hi // n
-    x_hi = xe[g_hi - k * n] + k * Lx
-    y_hi = ye[g_hi - k * n]
-    total += _remainder(px, py, x_lo, y_lo, x_hi, y_hi, ybar, bx, by, nu, a2)
-    if i == 0:
-        xm = x[n - 1] - Lx
-        ym = y[n - 1]
-    else:
-        xm = xe[i - 1]
-        ym = ye[i - 1]
-    total += _arc_correction(xm, ym, px, py, xe[i + 1], ye[i + 1], bx, by, nu, a2)
-    return total
-
-
-@njit(**JIT)
-def _chain_arrays(m):
-    """Scratch for m extended nodes: positions and the per-segment constants (one slot spare)."""
-    return (np.empty(m), np.empty(m), np.empty(m), np.empty(m), np.empty(m), np.empty(m),
-            np.empty(m), np.empty(m))
-
-
-@njit(**JIT)
-def _prepare_line(x, y, n, shift, theta0, nu):
-    """Extended nodes and per-segment constants of a chain (shift = Lx periodic, 0 closed)."""
+def _prepare_self_stress(x, y, n, Lx, theta0, nu, a_core, n_images, cutoff):
+    """Per-call constants of :func:`self_stress`: the line's table, every target's window and
+    the constants of the pair, remainder and arc terms (the ``line`` tuple)."""
     bx = np.cos(theta0)
     by = np.sin(theta0)
-    xe, ye, tx, ty, sl, ca, cb, cc = _chain_arrays(n + 1)
-    _extend(x, y, n, shift, xe, ye)
-    _segment_constants(xe, ye, 0, n, bx, by, nu, tx, ty, sl, ca, cb, cc)
-    return bx, by, xe, ye, tx, ty, sl, ca, cb, cc
+    a2 = a_core * a_core
+    seg = _line_table(x, y, n, Lx, bx, by, nu, a2)
+    lo = np.empty(n, dtype=np.int64)
+    hi = np.empty(n, dtype=np.int64)
+    for i in range(n):
+        lo[i], hi[i] = _window(i, n, seg, Lx, n_images, cutoff)
+    return (seg, lo, hi, n, Lx, bx, by, nu, a2, mean_height(x, y, n, Lx))
 
 
 @njit(**JIT)
-def _self_stress_block(blk, n_blocks, x, y, n, Lx, theta0, nu, a_core, n_images, cutoff, prep,
-                       out):
-    """Targets ``blk, blk + n_blocks, ...``: one scratch allocation per block, out[i] per target."""
-    bx, by, xe, ye, tx, ty, sl, ca, cb, cc, ybar = prep
-    uu = np.empty(n + 1)
-    tmp = np.empty(n)
+def _line_runs(blk, n_blocks, line):
+    """Runs of the windows of targets blk, blk + n_blocks, ...: each window cut into runs of
+    near-equal length, at most RUN and at most n segments, each moved into the three-period table
+    by :func:`_run_shift` (its field point is the target shifted by -s Lx)."""
+    seg, lo, hi, n, Lx = line[:5]
+    longest = min(RUN, n)
+    bound = 0
     for i in range(blk, n, n_blocks):
-        out[i] = _self_stress_target(i, x, y, n, Lx, bx, by, nu, a_core * a_core, n_images,
-                                     cutoff, ybar, xe, ye, tx, ty, sl, ca, cb, cc, uu, tmp)
+        bound += _split(hi[i] - lo[i], longest)[0]
+    runs = _new_runs(bound)
+    r = 0
+    for i in range(blk, n, n_blocks):
+        pieces, base, extra = _split(hi[i] - lo[i], longest)
+        g = lo[i]
+        for q in range(pieces):
+            s = _run_shift(g, n)
+            m = base + (1 if q < extra else 0)
+            r = _add_run(runs, r, i, seg[S_X, n + i] - s * Lx, seg[S_Y, n + i], g - s * n + n, m)
+            g += m
+    return runs, r
 
 
 @njit(**JIT)
-def _prepare_self_stress(x, y, n, Lx, theta0, nu):
-    """Per-call constants of :func:`self_stress` (segments, b, mean height) and the block count."""
-    bx, by, xe, ye, tx, ty, sl, ca, cb, cc = _prepare_line(x, y, n, Lx, theta0, nu)
-    ybar = mean_height(x, y, n, Lx)
-    return (bx, by, xe, ye, tx, ty, sl, ca, cb, cc, ybar), min(n, TARGET_BLOCKS)
+def _line_ends(i, line):
+    """The part of τ_self at node i beyond its window's pair sum: the straight remainder of the
+    line outside the window and the arc correction of the node's own arms (module notes)."""
+    seg, lo, hi, n, Lx, bx, by, nu, a2, ybar = line
+    px = seg[S_X, n + i]
+    py = seg[S_Y, n + i]
+    x_lo, y_lo = _global_node(seg, lo[i], n, Lx)
+    x_hi, y_hi = _global_node(seg, hi[i], n, Lx)
+    xm, ym = _global_node(seg, i - 1, n, Lx)
+    xp, yp = _global_node(seg, i + 1, n, Lx)
+    return (_remainder(px, py, x_lo, y_lo, x_hi, y_hi, ybar, bx, by, nu, a2)
+            + _arc_correction(xm, ym, px, py, xp, yp, bx, by, nu, a2))
+
+
+@njit(**JIT)
+def _self_stress_block(blk, n_blocks, line, out):
+    """τ_self at the targets ``blk, blk + n_blocks, ...`` (out[i] per target only)."""
+    n = line[3]
+    runs, count = _line_runs(blk, n_blocks, line)
+    for i in range(blk, n, n_blocks):
+        out[i] = 0.0
+    _run_sums(line[0], runs, count, _call_constants(line[7], line[8]), out)
+    for i in range(blk, n, n_blocks):
+        out[i] += _line_ends(i, line)
 
 
 def _self_stress_impl(x, y, n, Lx, theta0, nu, a_core, n_images, cutoff, out):
-    prep, n_blocks = _prepare_self_stress(x, y, n, Lx, theta0, nu)
+    line = _prepare_self_stress(x, y, n, Lx, theta0, nu, a_core, n_images, cutoff)
+    n_blocks = _blocks(n)
     for blk in prange(n_blocks):
-        _self_stress_block(np.int64(blk), n_blocks, x, y, n, Lx, theta0, nu, a_core, n_images,
-                           cutoff, prep, out)
+        _self_stress_block(np.int64(blk), n_blocks, line, out)
 
 
 _SELF_STRESS_DOC = """Non-singular elastic self-stress of the periodic line at its nodes.
@@ -519,10 +672,8 @@ self_stress.__doc__ = _SELF_STRESS_DOC
 
 
 def _self_stress_serial_impl(x, y, n, Lx, theta0, nu, a_core, n_images, cutoff, out):
-    prep, n_blocks = _prepare_self_stress(x, y, n, Lx, theta0, nu)
-    for blk in range(n_blocks):
-        _self_stress_block(np.int64(blk), n_blocks, x, y, n, Lx, theta0, nu, a_core, n_images,
-                           cutoff, prep, out)
+    line = _prepare_self_stress(x, y, n, Lx, theta0, nu, a_core, n_images, cutoff)
+    _self_stress_block(np.int64(0), np.int64(1), line, out)    # one block: one pipeline
 
 
 self_stress_serial = njit(**JIT)(_self_stress_serial_impl)
@@ -541,16 +692,39 @@ def _closed_neighbours(x, y, n, i):
     return x[im], y[im], x[ip], y[ip]
 
 
-def _loop_self_stress_impl(x, y, n, theta0, nu, a_core, out):
-    bx, by, xe, ye, tx, ty, sl, ca, cb, cc = _prepare_line(x, y, n, 0.0, theta0, nu)
-    a2 = a_core * a_core
-    k0 = -nu * INV_4PI / (1.0 - nu)
-    for i in prange(n):
-        uu = np.empty(n + 1)
-        tmp = np.empty(n)
+@njit(**JIT)
+def _add_split(runs, r, i, px, py, c0, m):
+    """Append segments c0 .. c0 + m - 1 seen from (px, py) for target i, cut into runs of
+    near-equal length of at most RUN; return the next free slot."""
+    pieces, base, extra = _split(m, RUN)
+    for q in range(pieces):
+        length = base + (1 if q < extra else 0)
+        r = _add_run(runs, r, i, px, py, c0, length)
+        c0 += length
+    return r
+
+
+@njit(**JIT)
+def _loop_self_stress_block(blk, n_blocks, x, y, n, loop, out):
+    """Targets ``blk, blk + n_blocks, ...`` of :func:`loop_self_stress`."""
+    seg, bx, by, nu, a2 = loop
+    runs = _new_runs(((n - 1 - blk) // n_blocks + 1) * _split(n, RUN)[0])
+    r = 0
+    for i in range(blk, n, n_blocks):
+        r = _add_split(runs, r, i, x[i], y[i], 0, n)
+        out[i] = 0.0
+    _run_sums(seg, runs, r, _call_constants(nu, a2), out)
+    for i in range(blk, n, n_blocks):
         xm, ym, xp, yp = _closed_neighbours(x, y, n, i)
-        out[i] = (_chain_sum(x[i], y[i], xe, ye, 0, n, tx, ty, sl, ca, cb, cc, a2, k0, uu, tmp)
-                  + _arc_correction(xm, ym, x[i], y[i], xp, yp, bx, by, nu, a2))
+        out[i] += _arc_correction(xm, ym, x[i], y[i], xp, yp, bx, by, nu, a2)
+
+
+def _loop_self_stress_impl(x, y, n, theta0, nu, a_core, out):
+    bx, by, a2 = np.cos(theta0), np.sin(theta0), a_core * a_core
+    loop = (_closed_table(x, y, n, 0.0, bx, by, nu, a2), bx, by, nu, a2)
+    n_blocks = _blocks(n)
+    for blk in prange(n_blocks):
+        _loop_self_stress_block(np.int64(blk), n_blocks, x, y, n, loop, out)
 
 
 loop_self_stress = njit(**JIT_PARALLEL)(_loop_self_stress_impl)
@@ -576,39 +750,42 @@ loop_self_stress.__doc__ = """Non-singular self-stress at the nodes of one close
 
 
 @njit(**JIT)
-def _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu):
-    """Closed, extended copies of every loop (n_l + 1 nodes each) and their segment constants."""
+def _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu, a2):
+    """Every loop in one segment table: loop after loop, each as its n_l nodes and its first
+    node again, the segment from that closing node to the next loop's first node a gap of zero
+    weight (its pair term is exactly 0), so that one run sums every loop.  Returns the table."""
     bx = np.cos(theta0)
     by = np.sin(theta0)
-    xe, ye, tx, ty, sl, ca, cb, cc = _chain_arrays(loop_offsets[n_loops] - loop_offsets[0]
-                                                   + n_loops)
-    starts = np.empty(n_loops + 1, dtype=np.int64)
+    seg = np.zeros((SEG_ROWS, loop_offsets[n_loops] - loop_offsets[0] + n_loops))
     e = 0
     for k in range(n_loops):
-        starts[k] = e
         lo = loop_offsets[k]
         nl = loop_offsets[k + 1] - lo
         for j in range(nl):
-            xe[e + j] = loop_x[lo + j]
-            ye[e + j] = loop_y[lo + j]
-        xe[e + nl] = loop_x[lo]
-        ye[e + nl] = loop_y[lo]
-        _segment_constants(xe, ye, e, e + nl, bx, by, nu, tx, ty, sl, ca, cb, cc)
+            seg[S_X, e + j] = loop_x[lo + j]
+            seg[S_Y, e + j] = loop_y[lo + j]
+        seg[S_X, e + nl] = loop_x[lo]
+        seg[S_Y, e + nl] = loop_y[lo]
+        _fill_segments(seg, e, e + nl, bx, by, nu, a2)
         e += nl + 1
-    starts[n_loops] = e
-    return xe, ye, tx, ty, sl, ca, cb, cc, starts
+        seg[S_TX, e - 1] = 1.0          # the gap: finite geometry, weights left at 0
+        seg[S_L, e - 1] = 1.0
+    return seg
 
 
 @njit(**JIT)
-def _loop_stress_target(px, py, Lx, n_images, n_loops, prep, a2, k0, uu, tmp):
-    """Resolved shear at (px, py) from every loop and its images (``prep``: _prepare_loops)."""
-    xe, ye, tx, ty, sl, ca, cb, cc, starts = prep
-    total = 0.0
-    for k in range(-n_images, n_images + 1):
-        for lp in range(n_loops):
-            total += _chain_sum(px - k * Lx, py, xe, ye, starts[lp], starts[lp + 1] - 1,
-                                tx, ty, sl, ca, cb, cc, a2, k0, uu, tmp)
-    return total
+def _loop_stress_block(blk, n_blocks, x, y, n, Lx, n_images, seg, kc, out):
+    """Targets ``blk, blk + n_blocks, ...`` of :func:`loop_stress`: the loops' table (``seg``,
+    :func:`_prepare_loops`) once per image, seen from the target shifted by -k Lx."""
+    m = max(seg.shape[1] - 1, 0)
+    per_target = (2 * n_images + 1) * _split(m, RUN)[0]
+    runs = _new_runs(((n - 1 - blk) // n_blocks + 1) * per_target)
+    r = 0
+    for i in range(blk, n, n_blocks):
+        out[i] = 0.0
+        for k in range(-n_images, n_images + 1):
+            r = _add_split(runs, r, i, x[i] - k * Lx, y[i], 0, m)
+    _run_sums(seg, runs, r, kc, out)
 
 
 # Two Python functions, not two dispatchers of one: numba's on-disk cache names an entry after
@@ -617,24 +794,20 @@ def _loop_stress_target(px, py, Lx, n_images, n_loops, prep, a2, k0, uu, tmp):
 # dispatcher").
 def _loop_stress_impl(x, y, n, loop_x, loop_y, loop_offsets, n_loops, Lx, theta0, nu, a_core,
                       n_images, out):
-    prep = _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu)
     a2 = a_core * a_core
-    k0 = -nu * INV_4PI / (1.0 - nu)
-    m = prep[0].shape[0]
-    for i in prange(n):
-        out[i] = _loop_stress_target(x[i], y[i], Lx, n_images, n_loops, prep, a2, k0,
-                                     np.empty(m), np.empty(m))
+    seg = _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu, a2)
+    kc = _call_constants(nu, a2)
+    n_blocks = _blocks(n)
+    for blk in prange(n_blocks):
+        _loop_stress_block(np.int64(blk), n_blocks, x, y, n, Lx, n_images, seg, kc, out)
 
 
 def _loop_stress_serial_impl(x, y, n, loop_x, loop_y, loop_offsets, n_loops, Lx, theta0, nu,
                              a_core, n_images, out):
-    prep = _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu)
     a2 = a_core * a_core
-    k0 = -nu * INV_4PI / (1.0 - nu)
-    m = prep[0].shape[0]
-    uu, tmp = np.empty(m), np.empty(m)
-    for i in range(n):
-        out[i] = _loop_stress_target(x[i], y[i], Lx, n_images, n_loops, prep, a2, k0, uu, tmp)
+    seg = _prepare_loops(loop_x, loop_y, loop_offsets, n_loops, theta0, nu, a2)
+    _loop_stress_block(np.int64(0), np.int64(1), x, y, n, Lx, n_images, seg,
+                       _call_constants(nu, a2), out)
 
 
 loop_stress = njit(**JIT_PARALLEL)(_loop_stress_impl)

@@ -21,8 +21,10 @@ from numba.core.registry import CPUDispatcher
 
 import dlsim
 
-# A line with self-stress and one Orowan loop stored, stepped 200 times: relax_line then runs
-# the parallel self-stress and loop-stress kernels.  Prints the cache hits of relax_line.
+# A line with self-stress and one Orowan loop stored, stepped 200 times, both large enough that
+# relax_line runs the parallel self-stress and loop-stress kernels (3 n² and 3 n m pairs, one image
+# on each side, at least PARALLEL_MIN_PAIRS), so that the threads start inside the cached stepper.
+# Prints the cache hits of relax_line.
 STEP_WITH_LOOP = """
 import numpy as np
 from dlsim import contract as C
@@ -30,14 +32,16 @@ from dlsim import kernels as K
 from dlsim.fields import square_field
 from dlsim.line import LineState
 from dlsim.solver import Elasticity, LineModel, Protocol, Relaxer
-L = 200.0
+L = 6000.0
 e = Elasticity(model="self_stress", burgers_angle=0.0, core_radius=1.0, outer_radius=L,
                images=1, refresh=10)
 relaxer = Relaxer(square_field(L, 1, 1, np.inf), LineModel(0.5, 10.0, elasticity=e))
 s = LineState.straight(L, 0.0, 10.0)
-t = np.linspace(0.0, 2.0 * np.pi, 20, endpoint=False)
-s.loop_x[:20], s.loop_y[:20] = 50.0 + 8.0 * np.cos(t), 60.0 + 8.0 * np.sin(t)
-s.loop_off[1], s.meta[C.M_NLOOPS], s.meta[C.M_NLOOPNODES] = 20, 1, 20
+m = 600
+t = np.linspace(0.0, 2.0 * np.pi, m, endpoint=False)
+s.loop_x[:m], s.loop_y[:m] = 3000.0 + 950.0 * np.cos(t), 1600.0 + 950.0 * np.sin(t)
+s.loop_off[1], s.meta[C.M_NLOOPS], s.meta[C.M_NLOOPNODES] = m, 1, m
+assert 3 * min(s.n, m) * s.n >= C.PARALLEL_MIN_PAIRS
 name, steps = relaxer.relax(s, 0.2 / L, s.area(), Protocol(0.1 / L, 1e-4 / L, L, 0, 200, 1.0))
 assert steps == 200, (name, steps)
 print(sum(K.relax_line.stats.cache_hits.values()))
