@@ -105,7 +105,7 @@ class StepProfile:
     timing each; the cost of a call with no nodes (argument unboxing) is subtracted.  Python runs
     between the calls and cools the caches, so the kernel times come out somewhat higher than in
     the compiled loop: read the shares, not the sum.  The rig's line glides above the CRSS and
-    never creeps, so the creeping line's backward-Euler step (kernels.creep_displacements) is not
+    never settles, so the settling line's backward-Euler step (kernels.settle_displacements) is not
     in the profile.
     """
 

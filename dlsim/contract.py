@@ -100,7 +100,7 @@ M_CAPTURES = 5        # obstacles captured (cumulative)
 M_RECONNECT = 6       # reconnections (cumulative)
 M_REMESH = 7          # remeshing passes (cumulative)
 M_CONTACT_CHECKS = 8  # contact searches run (cumulative)
-M_CREEP = 9           # of the time steps, backward-Euler steps of a creeping line (cumulative)
+M_SETTLE = 9          # of the time steps, backward-Euler steps of a settling line (cumulative)
 N_META = 10
 
 # --- rows of the work arrays ---------------------------------------------------------------------

@@ -19,7 +19,7 @@ import numpy as np
 from numba import njit
 
 from dlsim.contract import (CAPACITY, EQUILIBRIUM, FLOWING, HEADROOM, I_BIGN, I_BPIN, I_CAPTURE,
-                            I_HEAD, I_KEEP, I_NEXT, I_SRC, M_CAPTURES, M_CONTACT_CHECKS, M_CREEP,
+                            I_HEAD, I_KEEP, I_NEXT, I_SRC, M_CAPTURES, M_CONTACT_CHECKS, M_SETTLE,
                             M_N, M_NLOOPNODES, M_NLOOPS, M_RECONNECT, M_RELEASES, M_REMESH, M_STEPS,
                             MAX_CAPTURES, MAX_STEPS, MIN_NODES, MODEL_CONSTANT, MODEL_DWK,
                             MODEL_SELF, OCC_BITS, OCC_MASK, OCC_SLOTS, PARALLEL_MIN_PAIRS, W_BUF,
@@ -85,14 +85,14 @@ TURNED_TX = 0.5
 #: in practice, that keeps a line that would release and reconnect for ever from hanging).
 PASSES_PER_STEP = 4
 #: A line whose fastest node moves less than this fraction of l_min in an explicit step is
-#: creeping towards equilibrium: no avalanche is under way, only the slow diffusive settling of
+#: settling towards equilibrium: no avalanche is under way, only the slow diffusive settling of
 #: long arcs, which the explicit step resolves at about (arc nodes)² steps per decade of the
-#: residual.  It then takes backward-Euler steps of CREEP_STEP explicit steps, solved along each
-#: chain of free nodes between pins (:func:`creep_displacements`).
-CREEP_FRACTION = 0.02
-#: Time step of the creeping line's backward-Euler step, in explicit steps: the slowest mode of a
-#: chain of m nodes decays by 1/(1 + CREEP_STEP π²/m²) per step (a factor 5 at m = 50).
-CREEP_STEP = 1000.0
+#: residual.  It then takes backward-Euler steps of SETTLE_STEP explicit steps, solved along each
+#: chain of free nodes between pins (:func:`settle_displacements`).
+SETTLE_FRACTION = 0.02
+#: Time step of the settling line's backward-Euler step, in explicit steps: the slowest mode of a
+#: chain of m nodes decays by 1/(1 + SETTLE_STEP π²/m²) per step (a factor 5 at m = 50).
+SETTLE_STEP = 1000.0
 
 
 @njit(**JIT)
@@ -504,9 +504,9 @@ def move_and_capture(line, n, dt, prm, field, work_f, work_i):
     again at its new position, except that a node nearer than ``h`` to an obstacle waits until it
     has moved REFRESH_FRACTION l_min (its segments are tested exactly meanwhile).  Callers set the
     radius to UNKNOWN wherever nodes are created or moved other than here, and shrink the discs an
-    obstacle lies in when it becomes free (:func:`_obstacle_freed`).  Each node is moved right after the segment it starts has been tested,
-    so the line is read once.  The captures go to the capture rows (:func:`_captures`), not yet
-    into the line (:func:`insert_pins`).
+    obstacle lies in when it becomes free (:func:`_obstacle_freed`).  Each node is moved right
+    after the segment it starts has been tested, so the line is read once.  The captures go to
+    the capture rows (:func:`_captures`), not yet into the line (:func:`insert_pins`).
 
     Returns
     -------
@@ -811,13 +811,6 @@ def _pow2_at_most(value):
     return p
 
 
-@njit(**JIT, inline="always")
-def _bucket(i, j, mx, mask):
-    """Hash bucket of grid cell (i mod (mx + 1), j): a line may span many cells in y, and a
-    bucket per row modulo a power of two would stack its distant parts in the same buckets."""
-    return (((i & mx) * 73856093) ^ (j * 19349663)) & mask
-
-
 @njit(**JIT)
 def find_contact(line, n, prm, work_f, work_i):
     """A pair of free nodes (i, j), i < j, on parts of the line of opposite sense in contact.
@@ -857,9 +850,8 @@ def find_contacts(line, n, prm, work_f, work_i, ci, cj):
     nodes apart along the line (or wrapped round obstacles between, RECONNECT_MIN_PINS) and their
     chord tangents (rows W_NTX, W_NTY, :func:`node_pass`) are closer to antiparallel than
     RECONNECT_COS; only nodes with t_x < TURNED_TX need to look (most of a gliding line does
-    not).  Candidates come from a hashed cell list over the free nodes, a power-of-two count of cells
-    in x so that wrapping is a bit mask, the cells hashed into buckets (:func:`_bucket`; rows
-    I_HEAD: buckets, I_NEXT: nodes).  Each looking node
+    not).  Candidates come from a hashed cell list over the free nodes, with power-of-two cell
+    counts so that wrapping is a bit mask (rows I_HEAD: cells, I_NEXT: nodes).  Each looking node
     contributes the first partner it finds; the pairs go to ``ci, cj`` until they are full.
     Returns the number of pairs.
     """
@@ -1209,7 +1201,6 @@ def cut_crossing(line, n, p, q, t, prm, meta, loops, field, work_f):
     that line tension would shrink away, dropped.
     """
     x, y, pin = line[0], line[1], line[2]
-    opin = field[3]
     Lx = field[8]
     ax, ay = x[p], y[p]
     bx, by = _node_at(x, y, n, p + 1, Lx)
@@ -1231,10 +1222,8 @@ def cut_crossing(line, n, p, q, t, prm, meta, loops, field, work_f):
         meta[M_NLOOPNODES] = used + 1
         loff[meta[M_NLOOPS]] = used + 1
     elif pins == 1:
-        opin[pin[held]] -= _occ_unit(field, pin[held], y[held])
+        _unhold(pin[held], y[held], n, prm, field, work_f)
         meta[M_RELEASES] += 1
-        if not _held(field, pin[held], y[held]):
-            _obstacle_freed(pin[held], n, prm, field, work_f)
     return _rejoin(line, n, p, q, cx, cy, work_f)
 
 
@@ -1346,7 +1335,7 @@ def _release(line, n, prm, field, work_f, meta, loops):
     """
     x, y, pin, ign = line
     fpin = work_f[W_FPIN]
-    ofc, opin = field[2], field[3]
+    ofc = field[2]
     released = 0
     for i in range(n):
         k = pin[i]
@@ -1355,13 +1344,20 @@ def _release(line, n, prm, field, work_f, meta, loops):
                 if not _store_loop(x, y, pin, n, i, i, 0.0, meta, loops):
                     return -1
             else:
-                opin[k] -= _occ_unit(field, k, y[i])
-                if not _held(field, k, y[i]):
-                    _obstacle_freed(k, n, prm, field, work_f)
+                _unhold(k, y[i], n, prm, field, work_f)
             pin[i] = -1
             ign[i] = k
             released += 1
     return released
+
+
+@njit(**JIT)
+def _unhold(k, py, n, prm, field, work_f):
+    """A line node at height py lets go of obstacle k: one holder less of that image, and, if it
+    is free now, the discs it lies in shrink (:func:`_obstacle_freed`)."""
+    field[3][k] -= _occ_unit(field, k, py)
+    if not _held(field, k, py):
+        _obstacle_freed(k, n, prm, field, work_f)
 
 
 @njit(**JIT)
@@ -1520,16 +1516,16 @@ def _forces(line, n, prm, meta, loops, field, work_f, work_i, fresh):
 
 
 @njit(**JIT)
-def _advance(line, n, prm, meta, field, work_f, work_i, creep):
+def _advance(line, n, prm, meta, field, work_f, work_i, settle):
     """Move the free nodes by one step, pin what they swept and remesh where a segment left its
     bounds; return (node count, whether the step was taken).
 
-    The step is point-implicit (:func:`move_and_capture`), or with ``creep`` the backward-Euler
-    step of a creeping line (:func:`creep_displacements`).  A creeping step that would pin more
+    The step is point-implicit (:func:`move_and_capture`), or with ``settle`` the backward-Euler
+    step of a settling line (:func:`settle_displacements`).  A settling step that would pin more
     than one obstacle is undone and not taken (False): in one long step the order in which a
     chain meets obstacles would be lost, so the caller takes point-implicit steps instead.
     """
-    if creep and creep_displacements(line, n, prm, work_f):
+    if settle and settle_displacements(line, n, prm, work_f):
         x, y = line[0], line[1]
         bx, by = work_f[W_BX], work_f[W_BY]
         bx[:n], by[:n] = x[:n], y[:n]
@@ -1537,7 +1533,7 @@ def _advance(line, n, prm, meta, field, work_f, work_i, creep):
         if ncap > 1:
             x[:n], y[:n] = bx[:n], by[:n]   # the discs measured on the way stay valid
             return n, False
-        meta[M_CREEP] += 1
+        meta[M_SETTLE] += 1
     else:
         ncap, bad = move_and_capture(line, n, time_step(prm), prm, field, work_f, work_i)
     if ncap > 0:
@@ -1552,11 +1548,11 @@ def _advance(line, n, prm, meta, field, work_f, work_i, creep):
 
 
 @njit(**JIT)
-def creep_displacements(line, n, prm, work_f):
-    """Backward-Euler displacements of the free nodes of a creeping line; False if it has no pin.
+def settle_displacements(line, n, prm, work_f):
+    """Backward-Euler displacements of the free nodes of a settling line; False if it has no pin.
 
     Along each chain of free nodes between two pinned ones, the normal displacements u solve the
-    tridiagonal system of one backward-Euler step of length dt = CREEP_STEP × the explicit step,
+    tridiagonal system of one backward-Euler step of length dt = SETTLE_STEP × the explicit step,
     linearised about the current line:
 
         (1/(M dt) + 2Γ_s/(a_i b_i)) u_i − Γ_s c⁻_i/(a_i l_i) u_{i−1} − Γ_s c⁺_i/(b_i l_i) u_{i+1} = τ_eff,i
@@ -1565,7 +1561,7 @@ def creep_displacements(line, n, prm, work_f):
     Γ_s = prm.stiffness; the diagonal is the point-implicit stiffness of :func:`node_pass`).
     Pins, and nodes friction holds (τ_eff = 0), do not move.  The matrix is an M-matrix (weakly
     diagonally dominant, strictly once 1/(M dt) is added), so a chain pushed one way moves that
-    way only, by no more than its linearised equilibrium would: the line creeps into the same
+    way only, by no more than its linearised equilibrium would: the line settles into the same
     equilibrium without overshooting it, so it sweeps no obstacle beyond it.  Each chain's
     displacements are scaled down together so that none exceeds MAX_MOVE_FRACTION l_min.
 
@@ -1579,7 +1575,7 @@ def creep_displacements(line, n, prm, work_f):
     ntx, nty = work_f[W_NTX], work_f[W_NTY]
     cp, dp = work_f[W_NEAR], work_f[W_BUF]
     mob, gs, Lx = prm.mobility, prm.stiffness, prm.Lx
-    inv_mdt = 1.0 / (mob * CREEP_STEP * time_step(prm))
+    inv_mdt = 1.0 / (mob * SETTLE_STEP * time_step(prm))
     cap = MAX_MOVE_FRACTION * prm.l_min
     first = -1
     for i in range(n):
@@ -1625,7 +1621,7 @@ def creep_displacements(line, n, prm, work_f):
             big = 0.0
             for q in range(end - 1, start, -1):
                 i = q % n
-                u = dp[i] + cp[i] * u_next if dp[i] != 0.0 or cp[i] != 0.0 else 0.0
+                u = dp[i] + cp[i] * u_next      # 0 at a held node (cp = dp = 0)
                 dp[i] = u
                 u_next = u
                 big = max(big, abs(u))
@@ -1683,7 +1679,7 @@ def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
     refresh = max(prm.refresh, 1)
     stale = True            # the non-local self-stress must be evaluated (MODEL_SELF)
     dt = time_step(prm)
-    creep_ok = True         # False right after a creeping step was undone
+    settle_ok = True        # False right after a settling step was undone
     since = 0               # moves since it was
     for _ in range(PASSES_PER_STEP * max_steps):
         if moved >= max_steps:
@@ -1721,13 +1717,13 @@ def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
         if max_te < prm.tolerance:
             meta[M_N] = n
             return EQUILIBRIUM
-        creep = (creep_ok and prm.model != MODEL_SELF
-                 and vmax * dt < CREEP_FRACTION * prm.l_min)
-        n, taken = _advance(line, n, prm, meta, field, work_f, work_i, creep)
-        if not taken:       # a creeping step would have pinned several obstacles at once
-            creep_ok = False
+        settle = (settle_ok and prm.model != MODEL_SELF
+                 and vmax * dt < SETTLE_FRACTION * prm.l_min)
+        n, taken = _advance(line, n, prm, meta, field, work_f, work_i, settle)
+        if not taken:       # a settling step would have pinned several obstacles at once
+            settle_ok = False
             continue
-        creep_ok = True
+        settle_ok = True
         moved += 1
         since += 1
         meta[M_STEPS] += 1

@@ -321,7 +321,6 @@ def kmc_nodal_events(line, meta, prm, field, loops, work_f, work_i, max_steps, b
         K_UNRESOLVED.
     """
     x, y, pin, ign = line
-    opin = field[3]
     n_ev = u.shape[0] // 2
     while True:
         if Q[Q_PENDING] != 0.0:
@@ -349,7 +348,7 @@ def kmc_nodal_events(line, meta, prm, field, loops, work_f, work_i, max_steps, b
             return st
         i = slots[pick]
         o = pin[i]
-        opin[o] -= K._occ_unit(field, o, y[i])
+        K._unhold(o, y[i], n, prm, field, work_f)
         # only the arms that have just left an obstacle skip it: the line crosses the periodic
         # box again and again, and a node still marked with an obstacle it left events ago
         # would tunnel through that obstacle's image one box height on

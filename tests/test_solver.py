@@ -86,9 +86,9 @@ def test_bow_out_radius_between_two_pins_is_gamma_over_tau():
     assert radius == pytest.approx(GAMMA / tau, rel=0.01)
 
 
-def test_creeping_bow_out_settles_onto_the_arc_without_overshoot():
-    # Once no node moves faster than CREEP_FRACTION l_min per step the line takes backward-Euler
-    # steps along its chains (kernels.creep_displacements): an M-matrix step, so the bowing arc
+def test_settling_bow_out_rises_onto_the_arc_without_overshoot():
+    # Once no node moves faster than SETTLE_FRACTION l_min per step the line takes backward-Euler
+    # steps along its chains (kernels.settle_displacements): an M-matrix step, so the bowing arc
     # must rise monotonically onto R = Γ/(τ b) (line-tension relation, common practice) and
     # never past it, or it could sweep obstacles the settling line never reaches.
     field = square_field(L, 1, 1, np.inf)
@@ -98,7 +98,7 @@ def test_creeping_bow_out_settles_onto_the_arc_without_overshoot():
     tops = []
     name, steps = relaxer.relax(state, tau, state.area(), protocol(2 * GAMMA / L, tol=1e-6),
                                 chunk=1, on_chunk=lambda s, t, k: tops.append(s.y[: s.n].max()))
-    assert name == "pinned" and state.meta[C.M_CREEP] > 0
+    assert name == "pinned" and state.meta[C.M_SETTLE] > 0
     x, y, pin = state.nodes()
     R = GAMMA / tau
     sagitta = R - np.sqrt(R * R - L * L / 4)          # chord L, the pin's periodic image
