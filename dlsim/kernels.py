@@ -42,7 +42,8 @@ start_threads()
 #: longer bound the step of the whole line (explicit Euler needs dt < a b/(2MΓ) at the shortest
 #: arms), and every equilibrium (v = 0) is the same.  The step is set so that k dt equals this at a
 #: node whose arms are the target spacing (l_min + l_max)/2 (2: half the way to the largest
-#: damped step, a choice checked against the regular-array CRSS).
+#: damped step, a choice checked against the regular-array CRSS).  The self-stress line, and a
+#: line without a pin, take this step; the others take implicit steps (IMPLICIT_GROWTH).
 STEP_STIFFNESS = 2.0
 #: No node moves more than this fraction of the shortest segment in one step, so that the swept
 #: quadrilaterals stay simple and capture geometry stays accurate.  The few fast nodes (next to a
@@ -84,15 +85,24 @@ TURNED_TX = 0.5
 #: pins or reconnects does not move the line and is followed by another (a bound, never reached
 #: in practice, that keeps a line that would release and reconnect for ever from hanging).
 PASSES_PER_STEP = 4
-#: A line whose fastest node moves less than this fraction of l_min in an explicit step is
-#: settling towards equilibrium: no avalanche is under way, only the slow diffusive settling of
-#: long arcs, which the explicit step resolves at about (arc nodes)² steps per decade of the
-#: residual.  It then takes backward-Euler steps of SETTLE_STEP explicit steps, solved along each
-#: chain of free nodes between pins (:func:`settle_displacements`).
-SETTLE_FRACTION = 0.02
-#: Time step of the settling line's backward-Euler step, in explicit steps: the slowest mode of a
-#: chain of m nodes decays by 1/(1 + SETTLE_STEP π²/m²) per step (a factor 5 at m = 50).
+#: The constant-Γ and de Wit–Koehler lines take linearly implicit (backward-Euler) steps, solved
+#: along each chain of free nodes between pins (:func:`implicit_displacements`), whose length dt
+#: follows the line: after each step it is multiplied by cap/u (cap = MAX_MOVE_FRACTION l_min, u
+#: the largest move of a node that a shorter step would slow), by at most this factor, so that
+#: the fastest nodes move about the cap, not what the stiffness of the short wavelengths allows.
+#: It is never shorter than the time a straight free line needs to glide the cap, or than
+#: :func:`time_step` if that is shorter: nodes faster than a free line are driven by the curvature
+#: of a few segments next to a fresh pin or a released one, and are held to the cap one by one.
+IMPLICIT_GROWTH = 2.0
+#: The implicit time step in explicit steps (:func:`time_step`) at the most: the slowest mode of a
+#: chain of m nodes then decays by 1/(1 + SETTLE_STEP π²/m²) per step (a factor 5 at m = 50), so
+#: a line near equilibrium settles in few steps.  Steps this long are counted as settling steps
+#: (meta slot M_SETTLE).
 SETTLE_STEP = 1000.0
+#: Slot of row W_CAPTURE, past its capture lists, that carries the implicit time step from one
+#: call of :func:`relax_line` to the next within a relaxation (0: none yet; the caller zeroes the
+#: work rows at its start), so that the steps do not depend on how the relaxation is chunked.
+DT_SLOT = 3 * MAX_CAPTURES
 
 
 @njit(**JIT)
@@ -1495,7 +1505,8 @@ def model_forces(line, n, prm, meta, loops, work_f, fresh):
 
 @njit(**JIT)
 def time_step(prm):
-    """Time step of the point-implicit update (STEP_STIFFNESS; time unit 1/(M G))."""
+    """Time step of the point-implicit update (STEP_STIFFNESS; time unit 1/(M G)), the unit
+    of the implicit step's length (SETTLE_STEP)."""
     h = 0.5 * (prm.l_min + prm.l_max)
     return STEP_STIFFNESS * h * h / (2.0 * prm.mobility * prm.stiffness)
 
@@ -1516,26 +1527,41 @@ def _forces(line, n, prm, meta, loops, field, work_f, work_i, fresh):
 
 
 @njit(**JIT)
-def _advance(line, n, prm, meta, field, work_f, work_i, settle):
+def _advance(line, n, dt, dt_low, prm, meta, field, work_f, work_i):
     """Move the free nodes by one step, pin what they swept and remesh where a segment left its
-    bounds; return (node count, whether the step was taken).
+    bounds; return (node count, the step's length, the largest displacement it asked for).
 
-    The step is point-implicit (:func:`move_and_capture`), or with ``settle`` the backward-Euler
-    step of a settling line (:func:`settle_displacements`).  A settling step that would pin more
-    than one obstacle is undone and not taken (False): in one long step the order in which a
-    chain meets obstacles would be lost, so the caller takes point-implicit steps instead.
+    The constant-Γ and de Wit–Koehler lines take the backward-Euler step of length ``dt`` along
+    their chains (:func:`implicit_displacements`), shortened (not below ``dt_low``) when a node
+    that a shorter step would slow would move more than MAX_MOVE_FRACTION l_min; the self-stress
+    line, and a line without a pin (one periodic chain), the point-implicit step of
+    :func:`time_step` (largest displacement -1).  Either way no node moves more than
+    MAX_MOVE_FRACTION l_min and :func:`move_and_capture` pins every obstacle the segments sweep.
+    An implicit step stops each chain where it first meets an obstacle (:func:`_first_contacts`),
+    so that the chain is pinned there, on the line, and not a step past it.
     """
-    if settle and settle_displacements(line, n, prm, work_f):
+    big = -1.0
+    dt0 = time_step(prm)
+    if prm.model != MODEL_SELF:
+        big = implicit_displacements(line, n, dt, prm, work_f)
+        cap = MAX_MOVE_FRACTION * prm.l_min
+        if big > cap and dt > dt_low:
+            dt = max(dt * cap / big, dt_low)
+            big = implicit_displacements(line, n, dt, prm, work_f)
+    if big >= 0.0:
+        _implicit_moves(line[2], n, work_f)
         x, y = line[0], line[1]
-        bx, by = work_f[W_BX], work_f[W_BY]
-        bx[:n], by[:n] = x[:n], y[:n]
+        work_f[W_BX, :n] = x[:n]
+        work_f[W_BY, :n] = y[:n]
         ncap, bad = move_and_capture(line, n, 1.0, prm, field, work_f, work_i)
-        if ncap > 1:
-            x[:n], y[:n] = bx[:n], by[:n]   # the discs measured on the way stay valid
-            return n, False
-        meta[M_SETTLE] += 1
+        if ncap > 0:
+            ncap, back = _first_contacts(line, n, ncap, prm, work_f, work_i)
+            if back >= 0:
+                bad = back if bad < 0 else min(bad, back)
+        if dt >= SETTLE_STEP * dt0:
+            meta[M_SETTLE] += 1
     else:
-        ncap, bad = move_and_capture(line, n, time_step(prm), prm, field, work_f, work_i)
+        ncap, bad = move_and_capture(line, n, dt0, prm, field, work_f, work_i)
     if ncap > 0:
         meta[M_CAPTURES] += ncap
         n = insert_pins(line, n, ncap, field, work_f, work_i)
@@ -1544,16 +1570,154 @@ def _advance(line, n, prm, meta, field, work_f, work_i, settle):
     if bad >= 0:   # remesh now, so that the next step's node_pass is its only one
         meta[M_REMESH] += 1
         n = _remesh_line(line, n, prm, bad, field, work_f, work_i)
-    return n, True
+    return n, dt, big
 
 
 @njit(**JIT)
-def settle_displacements(line, n, prm, work_f):
-    """Backward-Euler displacements of the free nodes of a settling line; False if it has no pin.
+def _first_contacts(line, n, ncap, prm, work_f, work_i):
+    """Stop every chain that swept obstacles in this step where it met the first of them; return
+    (the captures kept, the first segment out of its bounds among the chains stopped, -1: none).
+
+    Within a step each node moves on a straight path from its place before the step (rows W_BX,
+    W_BY) to its place after it; the time each captured obstacle was met is when it lay on its
+    segment (:func:`_contact_time`).  A chain of free nodes between two pins that swept several
+    obstacles met the first of them first, and that one pins it: the nodes of the chain are put
+    back to where they were at that time (their clearance discs UNKNOWN), so that the obstacle
+    lies on the line, and the obstacles it would have met later are not captured (the chain,
+    behind them, sweeps them in a later step if it still gets there).  Chains do not feel each
+    other within a step (the pins between them hold), so each keeps its own first contact; a
+    step that captures nothing is unchanged.  Scratch row W_NEAR (the contact times).
+    """
+    x, y, pin = line[0], line[1], line[2]
+    bx, by, when = work_f[W_BX], work_f[W_BY], work_f[W_NEAR]
+    captures = _captures(work_f, work_i)
+    _sort_captures(ncap, captures)
+    seg, pos, obs, cx, cy = captures
+    Lx = prm.Lx
+    for c in range(ncap):
+        s = seg[c]
+        s1, sh = (s + 1, 0.0) if s < n - 1 else (0, Lx)
+        when[c] = _contact_time((bx[s], by[s], x[s], y[s]),
+                                (bx[s1] + sh, by[s1], x[s1] + sh, y[s1]), cx[c], cy[c])
+    # runs of captures on one chain (no pin between their segments), from one after a pin
+    start = 0
+    for c in range(ncap):
+        before = seg[c - 1] if c > 0 else seg[ncap - 1] - n
+        if _pinned_between(pin, n, before, seg[c]):
+            start = c
+            break
+    bad = -1
+    c = start
+    done = 0
+    while done < ncap:
+        last, size = c, 1
+        t = when[c]
+        while size < ncap:
+            nxt = last + 1 if last + 1 < ncap else 0
+            if _pinned_between(pin, n, seg[last], seg[nxt] if nxt > last else seg[nxt] + n):
+                break
+            last, size = nxt, size + 1
+            t = min(t, when[nxt])
+        k = c
+        for _ in range(size):
+            if when[k] > t:
+                obs[k] = -1               # met later than the first: not reached
+            k = k + 1 if k + 1 < ncap else 0
+        if t < 1.0:
+            back = _put_back(line, n, seg[c], t, prm, work_f)
+            if back >= 0:
+                bad = back if bad < 0 else min(bad, back)
+        done += size
+        c = last + 1 if last + 1 < ncap else 0
+    kept = 0
+    for c in range(ncap):
+        if obs[c] >= 0:
+            seg[kept], pos[kept], obs[kept], cx[kept], cy[kept] = seg[c], pos[c], obs[c], cx[c], cy[c]
+            kept += 1
+    return kept, bad
+
+
+@njit(**JIT)
+def _pinned_between(pin, n, a, b):
+    """Whether a pinned node lies among nodes a+1 .. b (b >= a, indices mod n)."""
+    for q in range(a + 1, b + 1):
+        if pin[q % n] >= 0:
+            return True
+    return False
+
+
+@njit(**JIT)
+def _put_back(line, n, s, t, prm, work_f):
+    """Put the free nodes of the chain through segment s back to the fraction t of their step
+    (from rows W_BX, W_BY); their discs UNKNOWN.  Returns the first of the chain's segments out
+    of [l_min, l_max] (-1: none)."""
+    x, y, pin = line[0], line[1], line[2]
+    bx, by, rad = work_f[W_BX], work_f[W_BY], work_f[W_RAD]
+    Lx, lmin2, lmax2 = prm.Lx, prm.l_min * prm.l_min, prm.l_max * prm.l_max
+    lo = s + n
+    while pin[lo % n] < 0:
+        lo -= 1
+    hi = s + 1 + n
+    while pin[hi % n] < 0:
+        hi += 1
+    for q in range(lo + 1, hi):
+        i = q % n
+        x[i] = bx[i] + t * (x[i] - bx[i])
+        y[i] = by[i] + t * (y[i] - by[i])
+        rad[i] = UNKNOWN
+    bad = -1
+    for q in range(lo, hi):
+        i, j = q % n, (q + 1) % n
+        ex, ey = x[j] + (Lx if j == 0 else 0.0) - x[i], y[j] - y[i]
+        e2 = ex * ex + ey * ey
+        if e2 > lmax2 or e2 < lmin2:
+            bad = i if bad < 0 else min(bad, i)
+    return bad
+
+
+@njit(**JIT)
+def _contact_time(a, b, ox, oy):
+    """The earliest fraction t in [0, 1] of a step at which the point (ox, oy) lies on the line
+    through the segment's ends, each moving straight from (x0, y0) to (x1, y1) (``a``, ``b`` =
+    (x0, y0, x1, y1)); 1 if it does not.
+
+    The cross product of the segment with the point's offset is quadratic in t; the first change
+    of its sign is bracketed (at its extremum if that lies inside) and bisected.
+    """
+    ax, ay, dax, day = a[0], a[1], a[2] - a[0], a[3] - a[1]
+    ex, ey = b[0] - ax, b[1] - ay
+    fx, fy = b[2] - b[0] - dax, b[3] - b[1] - day
+    wx, wy = ox - ax, oy - ay
+    c0 = ex * wy - ey * wx
+    c1 = (fx * wy - fy * wx) - (ex * day - ey * dax)
+    c2 = -(fx * day - fy * dax)
+    if c0 == 0.0:
+        return 0.0
+    hi = 1.0
+    if c2 != 0.0:
+        te = -0.5 * c1 / c2
+        if 0.0 < te < 1.0 and (c0 + (c1 + c2 * te) * te) * c0 <= 0.0:
+            hi = te
+    if (c0 + (c1 + c2 * hi) * hi) * c0 > 0.0:
+        return 1.0
+    lo = 0.0
+    for _ in range(50):
+        mid = 0.5 * (lo + hi)
+        if (c0 + (c1 + c2 * mid) * mid) * c0 > 0.0:
+            lo = mid
+        else:
+            hi = mid
+    return hi
+
+
+@njit(**JIT)
+def implicit_displacements(line, n, dt, prm, work_f):
+    """Backward-Euler displacements of the free nodes over a time ``dt`` (row W_BUF, along the
+    normal); return the largest of the nodes the step length limits (b), -1 if the line has no
+    pin.
 
     Along each chain of free nodes between two pinned ones, the normal displacements u solve the
-    tridiagonal system of one backward-Euler step of length dt = SETTLE_STEP × the explicit step,
-    linearised about the current line:
+    tridiagonal system of one backward-Euler step, linearised about the current line:
 
         (1/(M dt) + 2Γ_s/(a_i b_i)) u_i − Γ_s c⁻_i/(a_i l_i) u_{i−1} − Γ_s c⁺_i/(b_i l_i) u_{i+1} = τ_eff,i
 
@@ -1561,80 +1725,99 @@ def settle_displacements(line, n, prm, work_f):
     Γ_s = prm.stiffness; the diagonal is the point-implicit stiffness of :func:`node_pass`).
     Pins, and nodes friction holds (τ_eff = 0), do not move.  The matrix is an M-matrix (weakly
     diagonally dominant, strictly once 1/(M dt) is added), so a chain pushed one way moves that
-    way only, by no more than its linearised equilibrium would: the line settles into the same
-    equilibrium without overshooting it, so it sweeps no obstacle beyond it.  Each chain's
-    displacements are scaled down together so that none exceeds MAX_MOVE_FRACTION l_min.
+    way only, by no more than its linearised equilibrium would: a line near equilibrium settles
+    into it without overshooting it, so it sweeps no obstacle beyond it.  The wavelengths much
+    longer than sqrt(M Γ_s dt) move by M τ_eff dt, as in an explicit step; the shorter ones, too
+    stiff for an explicit step of that length, go to their quasi-static shape.  A node whose own
+    stiffness holds it to less than half its explicit move M τ_eff dt (a corner left by a
+    release or a capture) moves by about the same whatever the step: the largest displacement
+    returned is that of the other nodes, the ones a shorter step would slow.
 
     Reads rows W_VX, W_VY (the explicit velocities, M τ_eff n), W_NTX, W_NTY from
-    :func:`node_pass`; writes the displacements to W_VX, W_VY and zero stiffness to the free
-    nodes' W_FPIN, so that :func:`move_and_capture` with dt = 1 moves the nodes by them and
-    checks what they sweep.  Scratch rows W_NEAR, W_BUF.
+    :func:`node_pass`, unchanged (:func:`_implicit_moves` writes the displacements to W_VX,
+    W_VY); scratch row W_NEAR.  One pass round the line from the first pin solves every chain
+    (the Thomas algorithm, each row scaled by a_i b_i l_i/Γ_s), the arms carried from node to
+    node, and one pass back substitutes.
     """
     x, y, pin = line[0], line[1], line[2]
-    vx, vy, fpin = work_f[W_VX], work_f[W_VY], work_f[W_FPIN]
+    vx, vy = work_f[W_VX], work_f[W_VY]
     ntx, nty = work_f[W_NTX], work_f[W_NTY]
     cp, dp = work_f[W_NEAR], work_f[W_BUF]
-    mob, gs, Lx = prm.mobility, prm.stiffness, prm.Lx
-    inv_mdt = 1.0 / (mob * SETTLE_STEP * time_step(prm))
-    cap = MAX_MOVE_FRACTION * prm.l_min
+    Lx = prm.Lx
     first = -1
     for i in range(n):
         if pin[i] >= 0:
             first = i
             break
     if first < 0:
-        return False
-    start = first
-    while True:
-        # the chain of free nodes after pin `start`, up to the next pin `end` (indices mod n)
-        end = start + 1
-        while pin[end % n] < 0:
-            end += 1
-        if end > start + 1:
-            # forward sweep of the Thomas algorithm; u = 0 at the pins and the held nodes
+        return -1.0
+    c_dt = 1.0 / (prm.mobility * prm.stiffness * dt)
+    inv_mg = 1.0 / (prm.mobility * prm.stiffness)
+    # node j of the unwrapped line (j >= n: shifted by Lx); from the first pin round to it again
+    xj, yj = x[first], y[first]
+    j1 = first + 1
+    i1 = j1 if j1 < n else j1 - n
+    xn, yn = x[i1] + (Lx if j1 >= n else 0.0), y[i1]
+    b = np.sqrt((xn - xj) ** 2 + (yn - yj) ** 2)
+    prev_free = False
+    c_prev, d_prev = 0.0, 0.0
+    for j in range(first + 1, first + n):
+        i = i1
+        a = b
+        xj, yj = xn, yn
+        j1 = j + 1
+        i1 = j1 if j1 < n else j1 - n
+        xn, yn = x[i1] + (Lx if j1 >= n else 0.0), y[i1]
+        b = np.sqrt((xn - xj) ** 2 + (yn - yj) ** 2)
+        if pin[i] >= 0:
             prev_free = False
-            for q in range(start + 1, end):
-                i = q % n
-                xm, ym, xp, yp = _neighbours(x, y, n, i, Lx)
-                a = np.sqrt((x[i] - xm) ** 2 + (y[i] - ym) ** 2)
-                b = np.sqrt((xp - x[i]) ** 2 + (yp - y[i]) ** 2)
-                rhs = (vy[i] * ntx[i] - vx[i] * nty[i]) / mob      # τ_eff along the normal
-                if rhs == 0.0:          # held by friction (or exactly at rest): fixed this step
-                    cp[i], dp[i] = 0.0, 0.0
-                    prev_free = False
-                    continue
-                l = 0.5 * (a + b)
-                diag = inv_mdt + 2.0 * gs / (a * b)
-                lower, upper = 0.0, 0.0
-                if prev_free:
-                    im = (q - 1) % n
-                    lower = gs * (ntx[i] * ntx[im] + nty[i] * nty[im]) / (a * l)
-                ip = (q + 1) % n
-                if q + 1 < end:
-                    upper = gs * (ntx[i] * ntx[ip] + nty[i] * nty[ip]) / (b * l)
-                den = diag - lower * cp[(q - 1) % n] if prev_free else diag
-                cp[i] = upper / den
-                dp[i] = (rhs + (lower * dp[(q - 1) % n] if prev_free else 0.0)) / den
-                prev_free = True
-            # back substitution, then the chain's largest move
+            continue
+        vn = vy[i] * ntx[i] - vx[i] * nty[i]                  # M τ_eff along the normal
+        if vn == 0.0:           # held by friction (or exactly at rest): fixed this step
+            cp[i], dp[i] = 0.0, 0.0
+            prev_free = False
+            continue
+        l = 0.5 * (a + b)
+        ab = a * b
+        den = (c_dt * ab + 2.0) * l
+        rhs = vn * ab * l * inv_mg
+        if prev_free:
+            im = i - 1 if i > 0 else n - 1
+            lower = (ntx[i] * ntx[im] + nty[i] * nty[im]) * b
+            den -= lower * c_prev
+            rhs += lower * d_prev
+        upper = (ntx[i] * ntx[i1] + nty[i] * nty[i1]) * a if pin[i1] < 0 else 0.0
+        inv = 1.0 / den
+        c_prev, d_prev = upper * inv, rhs * inv
+        cp[i], dp[i] = c_prev, d_prev
+        prev_free = True
+    # back substitution, u = 0 at the pins and the held nodes (cp = dp = 0)
+    big = 0.0
+    u_next = 0.0
+    for j in range(first + n - 1, first, -1):
+        i = j if j < n else j - n
+        if pin[i] >= 0:
             u_next = 0.0
-            big = 0.0
-            for q in range(end - 1, start, -1):
-                i = q % n
-                u = dp[i] + cp[i] * u_next      # 0 at a held node (cp = dp = 0)
-                dp[i] = u
-                u_next = u
-                big = max(big, abs(u))
-            scale = 1.0 if big <= cap else cap / big
-            for q in range(start + 1, end):
-                i = q % n
-                u = scale * dp[i]
-                vx[i], vy[i] = -u * nty[i], u * ntx[i]
-                fpin[i] = 0.0
-        start = end
-        if start >= first + n:
-            break
-    return True
+            continue
+        u = dp[i] + cp[i] * u_next
+        dp[i] = u
+        u_next = u
+        if 2.0 * abs(u) >= dt * abs(vy[i] * ntx[i] - vx[i] * nty[i]):
+            big = max(big, abs(u))
+    return big
+
+
+@njit(**JIT)
+def _implicit_moves(pin, n, work_f):
+    """Write the displacements of :func:`implicit_displacements` (row W_BUF, along the normal) to
+    the free nodes' W_VX, W_VY, with zero stiffness in W_FPIN: :func:`move_and_capture` with
+    dt = 1 then moves the nodes by them."""
+    vx, vy, fpin, u = work_f[W_VX], work_f[W_VY], work_f[W_FPIN], work_f[W_BUF]
+    ntx, nty = work_f[W_NTX], work_f[W_NTY]
+    for i in range(n):
+        if pin[i] < 0:
+            vx[i], vy[i] = -u[i] * nty[i], u[i] * ntx[i]
+            fpin[i] = 0.0
 
 
 @njit(**JIT)
@@ -1644,9 +1827,12 @@ def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
     One step: the line model's forces and the node pass (:func:`_forces`, remeshing first if the
     line came in out of bounds); stop if the line has glided the flow distance; release
     overloaded pins; reconnect parts of opposite sense in contact (only searched for when some
-    node has turned past 60°); stop at equilibrium; otherwise advance the free nodes by the
-    point-implicit step (STEP_STIFFNESS), pin every obstacle swept on the way and remesh where a
-    segment left its bounds (:func:`_advance`).
+    node has turned past 60°); stop at equilibrium; otherwise advance the free nodes by one
+    implicit step (IMPLICIT_GROWTH; the self-stress line: the point-implicit step,
+    STEP_STIFFNESS), pin every obstacle swept on the way and remesh where a segment left its
+    bounds (:func:`_advance`).  The implicit step's length is carried to the next call
+    (DT_SLOT); a release shortens it to at most :func:`time_step`, since the two chains it joins
+    make a longer one whose slow modes the step might carry beyond the cap.
 
     Parameters
     ----------
@@ -1660,9 +1846,10 @@ def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
     field : obstacle field tuple (dlsim.contract); its ``opin`` is updated.
     loops : loop buffers (dlsim.contract)
     work_f : (N_WORK_F, cap) float64 and work_i : (N_WORK_I, cap) int64
-        Work rows (cap >= 3 MAX_CAPTURES), zeroed by the caller at the start of a relaxation;
+        Work rows (cap >= 4 MAX_CAPTURES), zeroed by the caller at the start of a relaxation;
         W_TAU_INT stays zero for the line-tension models, W_FAR carries the non-local self-stress
-        between calls; the node clearances are reset at every call.
+        and W_CAPTURE[DT_SLOT] the implicit step between calls; the node clearances are reset at
+        every call.
 
     Returns
     -------
@@ -1678,9 +1865,14 @@ def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
     reconnections = meta[M_RECONNECT]
     refresh = max(prm.refresh, 1)
     stale = True            # the non-local self-stress must be evaluated (MODEL_SELF)
-    dt = time_step(prm)
-    settle_ok = True        # False right after a settling step was undone
-    since = 0               # moves since it was
+    dt0 = time_step(prm)
+    cap_move = MAX_MOVE_FRACTION * prm.l_min
+    drive = prm.mobility * (abs(prm.tau) - prm.tau_f)   # a straight free line's speed
+    dt_low = dt0 if drive * dt0 <= cap_move else cap_move / drive
+    dt = work_f[W_CAPTURE, DT_SLOT]
+    if dt <= 0.0:
+        dt = dt_low
+    since = 0               # moves since the non-local self-stress was evaluated
     for _ in range(PASSES_PER_STEP * max_steps):
         if moved >= max_steps:
             break
@@ -1689,7 +1881,7 @@ def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
             return CAPACITY
         fresh = stale or since >= refresh
         n, passed = _forces(line, n, prm, meta, loops, field, work_f, work_i, fresh)
-        area, _, max_te, _, vmax, turned = passed
+        area, _, max_te, _, _, turned = passed
         if fresh:
             stale, since = False, 0
         if (area - prm.area_ref) / Lx > prm.flow:
@@ -1701,6 +1893,8 @@ def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
             return CAPACITY
         if released > 0:
             meta[M_RELEASES] += released
+            dt = min(dt, dt0)
+            work_f[W_CAPTURE, DT_SLOT] = dt
             continue
         # no free node turned past 60° from x: no two parts can be antiparallel; just after a
         # round of reconnections the line has been searched already
@@ -1717,13 +1911,12 @@ def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
         if max_te < prm.tolerance:
             meta[M_N] = n
             return EQUILIBRIUM
-        settle = (settle_ok and prm.model != MODEL_SELF
-                 and vmax * dt < SETTLE_FRACTION * prm.l_min)
-        n, taken = _advance(line, n, prm, meta, field, work_f, work_i, settle)
-        if not taken:       # a settling step would have pinned several obstacles at once
-            settle_ok = False
-            continue
-        settle_ok = True
+        n, dt, big = _advance(line, n, dt, dt_low, prm, meta, field, work_f, work_i)
+        if 0.0 <= big * IMPLICIT_GROWTH <= cap_move:
+            dt = min(dt * IMPLICIT_GROWTH, SETTLE_STEP * dt0)
+        elif 0.0 < big < cap_move:
+            dt = min(dt * cap_move / big, SETTLE_STEP * dt0)
+        work_f[W_CAPTURE, DT_SLOT] = dt
         moved += 1
         since += 1
         meta[M_STEPS] += 1

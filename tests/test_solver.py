@@ -87,8 +87,8 @@ def test_bow_out_radius_between_two_pins_is_gamma_over_tau():
 
 
 def test_settling_bow_out_rises_onto_the_arc_without_overshoot():
-    # Once no node moves faster than SETTLE_FRACTION l_min per step the line takes backward-Euler
-    # steps along its chains (kernels.settle_displacements): an M-matrix step, so the bowing arc
+    # The line takes backward-Euler steps along its chains (kernels.implicit_displacements), which
+    # grow to SETTLE_STEP point-implicit steps as it settles: an M-matrix step, so the bowing arc
     # must rise monotonically onto R = Γ/(τ b) (line-tension relation, common practice) and
     # never past it, or it could sweep obstacles the settling line never reaches.
     field = square_field(L, 1, 1, np.inf)
