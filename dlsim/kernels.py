@@ -1582,7 +1582,7 @@ def _first_contacts(line, n, ncap, prm, work_f, work_i):
     W_BY) to its place after it; the time each captured obstacle was met is when it lay on its
     segment (:func:`_contact_time`).  A chain of free nodes between two pins that swept several
     obstacles met the first of them first, and that one pins it: the nodes of the chain are put
-    back to where they were at that time (their clearance discs UNKNOWN), so that the obstacle
+    back to where they were at that time (:func:`_put_back`), so that the obstacle
     lies on the line, and the obstacles it would have met later are not captured (the chain,
     behind them, sweeps them in a later step if it still gets there).  Chains do not feel each
     other within a step (the pins between them hold), so each keeps its own first contact; a
@@ -1649,10 +1649,12 @@ def _pinned_between(pin, n, a, b):
 @njit(**JIT)
 def _put_back(line, n, s, t, prm, work_f):
     """Put the free nodes of the chain through segment s back to the fraction t of their step
-    (from rows W_BX, W_BY); their discs UNKNOWN.  Returns the first of the chain's segments out
-    of [l_min, l_max] (-1: none)."""
+    (from rows W_BX, W_BY); a disc that no longer holds its node is UNKNOWN (one that does still
+    holds the node's next straight step's start, :func:`move_and_capture`).  Returns the first of
+    the chain's segments out of [l_min, l_max] (-1: none)."""
     x, y, pin = line[0], line[1], line[2]
-    bx, by, rad = work_f[W_BX], work_f[W_BY], work_f[W_RAD]
+    bx, by = work_f[W_BX], work_f[W_BY]
+    rx, ry, rad = work_f[W_RX], work_f[W_RY], work_f[W_RAD]
     Lx, lmin2, lmax2 = prm.Lx, prm.l_min * prm.l_min, prm.l_max * prm.l_max
     lo = s + n
     while pin[lo % n] < 0:
@@ -1664,7 +1666,8 @@ def _put_back(line, n, s, t, prm, work_f):
         i = q % n
         x[i] = bx[i] + t * (x[i] - bx[i])
         y[i] = by[i] + t * (y[i] - by[i])
-        rad[i] = UNKNOWN
+        if rad[i] > 0.0 and not _inside(x[i], y[i], rx[i], ry[i], rad[i]):
+            rad[i] = UNKNOWN
     bad = -1
     for q in range(lo, hi):
         i, j = q % n, (q + 1) % n
