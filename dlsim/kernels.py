@@ -101,7 +101,9 @@ IMPLICIT_GROWTH = 2.0
 SETTLE_STEP = 1000.0
 #: Slot of row W_CAPTURE, past its capture lists, that carries the implicit time step from one
 #: call of :func:`relax_line` to the next within a relaxation (0: none yet; the caller zeroes the
-#: work rows at its start), so that the steps do not depend on how the relaxation is chunked.
+#: work rows at its start), so that the steps do not depend on how the relaxation is chunked; the
+#: next slot holds the count of releases (meta slot M_RELEASES) the step has seen, so that a
+#: release made between calls (a thermal event) shortens it as one made in a call does.
 DT_SLOT = 3 * MAX_CAPTURES
 
 
@@ -1834,8 +1836,9 @@ def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
     implicit step (IMPLICIT_GROWTH; the self-stress line: the point-implicit step,
     STEP_STIFFNESS), pin every obstacle swept on the way and remesh where a segment left its
     bounds (:func:`_advance`).  The implicit step's length is carried to the next call
-    (DT_SLOT); a release shortens it to at most :func:`time_step`, since the two chains it joins
-    make a longer one whose slow modes the step might carry beyond the cap.
+    (DT_SLOT); a release (here, in a crossing cut or between calls) shortens it to at most
+    :func:`time_step`, since the two chains it joins make a longer one whose slow modes the step
+    might carry beyond the cap.
 
     Parameters
     ----------
@@ -1872,9 +1875,9 @@ def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
     cap_move = MAX_MOVE_FRACTION * prm.l_min
     drive = prm.mobility * (abs(prm.tau) - prm.tau_f)   # a straight free line's speed
     dt_low = dt0 if drive * dt0 <= cap_move else cap_move / drive
-    dt = work_f[W_CAPTURE, DT_SLOT]
+    dt, seen = work_f[W_CAPTURE, DT_SLOT], work_f[W_CAPTURE, DT_SLOT + 1]
     if dt <= 0.0:
-        dt = dt_low
+        dt, seen = dt_low, float(meta[M_RELEASES])
     since = 0               # moves since the non-local self-stress was evaluated
     for _ in range(PASSES_PER_STEP * max_steps):
         if moved >= max_steps:
@@ -1896,8 +1899,6 @@ def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
             return CAPACITY
         if released > 0:
             meta[M_RELEASES] += released
-            dt = min(dt, dt0)
-            work_f[W_CAPTURE, DT_SLOT] = dt
             continue
         # no free node turned past 60° from x: no two parts can be antiparallel; just after a
         # round of reconnections the line has been searched already
@@ -1914,12 +1915,14 @@ def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
         if max_te < prm.tolerance:
             meta[M_N] = n
             return EQUILIBRIUM
+        if meta[M_RELEASES] != seen:    # here, in a crossing cut or between calls
+            dt, seen = min(dt, dt0), float(meta[M_RELEASES])
         n, dt, big = _advance(line, n, dt, dt_low, prm, meta, field, work_f, work_i)
         if 0.0 <= big * IMPLICIT_GROWTH <= cap_move:
             dt = min(dt * IMPLICIT_GROWTH, SETTLE_STEP * dt0)
         elif 0.0 < big < cap_move:
             dt = min(dt * cap_move / big, SETTLE_STEP * dt0)
-        work_f[W_CAPTURE, DT_SLOT] = dt
+        work_f[W_CAPTURE, DT_SLOT], work_f[W_CAPTURE, DT_SLOT + 1] = dt, seen
         moved += 1
         since += 1
         meta[M_STEPS] += 1
