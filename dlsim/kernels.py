@@ -81,7 +81,8 @@ TURNED_TX = 0.5
 #: by √(1 + (l/2R)²): +2.6 % on the square-array Orowan stress at 0.2 L, arc construction as the
 #: reference).  Both forms have the same continuum limit.
 #: relax_line's loop runs at most this many passes per time step allowed: a pass that releases
-#: pins or reconnects does not move the line and is followed by another (a bound, never reached
+#: pins (other than with constant Γ) or reconnects does not move the line and is followed by
+#: another (a bound, never reached
 #: in practice, that keeps a line that would release and reconnect for ever from hanging).
 PASSES_PER_STEP = 4
 #: A line whose fastest node moves less than this fraction of l_min in an explicit step is
@@ -261,25 +262,92 @@ def node_pass(line, n, prm, work_f):
         else:
             if tnx < TURNED_TX:
                 turned += 1
-            # normal (-tny, tnx): τ_loc = F_t·n/l + τ (ARC_DRIVE)
-            t_loc = (ty * tnx - tx * tny) / (0.5 * (a + b)) + t_node
-            t_eff = abs(t_loc) - tau_f
-            if t_eff <= 0.0:
-                vx[i] = 0.0
-                vy[i] = 0.0
-            else:
+            t_eff, vx[i], vy[i] = _free_velocity(tx, ty, tnx, tny, a, b, t_node, tau_f, mob)
+            if t_eff > 0.0:
                 max_te = max(max_te, t_eff)
-                speed = mob * t_eff
-                vmax = max(vmax, speed)
-                if t_loc < 0.0:
-                    speed = -speed
-                vx[i] = -speed * tny
-                vy[i] = speed * tnx
+                vmax = max(vmax, mob * t_eff)
             min_ab = min(min_ab, a * b)
             fpin[i] = k_stiff / (a * b)
         ax, ay, a, uax, uay = bx, by, b, ubx, uby
     stiff = 0.0 if min_ab == np.inf else 1.0 / min_ab
     return area, first_bad, max_te, stiff, vmax, turned
+
+
+@njit(**JIT, inline="always")
+def _free_velocity(tx, ty, tnx, tny, a, b, t_node, tau_f, mob):
+    """|τ_loc| − τ_f and the velocity (vx, vy) of a free node (:func:`node_pass`).
+
+    ``(tx, ty)`` is the line-tension force, ``(tnx, tny)`` the unit chord tangent (normal
+    (−tny, tnx)), ``a, b`` the arms and ``t_node`` the stress at the node: τ_loc = F_t·n/l + τ
+    (ARC_DRIVE), and the node moves along n at M τ_eff (zero velocity when friction holds it).
+    """
+    t_loc = (ty * tnx - tx * tny) / (0.5 * (a + b)) + t_node
+    t_eff = abs(t_loc) - tau_f
+    if t_eff <= 0.0:
+        return t_eff, 0.0, 0.0
+    speed = mob * t_eff
+    if t_loc < 0.0:
+        speed = -speed
+    return t_eff, -speed * tny, speed * tnx
+
+
+@njit(**JIT, inline="always")
+def _unit_segment(x, y, n, k, Lx):
+    """Segment k of the line as :func:`node_pass` computes it: (ex, ey, length, unit ex, unit
+    ey), the unit vector by one reciprocal."""
+    if k < n - 1:
+        ex, ey = x[k + 1] - x[k], y[k + 1] - y[k]
+    else:
+        ex, ey = x[0] + Lx - x[k], y[0] - y[k]
+    e = np.sqrt(ex * ex + ey * ey)
+    inv_e = 1.0 / e
+    return ex, ey, e, ex * inv_e, ey * inv_e
+
+
+@njit(**JIT)
+def _refresh_released(line, n, prm, work_f, nodes, count, passed):
+    """Bring :func:`node_pass`'s results up to date after :func:`_release` freed ``nodes[:count]``
+    (constant Γ only), without a pass over the line; (False, ``passed``) where that pass would
+    remesh.
+
+    Nothing moved, so only a released node's own entries change: it now has a velocity, a
+    stiffness in W_FPIN, may count as turned and enter the residual and the largest speed (maxima,
+    whatever the order); the area and every other node's entries (a pin's force depends only on
+    its arms, not on its neighbours' pins) stay, and each quantity is computed by the same
+    arithmetic as in :func:`node_pass`, so the results are identical to a new pass.  A free end
+    can make a short arm out of bounds (a new pass would remesh): then False, as it is when the
+    previous pass left a segment out of bounds.  The de Wit–Koehler and self-stress forces
+    depend on the pins (:func:`model_forces`): the caller passes the line again for them.
+    """
+    area, first_bad, max_te, stiff, vmax, turned = passed
+    x, y = line[0], line[1]
+    vx, vy, fpin = work_f[W_VX], work_f[W_VY], work_f[W_FPIN]
+    ntx, nty, tau_int, fex, fey = (work_f[W_NTX], work_f[W_NTY], work_f[W_TAU_INT],
+                                   work_f[W_FEX], work_f[W_FEY])
+    gamma, Lx, lmin, mob = prm.gamma, prm.Lx, prm.l_min, prm.mobility
+    k_stiff = 2.0 * mob * prm.stiffness
+    if first_bad >= 0:
+        return False, passed
+    for e in range(count):
+        i = nodes[e]
+        ax, ay, a, uax, uay = _unit_segment(x, y, n, i - 1 if i > 0 else n - 1, Lx)
+        if i == 0:      # node_pass takes the arm across the seam by a division
+            uax, uay = ax / a, ay / a
+        bx, by, b, ubx, uby = _unit_segment(x, y, n, i, Lx)
+        if a < lmin or b < lmin:
+            return False, passed
+        tx, ty = gamma * (ubx - uax) + fex[i], gamma * (uby - uay) + fey[i]
+        tnx, tny = ntx[i], nty[i]
+        if tnx < TURNED_TX:
+            turned += 1
+        t_eff, vx[i], vy[i] = _free_velocity(tx, ty, tnx, tny, a, b, prm.tau + tau_int[i],
+                                             prm.tau_f, mob)
+        if t_eff > 0.0:
+            max_te = max(max_te, t_eff)
+            vmax = max(vmax, mob * t_eff)
+        stiff = max(stiff, 1.0 / (a * b))     # 1/min(a b): the reciprocal is monotone
+        fpin[i] = k_stiff / (a * b)
+    return True, (area, first_bad, max_te, stiff, vmax, turned)
 
 
 @njit(**JIT)
@@ -1323,9 +1391,10 @@ def _chord_tangents(x, y, n, Lx, ntx, nty):
 
 
 @njit(**JIT)
-def _release(line, n, prm, field, work_f, meta, loops):
+def _release(line, n, prm, field, work_f, meta, loops, nodes):
     """Free every pinned node whose force (row W_FPIN) exceeds its obstacle's strength; return
     the count, -1 if the loop buffers are full (nothing more is released: grow them, call again).
+    The freed nodes are listed in ``nodes`` (for :func:`_refresh_released`).
 
     A pin whose arms have crossed behind it (force infinite, :func:`_arms_crossed`) is past any
     critical angle: a shearable obstacle is released; an impenetrable one (infinite strength) is
@@ -1347,6 +1416,7 @@ def _release(line, n, prm, field, work_f, meta, loops):
                 _unhold(k, y[i], n, prm, field, work_f)
             pin[i] = -1
             ign[i] = k
+            nodes[released] = i
             released += 1
     return released
 
@@ -1643,7 +1713,8 @@ def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
 
     One step: the line model's forces and the node pass (:func:`_forces`, remeshing first if the
     line came in out of bounds); stop if the line has glided the flow distance; release
-    overloaded pins; reconnect parts of opposite sense in contact (only searched for when some
+    overloaded pins (then pass the line again, or with constant Γ update only the freed nodes,
+    :func:`_refresh_released`); reconnect parts of opposite sense in contact (only searched for when some
     node has turned past 60°); stop at equilibrium; otherwise advance the free nodes by the
     point-implicit step (STEP_STIFFNESS), pin every obstacle swept on the way and remesh where a
     segment left its bounds (:func:`_advance`).
@@ -1695,13 +1766,21 @@ def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
         if (area - prm.area_ref) / Lx > prm.flow:
             meta[M_N] = n
             return FLOWING
-        released = _release(line, n, prm, field, work_f, meta, loops)
+        released = _release(line, n, prm, field, work_f, meta, loops, work_i[I_KEEP])
         if released < 0:
             meta[M_N] = n
             return CAPACITY
         if released > 0:
             meta[M_RELEASES] += released
-            continue
+            if prm.model != MODEL_CONSTANT:
+                continue
+            # nothing moved: update the freed nodes, not the whole line (a pass again would
+            # release nothing more, the other pins' forces being the same)
+            done, passed = _refresh_released(line, n, prm, work_f, work_i[I_KEEP], released,
+                                             passed)
+            if not done:
+                continue
+            area, _, max_te, _, vmax, turned = passed
         # no free node turned past 60° from x: no two parts can be antiparallel; just after a
         # round of reconnections the line has been searched already
         if turned > 0 and not searched:
