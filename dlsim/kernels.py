@@ -262,10 +262,19 @@ def node_pass(line, n, prm, work_f):
         else:
             if tnx < TURNED_TX:
                 turned += 1
-            t_eff, vx[i], vy[i] = _free_velocity(tx, ty, tnx, tny, a, b, t_node, tau_f, mob)
-            if t_eff > 0.0:
+            t_loc = (ty * tnx - tx * tny) / (0.5 * (a + b)) + t_node
+            t_eff = abs(t_loc) - tau_f
+            if t_eff <= 0.0:
+                vx[i] = 0.0
+                vy[i] = 0.0
+            else:
                 max_te = max(max_te, t_eff)
-                vmax = max(vmax, mob * t_eff)
+                speed = mob * t_eff
+                vmax = max(vmax, speed)
+                if t_loc < 0.0:
+                    speed = -speed
+                vx[i] = -speed * tny
+                vy[i] = speed * tnx
             min_ab = min(min_ab, a * b)
             fpin[i] = k_stiff / (a * b)
         ax, ay, a, uax, uay = bx, by, b, ubx, uby
@@ -274,21 +283,28 @@ def node_pass(line, n, prm, work_f):
 
 
 @njit(**JIT, inline="always")
-def _free_velocity(tx, ty, tnx, tny, a, b, t_node, tau_f, mob):
-    """|τ_loc| − τ_f and the velocity (vx, vy) of a free node (:func:`node_pass`).
+def _drive(i, geometry, t_node, tau_f, mob, vx, vy):
+    """Velocity of free node i into ``vx[i], vy[i]``; returns τ_eff, 0 where friction holds it.
 
-    ``(tx, ty)`` is the line-tension force, ``(tnx, tny)`` the unit chord tangent (normal
-    (−tny, tnx)), ``a, b`` the arms and ``t_node`` the stress at the node: τ_loc = F_t·n/l + τ
-    (ARC_DRIVE), and the node moves along n at M τ_eff (zero velocity when friction holds it).
+    ``geometry`` = (tx, ty, tnx, tny, a, b): the line-tension force, the unit chord tangent
+    (normal (−tny, tnx)) and the arms; ``t_node`` the stress at the node.  τ_loc = F_t·n/l + τ
+    (ARC_DRIVE), and the node moves along n at M (|τ_loc| − τ_f).  The same expressions, in the
+    same order, as :func:`node_pass` writes inline (a call there measured 3 % slower), so that
+    :func:`_refresh_released` gives the same bits.
     """
+    tx, ty, tnx, tny, a, b = geometry
     t_loc = (ty * tnx - tx * tny) / (0.5 * (a + b)) + t_node
     t_eff = abs(t_loc) - tau_f
     if t_eff <= 0.0:
-        return t_eff, 0.0, 0.0
+        vx[i] = 0.0
+        vy[i] = 0.0
+        return 0.0
     speed = mob * t_eff
     if t_loc < 0.0:
         speed = -speed
-    return t_eff, -speed * tny, speed * tnx
+    vx[i] = -speed * tny
+    vy[i] = speed * tnx
+    return t_eff
 
 
 @njit(**JIT, inline="always")
@@ -340,11 +356,9 @@ def _refresh_released(line, n, prm, work_f, nodes, count, passed):
         tnx, tny = ntx[i], nty[i]
         if tnx < TURNED_TX:
             turned += 1
-        t_eff, vx[i], vy[i] = _free_velocity(tx, ty, tnx, tny, a, b, prm.tau + tau_int[i],
-                                             prm.tau_f, mob)
-        if t_eff > 0.0:
-            max_te = max(max_te, t_eff)
-            vmax = max(vmax, mob * t_eff)
+        t_eff = _drive(i, (tx, ty, tnx, tny, a, b), prm.tau + tau_int[i], prm.tau_f, mob, vx, vy)
+        max_te = max(max_te, t_eff)
+        vmax = max(vmax, mob * t_eff)
         stiff = max(stiff, 1.0 / (a * b))     # 1/min(a b): the reciprocal is monotone
         fpin[i] = k_stiff / (a * b)
     return True, (area, first_bad, max_te, stiff, vmax, turned)
@@ -1116,15 +1130,27 @@ def _node_at(x, y, n, k, Lx):
 @njit(**JIT, inline="always")
 def _cross_param(ax, ay, bx, by, cx, cy, dx, dy):
     """Where segment AB crosses segment CD: the fraction along AB, or -1 if they do not cross at a
-    point interior to both (parallel and touching segments do not cross)."""
+    point interior to both (parallel and touching segments do not cross).
+
+    Most pairs tested do not cross, and their numerators already tell: t = a/d (or u) is at most
+    0 when a and d differ in sign, and at least 1 when |a| > |d| with the same sign, whatever the
+    rounding (a correctly rounded quotient is monotone in the exact one), so those pairs are
+    rejected before the two divisions, with the same answer."""
     ex, ey = bx - ax, by - ay
     fx, fy = dx - cx, dy - cy
     den = ex * fy - ey * fx
     if den == 0.0:
         return -1.0
     gx, gy = cx - ax, cy - ay
-    t = (gx * fy - gy * fx) / den
-    u = (gx * ey - gy * ex) / den
+    at = gx * fy - gy * fx
+    au = gx * ey - gy * ex
+    if den > 0.0:
+        if at <= 0.0 or au <= 0.0 or at > den or au > den:
+            return -1.0
+    elif at >= 0.0 or au >= 0.0 or at < den or au < den:
+        return -1.0
+    t = at / den
+    u = au / den
     if t <= 0.0 or t >= 1.0 or u <= 0.0 or u >= 1.0:
         return -1.0
     return t
@@ -1156,6 +1182,46 @@ def _mark_backward_bins(x, n, Lx, ncx, width, marked):
 
 
 @njit(**JIT)
+def _segment_grid(x, y, n, Lx, grid, marked, lists):
+    """Hash the crossing candidates of :func:`find_crossing` into its grid; return the entries
+    made, or minus the entries needed when the lists are too short (nothing usable written).
+
+    ``grid`` = (ncx, ncy, width, height): power-of-two cell counts (wrapping is a bit mask) and
+    the cell size; a candidate is a segment whose x span shares a bin with a backwards one
+    (``marked``, :func:`_mark_backward_bins`), entered in every cell its box covers.  ``lists`` =
+    (head, next, seg): the first entry of each cell, the next entry in the same cell and the
+    segment of each entry.  The segments are entered from the last to the first, so that each
+    cell lists its segments in ascending order; one pass, no count first.
+    """
+    ncx, ncy, width, hc = grid
+    head, nxt, seg = lists
+    mx, my = ncx - 1, ncy - 1
+    inv_w, inv_h = 1.0 / width, 1.0 / hc
+    room = min(nxt.shape[0], seg.shape[0])
+    head[:ncx * ncy] = -1
+    entries = 0
+    for k in range(n - 1, -1, -1):
+        ax, ay = x[k], y[k]
+        bx, by = _segment_end(x, y, n, k, Lx)
+        i0, i1 = int(np.floor(min(ax, bx) * inv_w)), int(np.floor(max(ax, bx) * inv_w))
+        i1 = min(i1, i0 + ncx - 1)
+        hit = False
+        for i in range(i0, i1 + 1):
+            hit = hit or marked[i & mx] != 0
+        if not hit:
+            continue
+        j0, j1 = int(np.floor(min(ay, by) * inv_h)), int(np.floor(max(ay, by) * inv_h))
+        for i in range(i0, i1 + 1):
+            for j in range(j0, min(j1, j0 + ncy - 1) + 1):
+                if entries < room:
+                    c = (i & mx) + ncx * (j & my)
+                    seg[entries], nxt[entries] = k, head[c]
+                    head[c] = entries
+                entries += 1
+    return entries if entries <= room else -entries
+
+
+@njit(**JIT)
 def find_crossing(line, n, prm, work_i):
     """The crossing of two segments of the line that cuts off the smallest loop.
 
@@ -1163,7 +1229,8 @@ def find_crossing(line, n, prm, work_i):
     itself; where parts fold back, the vertical through a crossing point also meets a backwards
     segment, so only segments whose x span shares a bin (mod Lx) with a backwards one are
     candidates.  They go into a hashed grid of cells at least l_max wide (each segment in every
-    cell its box covers) and the pairs of each cell are tested exactly, images in x included.
+    cell its box covers, :func:`_segment_grid`) and the pairs of each cell are tested exactly,
+    images in x included.
 
     Returns
     -------
@@ -1178,67 +1245,39 @@ def find_crossing(line, n, prm, work_i):
     hc = prm.l_max
     ncx = _pow2_at_most(Lx / hc)
     width = Lx / ncx
-    marked, cand = work_i[I_KEEP], work_i[I_SRC]
+    marked = work_i[I_KEEP]
     start_room = work_i.shape[1]
     if _mark_backward_bins(x, n, Lx, ncx, width, marked) == 0:
         return -1, -1, -1.0
     ncy = _pow2_at_most(max(1.0, min((start_room - 1) / ncx, 2.0 * n / ncx + 1.0)))
-    mx, my = ncx - 1, ncy - 1
-    # candidates (listed in row I_SRC) and their cells: count, then fill (CSR over cells)
-    inv_w, inv_h = 1.0 / width, 1.0 / hc
-    count = 0
-    entries = 0
-    for k in range(n):
-        ax, ay = x[k], y[k]
-        bx, by = _segment_end(x, y, n, k, Lx)
-        i0, i1 = int(np.floor(min(ax, bx) * inv_w)), int(np.floor(max(ax, bx) * inv_w))
-        i1 = min(i1, i0 + ncx - 1)
-        hit = False
-        for i in range(i0, i1 + 1):
-            hit = hit or marked[i & mx] != 0
-        if hit:
-            cand[count] = k
-            count += 1
-            j0, j1 = int(np.floor(min(ay, by) * inv_h)), int(np.floor(max(ay, by) * inv_h))
-            entries += (i1 - i0 + 1) * (min(j1, j0 + ncy - 1) - j0 + 1)
-    start = work_i[I_HEAD]
-    seg = work_i[I_NEXT] if entries <= work_i.shape[1] else np.empty(entries, np.int64)
-    start[:ncx * ncy + 1] = 0
-    for phase in range(2):
-        for e in range(count):
-            k = cand[e]
-            ax, ay = x[k], y[k]
-            bx, by = _segment_end(x, y, n, k, Lx)
-            i0, i1 = int(np.floor(min(ax, bx) * inv_w)), int(np.floor(max(ax, bx) * inv_w))
-            j0, j1 = int(np.floor(min(ay, by) * inv_h)), int(np.floor(max(ay, by) * inv_h))
-            for i in range(i0, min(i1, i0 + ncx - 1) + 1):
-                for j in range(j0, min(j1, j0 + ncy - 1) + 1):
-                    c = (i & mx) + ncx * (j & my)
-                    if phase == 0:
-                        start[c + 1] += 1
-                    else:
-                        seg[start[c]] = k
-                        start[c] += 1
-        if phase == 0:
-            for c in range(ncx * ncy):
-                start[c + 1] += start[c]
-        else:   # the fill advanced every start to the next cell's: shift back
-            for c in range(ncx * ncy, 0, -1):
-                start[c] = start[c - 1]
-            start[0] = 0
+    grid = (ncx, ncy, width, hc)
+    head, nxt, seg = work_i[I_HEAD], work_i[I_NEXT], work_i[I_SRC]
+    entries = _segment_grid(x, y, n, Lx, grid, marked, (head, nxt, seg))
+    if entries < 0:     # more entries than a work row holds: lists of their own
+        nxt, seg = np.empty(-entries, np.int64), np.empty(-entries, np.int64)
+        _segment_grid(x, y, n, Lx, grid, marked, (head, nxt, seg))
     best_p, best_q, best_t, best_size = -1, -1, -1.0, n
+    quarter = 0.25 * Lx
     for c in range(ncx * ncy):
-        for e in range(start[c], start[c + 1]):
+        e = head[c]
+        while e >= 0:
             k1 = seg[e]
-            for f in range(e + 1, start[c + 1]):
+            ax, ay = x[k1], y[k1]
+            bx, by = _segment_end(x, y, n, k1, Lx)
+            e = nxt[e]
+            f = e
+            while f >= 0:       # the segments after k1 in the cell
                 k2 = seg[f]
-                gap = (k2 - k1) % n
+                f = nxt[f]
+                gap = k2 - k1           # (k2 - k1) mod n, without a division
+                if gap < 0:
+                    gap += n
                 if gap <= 1 or gap >= n - 1:
                     continue
-                # the image of k2 nearest to k1
-                m = int(np.floor((x[k1] - x[k2]) / Lx + 0.5))
-                ax, ay = x[k1], y[k1]
-                bx, by = _segment_end(x, y, n, k1, Lx)
+                # the image of k2 nearest to k1: none within a quarter period (exactly what the
+                # rounded floor gives there), most pairs
+                sep = ax - x[k2]
+                m = 0 if abs(sep) <= quarter else int(np.floor(sep / Lx + 0.5))
                 cx, cy = x[k2] + m * Lx, y[k2]
                 dx, dy = _segment_end(x, y, n, k2, Lx)
                 t = _cross_param(ax, ay, bx, by, cx, cy, dx + m * Lx, dy)
