@@ -1240,24 +1240,31 @@ def find_crossing(line, n, prm, work_i):
         t along segment P; the loop is the unwrapped nodes P+1..Q.  P = -1 when the line does not
         cross itself.
     """
+    p, q, t, _ = _crossing_search(line, n, prm, work_i)
+    return p, q, t
+
+
+@njit(**JIT)
+def _crossing_search(line, n, prm, work_i):
+    """:func:`find_crossing`, and whether its crossing is the only pair of segments it found
+    crossing, with the grid in the work rows I_HEAD, I_NEXT, I_SRC (:func:`_segment_grid`; the
+    marks of the backwards bins in I_KEEP): then :func:`_cut_leaves_no_crossing` can tell from
+    them whether the cut line crosses itself.  (Allowing other pairs that the cut changes or
+    removes found no more lines free of crossings on the bench_step rig.)"""
     x, y = line[0], line[1]
     Lx = prm.Lx
-    hc = prm.l_max
-    ncx = _pow2_at_most(Lx / hc)
-    width = Lx / ncx
+    grid = _crossing_grid(n, prm, work_i.shape[1])
     marked = work_i[I_KEEP]
-    start_room = work_i.shape[1]
-    if _mark_backward_bins(x, n, Lx, ncx, width, marked) == 0:
-        return -1, -1, -1.0
-    ncy = _pow2_at_most(max(1.0, min((start_room - 1) / ncx, 2.0 * n / ncx + 1.0)))
-    grid = (ncx, ncy, width, hc)
+    if _mark_backward_bins(x, n, Lx, grid[0], grid[2], marked) == 0:
+        return -1, -1, -1.0, False
+    ncx, ncy = grid[0], grid[1]
     head, nxt, seg = work_i[I_HEAD], work_i[I_NEXT], work_i[I_SRC]
     entries = _segment_grid(x, y, n, Lx, grid, marked, (head, nxt, seg))
     if entries < 0:     # more entries than a work row holds: lists of their own
         nxt, seg = np.empty(-entries, np.int64), np.empty(-entries, np.int64)
         _segment_grid(x, y, n, Lx, grid, marked, (head, nxt, seg))
     best_p, best_q, best_t, best_size = -1, -1, -1.0, n
-    quarter = 0.25 * Lx
+    first1, first2, several = -1, -1, False
     for c in range(ncx * ncy):
         e = head[c]
         while e >= 0:
@@ -1269,30 +1276,112 @@ def find_crossing(line, n, prm, work_i):
             while f >= 0:       # the segments after k1 in the cell
                 k2 = seg[f]
                 f = nxt[f]
-                gap = k2 - k1           # (k2 - k1) mod n, without a division
-                if gap < 0:
-                    gap += n
-                if gap <= 1 or gap >= n - 1:
-                    continue
-                # the image of k2 nearest to k1: none within a quarter period (exactly what the
-                # rounded floor gives there), most pairs
-                sep = ax - x[k2]
-                m = 0 if abs(sep) <= quarter else int(np.floor(sep / Lx + 0.5))
-                cx, cy = x[k2] + m * Lx, y[k2]
-                dx, dy = _segment_end(x, y, n, k2, Lx)
-                t = _cross_param(ax, ay, bx, by, cx, cy, dx + m * Lx, dy)
+                t, m = _pair_crossing(x, y, n, Lx, (k1, ax, ay, bx, by), k2)
                 if t < 0.0:
                     continue
+                if first1 < 0:
+                    first1, first2 = k1, k2
+                several |= k1 != first1 or k2 != first2
                 q = k2 + m * n              # k2's image, unwrapped, relative to k1
                 if q > k1:
                     p, size = k1, q - k1
                 else:                       # k1's image, in k2's frame, comes later
                     p, size = k2, k1 - q
+                    cx, cy = x[k2] + m * Lx, y[k2]
+                    dx, dy = _segment_end(x, y, n, k2, Lx)
                     t = _cross_param(cx - m * Lx, cy, dx, dy, ax - m * Lx, ay, bx - m * Lx, by)
                 # the line keeps n - size + 1 nodes: at least MIN_NODES
                 if 2 <= size <= n + 1 - MIN_NODES and size < best_size and t > 0.0:
                     best_p, best_q, best_t, best_size = p, p + size, t, size
-    return best_p, best_q, best_t
+    return best_p, best_q, best_t, best_p >= 0 and not several and entries >= 0
+
+
+@njit(**JIT, inline="always")
+def _pair_crossing(x, y, n, Lx, first, k2):
+    """Whether segment k1 < k2 crosses segment k2 (its image nearest to k1): (t, m), t the
+    fraction along k1 (-1: no crossing, or the segments are neighbours on the line), m the image.
+
+    ``first`` = (k1, ax, ay, bx, by): k1 and its end points.  The image is found without a
+    division within a quarter period (exactly what the rounded floor gives there), most pairs.
+    """
+    k1, ax, ay, bx, by = first
+    gap = k2 - k1           # (k2 - k1) mod n, without a division
+    if gap < 0:
+        gap += n
+    if gap <= 1 or gap >= n - 1:
+        return -1.0, 0
+    sep = ax - x[k2]
+    m = 0 if abs(sep) <= 0.25 * Lx else int(np.floor(sep / Lx + 0.5))
+    cx, cy = x[k2] + m * Lx, y[k2]
+    dx, dy = _segment_end(x, y, n, k2, Lx)
+    return _cross_param(ax, ay, bx, by, cx, cy, dx + m * Lx, dy), m
+
+
+@njit(**JIT)
+def _crossing_grid(n, prm, room):
+    """The grid of :func:`find_crossing` for n nodes, ``room`` cells at most: (ncx, ncy, cell
+    width, cell height), power-of-two counts of cells at least l_max wide and l_max high."""
+    hc = prm.l_max
+    ncx = _pow2_at_most(prm.Lx / hc)
+    ncy = _pow2_at_most(max(1.0, min((room - 1) / ncx, 2.0 * n / ncx + 1.0)))
+    return ncx, ncy, prm.Lx / ncx, hc
+
+
+@njit(**JIT)
+def _cut_leaves_no_crossing(line, n_old, n, p, q, prm, work_i):
+    """Whether :func:`find_crossing` on the line just cut at segments p, q (:func:`cut_crossing`
+    of the unwrapped nodes p+1..q, ``n_old`` nodes before, n now) finds nothing, decided from
+    the search that found that crossing alone (:func:`_crossing_search`: its grid and marks are
+    still in the work rows); False where it cannot tell.
+
+    A new search would test only pairs of the segments the cut left as they were, in the same
+    order, with the same numbers, and pairs with the two new ones (p → X, X → q+1), provided its
+    grid is the same (the same cell count for n nodes) and it marks no bin the old search did
+    not (the candidates are then among the old ones, in the same cells).  The pairs of unchanged
+    segments it would test were tested and found not crossing (the only crossing pair was p, q);
+    so it finds nothing if neither new segment crosses any segment listed in the old grid's cells
+    it covers (those it would pair it with, and more).
+    """
+    x, y = line[0], line[1]
+    Lx = prm.Lx
+    room = work_i.shape[1]
+    grid = _crossing_grid(n, prm, room)
+    if grid[1] != _crossing_grid(n_old, prm, room)[1]:
+        return False
+    ncx, ncy, width, hc = grid
+    mx, my = ncx - 1, ncy - 1
+    inv_w, inv_h = 1.0 / width, 1.0 / hc
+    marked, head, nxt, seg = work_i[I_KEEP], work_i[I_HEAD], work_i[I_NEXT], work_i[I_SRC]
+    s0 = q + 1 - n_old if q >= n_old else 0      # across the seam: old node s0 is new node 0
+    w0 = p - s0                                   # the new segments w0 (p -> X) and w0 + 1
+    for w in range(w0, w0 + 2):
+        ax, ay = x[w], y[w]
+        bx, by = _segment_end(x, y, n, w, Lx)
+        if bx < ax:     # running backwards: its bins must be marked already
+            i0 = int(np.floor(bx / width))
+            for i in range(i0, min(int(np.floor(ax / width)), i0 + ncx - 1) + 1):
+                if marked[i & mx] == 0:
+                    return False
+        i0, i1 = int(np.floor(min(ax, bx) * inv_w)), int(np.floor(max(ax, bx) * inv_w))
+        j0, j1 = int(np.floor(min(ay, by) * inv_h)), int(np.floor(max(ay, by) * inv_h))
+        for i in range(i0, min(i1, i0 + ncx - 1) + 1):
+            for j in range(j0, min(j1, j0 + ncy - 1) + 1):
+                e = head[(i & mx) + ncx * (j & my)]
+                while e >= 0:
+                    k = seg[e]
+                    e = nxt[e]
+                    # k's new index: unchanged segments lie outside the unwrapped p..q
+                    if q < n_old:
+                        kn = k if k < p else (k - (q - p) + 1 if k > q else -1)
+                    else:
+                        kn = k - s0 if s0 <= k < p else -1
+                    if kn < 0:
+                        continue
+                    k1, k2 = min(w, kn), max(w, kn)
+                    ex, ey = _segment_end(x, y, n, k1, Lx)
+                    if _pair_crossing(x, y, n, Lx, (k1, x[k1], y[k1], ex, ey), k2)[0] >= 0.0:
+                        return False
+    return True
 
 
 @njit(**JIT)
@@ -1369,11 +1458,14 @@ def _reconnect_all(line, n, prm, meta, loops, field, work_f, work_i):
     the line and ends the round.  The chord tangents are then recomputed
     (:func:`_chord_tangents`, as :func:`node_pass` would) and the line searched again, until no
     contact is left: a line touching itself in many places is resolved without a force pass, or a
-    search, per contact.
+    search, per contact.  After a cut the crossing search is not run again where the search
+    that found the cut can tell the cut line does not cross itself
+    (:func:`_cut_leaves_no_crossing`).
     """
     x, y = line[0], line[1]
     ci, cj = work_i[I_CAPTURE, :MAX_CAPTURES], work_i[I_CAPTURE, MAX_CAPTURES:2 * MAX_CAPTURES]
     Lx = prm.Lx
+    uncrossed = False       # the last change was a cut that left the line not crossing itself
     while True:
         meta[M_CONTACT_CHECKS] += 1
         k = find_contacts(line, n, prm, work_f, work_i, ci, cj)
@@ -1397,14 +1489,19 @@ def _reconnect_all(line, n, prm, meta, loops, field, work_f, work_i):
             if across:
                 break
         if not done:   # no contact left: cut where the line crosses itself, if it does
-            p, q, t = find_crossing(line, n, prm, work_i)
+            if uncrossed:
+                return n, False
+            p, q, t, alone = _crossing_search(line, n, prm, work_i)
             if p < 0:
                 return n, False
             n_new = cut_crossing(line, n, p, q, t, prm, meta, loops, field, work_f)
             if n_new < 0:
                 return n, True
+            uncrossed = alone and _cut_leaves_no_crossing(line, n, n_new, p, q, prm, work_i)
             n = n_new
             meta[M_RECONNECT] += 1
+        else:
+            uncrossed = False
         _chord_tangents(x, y, n, Lx, work_f[W_NTX], work_f[W_NTY])
 
 
