@@ -127,6 +127,7 @@ class StepProfile:
         line, loops = s.line, s.loop_arrays
         return {
             "node_pass": lambda: K.node_pass(line, n, prm, wf),
+            "first_bad": lambda: K._first_bad(line, n, prm),
             "remesh": lambda bad: K._remesh_line(line, n, prm, bad, f, wf, wi),
             "release": lambda: K._release(line, n, prm, f, wf, s.meta, loops, wi[C.I_KEEP]),
             "refresh_released": lambda count, passed: K._refresh_released(
@@ -155,7 +156,7 @@ class StepProfile:
         # the rest take about as many arrays as node_pass, or twice as many
         for name in ("remesh", "contacts and reconnections", "move_and_capture"):
             out[name] = 2.0 * out["node_pass"]
-        out["insert_pins"] = out["refresh_released"] = out["node_pass"]
+        out["insert_pins"] = out["refresh_released"] = out["first_bad"] = out["node_pass"]
         return out
 
     def run(self, steps: int) -> tuple[float, int]:
@@ -171,9 +172,12 @@ class StepProfile:
                 s.grow()
                 self._arrays()
             self._n = n
-            passed = self._call("node_pass")
-            if passed[1] >= 0:
-                n = self._n = self._call("remesh", passed[1])
+            bad = self._call("first_bad") if searched else -1   # just reconnected
+            if bad < 0:
+                passed = self._call("node_pass")
+                bad = passed[1]
+            if bad >= 0:
+                n = self._n = self._call("remesh", bad)
                 passed = self._call("node_pass")
             released = self._call("release")
             if released > 0:

@@ -946,6 +946,7 @@ def find_contacts(line, n, prm, work_f, work_i, ci, cj):
     ncy = _pow2_at_most(max(1.0, min(head.shape[0] / ncx, 2.0 * n / ncx + 1.0)))
     mx, my = ncx - 1, ncy - 1
     inv_cw, inv_hc = ncx / Lx, 1.0 / hc
+    width = Lx / ncx
     for c in range(ncx * ncy):
         head[c] = -1
     for i in range(n):
@@ -961,7 +962,14 @@ def find_contacts(line, n, prm, work_f, work_i, ci, cj):
         ix0 = int(np.floor(x[i] * inv_cw))
         iy0 = int(np.floor(y[i] * inv_hc))
         partner = -1
-        for dx in range(-1, 2):
+        # a column of cells is wider than hc: the one on the side node i lies further from
+        # holds no node within hc of it in x (all its candidates would fail the box test below;
+        # a margin far above rounding), so it is not walked
+        frac = (x[i] * inv_cw - ix0) * width
+        margin = 1e-9 * (abs(x[i]) + 4.0 * Lx)
+        dx0 = -1 if ncx < 4 or frac <= hc + margin else 0
+        dx1 = 1 if ncx < 4 or width - frac <= hc + margin else 0
+        for dx in range(dx0, dx1 + 1):
             for dy in range(-1, 2):
                 j = head[((ix0 + dx) & mx) + ncx * ((iy0 + dy) & my)]
                 while j >= 0 and partner < 0:
@@ -1707,15 +1715,42 @@ def time_step(prm):
 
 
 @njit(**JIT)
-def _forces(line, n, prm, meta, loops, field, work_f, work_i, fresh):
+def _first_bad(line, n, prm):
+    """:func:`node_pass`'s ``first_bad`` alone: the first segment longer than l_max, or shorter
+    than l_min with a free end, -1 if none (the same lengths, by the same arithmetic)."""
+    x, y, pin = line[0], line[1], line[2]
+    Lx, lmin, lmax = prm.Lx, prm.l_min, prm.l_max
+    for i in range(n):
+        if i < n - 1:
+            xj, yj, pj = x[i + 1], y[i + 1], pin[i + 1]
+        else:
+            xj, yj, pj = x[0] + Lx, y[0], pin[0]
+        bx, by = xj - x[i], yj - y[i]
+        b = np.sqrt(bx * bx + by * by)
+        if b > lmax or (b < lmin and (pin[i] < 0 or pj < 0)):
+            return i
+    return -1
+
+
+@njit(**JIT)
+def _forces(line, n, prm, meta, loops, field, work_f, work_i, fresh, reconnected):
     """The line model's forces, then :func:`node_pass`; remesh first if a segment is out of
     bounds (the line was changed since the last move).  Returns (node count, node_pass's
-    results)."""
+    results).
+
+    Just after a reconnection (``reconnected``) a segment is out of bounds more often than not
+    (the joining node lies anywhere along its neighbours' segments), and the pass would be done
+    again after remeshing: the bounds are then looked up first (:func:`_first_bad`, a square
+    root per segment instead of the whole pass).
+    """
     model_forces(line, n, prm, meta, loops, work_f, fresh)
-    out = node_pass(line, n, prm, work_f)
-    if out[1] >= 0:
+    bad = _first_bad(line, n, prm) if reconnected else -1
+    if bad < 0:
+        out = node_pass(line, n, prm, work_f)
+        bad = out[1]
+    if bad >= 0:
         meta[M_REMESH] += 1
-        n = _remesh_line(line, n, prm, out[1], field, work_f, work_i)
+        n = _remesh_line(line, n, prm, bad, field, work_f, work_i)
         model_forces(line, n, prm, meta, loops, work_f, False)
         out = node_pass(line, n, prm, work_f)
     return n, out
@@ -1895,7 +1930,8 @@ def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
             meta[M_N] = n
             return CAPACITY
         fresh = stale or since >= refresh
-        n, passed = _forces(line, n, prm, meta, loops, field, work_f, work_i, fresh)
+        n, passed = _forces(line, n, prm, meta, loops, field, work_f, work_i, fresh,
+                            searched)
         area, _, max_te, _, vmax, turned = passed
         if fresh:
             stale, since = False, 0
