@@ -1717,16 +1717,24 @@ def time_step(prm):
 @njit(**JIT)
 def _first_bad(line, n, prm):
     """:func:`node_pass`'s ``first_bad`` alone: the first segment longer than l_max, or shorter
-    than l_min with a free end, -1 if none (the same lengths, by the same arithmetic)."""
+    than l_min with a free end, -1 if none (the same lengths, by the same arithmetic).
+
+    A squared length clear of both bounds squared by a relative 1e-9 (far above the rounding of
+    the root) is within them whatever the root rounds to; only the others take the root.
+    """
     x, y, pin = line[0], line[1], line[2]
     Lx, lmin, lmax = prm.Lx, prm.l_min, prm.l_max
+    above_min, below_max = lmin * lmin * (1.0 + 1e-9), lmax * lmax * (1.0 - 1e-9)
     for i in range(n):
         if i < n - 1:
             xj, yj, pj = x[i + 1], y[i + 1], pin[i + 1]
         else:
             xj, yj, pj = x[0] + Lx, y[0], pin[0]
         bx, by = xj - x[i], yj - y[i]
-        b = np.sqrt(bx * bx + by * by)
+        b2 = bx * bx + by * by
+        if above_min < b2 < below_max:
+            continue
+        b = np.sqrt(b2)
         if b > lmax or (b < lmin and (pin[i] < 0 or pj < 0)):
             return i
     return -1
