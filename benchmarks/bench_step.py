@@ -127,8 +127,11 @@ class StepProfile:
         line, loops = s.line, s.loop_arrays
         return {
             "node_pass": lambda: K.node_pass(line, n, prm, wf),
+            "first_bad": lambda: K._first_bad(line, n, prm),
             "remesh": lambda bad: K._remesh_line(line, n, prm, bad, f, wf, wi),
-            "release": lambda: K._release(line, n, prm, f, wf, s.meta, loops),
+            "release": lambda: K._release(line, n, prm, f, wf, s.meta, loops, wi[C.I_KEEP]),
+            "refresh_released": lambda count, passed: K._refresh_released(
+                line, n, prm, wf, wi[C.I_KEEP], count, passed),
             "contacts and reconnections": lambda: K._reconnect_all(line, n, prm, s.meta, loops, f,
                                                                    wf, wi),
             "move_and_capture": lambda dt: K.move_and_capture(line, n, dt, prm, f, wf, wi),
@@ -153,7 +156,7 @@ class StepProfile:
         # the rest take about as many arrays as node_pass, or twice as many
         for name in ("remesh", "contacts and reconnections", "move_and_capture"):
             out[name] = 2.0 * out["node_pass"]
-        out["insert_pins"] = out["node_pass"]
+        out["insert_pins"] = out["refresh_released"] = out["first_bad"] = out["node_pass"]
         return out
 
     def run(self, steps: int) -> tuple[float, int]:
@@ -169,12 +172,19 @@ class StepProfile:
                 s.grow()
                 self._arrays()
             self._n = n
-            area, bad, max_te, stiff, vmax, turned = self._call("node_pass")
+            bad = self._call("first_bad") if searched else -1   # just reconnected
+            if bad < 0:
+                passed = self._call("node_pass")
+                bad = passed[1]
             if bad >= 0:
                 n = self._n = self._call("remesh", bad)
-                area, bad, max_te, stiff, vmax, turned = self._call("node_pass")
-            if self._call("release") > 0:   # a freed obstacle shrinks the discs it lies in
-                continue
+                passed = self._call("node_pass")
+            released = self._call("release")
+            if released > 0:
+                done, passed = self._call("refresh_released", released, passed)
+                if not done:
+                    continue
+            area, bad, max_te, stiff, vmax, turned = passed
             if turned > 0 and not searched:
                 n_new, full = self._call("contacts and reconnections")
                 if full:

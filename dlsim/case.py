@@ -234,7 +234,7 @@ SCHEMA: dict[str, Section] = {
     "friction": Section("lattice friction", {
         "stress_MPa": Key(float, "the friction threshold τ_f in MPa", 0.0, at_least(0)),
     }),
-    "loading": Section("the stress ramp and bisection that find the CRSS", {
+    "loading": Section("the stress ramp and the refinement of its last step that find the CRSS", {
         "stress_step": Key(float, "the stress increment as a fraction of 2Γ/(bL)", 0.02,
                            Check(lambda v: bounds.MIN_STRESS_STEP <= v < 1,
                                  f"{{noun}} in [{bounds.MIN_STRESS_STEP:g}, 1) (at most "
@@ -244,7 +244,7 @@ SCHEMA: dict[str, Section] = {
         "flow_distance": Key(float, "the mean glide past the last pinned state that counts as "
                                     "flow, in spacings (default: the box height, so a flowing line "
                                     "has crossed the whole field)", None, up_to(1e4)),
-        "bisections": Key(int, "the bisection steps after the bracket is found (6 halve a 0.02 step to 3e-4 of 2Γ/(bL))", 6,
+        "bisections": Key(int, "the halvings of the last ramp step the bracket is refined by, as many as a bisection would take (6 narrow a 0.02 step to 3e-4 of 2Γ/(bL))", 6,
                           int_range(0, MAX_BISECTIONS)),
         "max_steps": Key(int, "the time steps allowed in one relaxation", 2_000_000,
                          int_range(1, MAX_STEPS)),

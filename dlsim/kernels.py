@@ -82,7 +82,8 @@ TURNED_TX = 0.5
 #: by √(1 + (l/2R)²): +2.6 % on the square-array Orowan stress at 0.2 L, arc construction as the
 #: reference).  Both forms have the same continuum limit.
 #: relax_line's loop runs at most this many passes per time step allowed: a pass that releases
-#: pins or reconnects does not move the line and is followed by another (a bound, never reached
+#: pins (other than with constant Γ) or reconnects does not move the line and is followed by
+#: another (a bound, never reached
 #: in practice, that keeps a line that would release and reconnect for ever from hanging).
 PASSES_PER_STEP = 4
 #: The constant-Γ and de Wit–Koehler lines take linearly implicit (backward-Euler) steps, solved
@@ -273,7 +274,6 @@ def node_pass(line, n, prm, work_f):
         else:
             if tnx < TURNED_TX:
                 turned += 1
-            # normal (-tny, tnx): τ_loc = F_t·n/l + τ (ARC_DRIVE)
             t_loc = (ty * tnx - tx * tny) / (0.5 * (a + b)) + t_node
             t_eff = abs(t_loc) - tau_f
             if t_eff <= 0.0:
@@ -292,6 +292,88 @@ def node_pass(line, n, prm, work_f):
         ax, ay, a, uax, uay = bx, by, b, ubx, uby
     stiff = 0.0 if min_ab == np.inf else 1.0 / min_ab
     return area, first_bad, max_te, stiff, vmax, turned
+
+
+@njit(**JIT, inline="always")
+def _drive(i, geometry, t_node, tau_f, mob, vx, vy):
+    """Velocity of free node i into ``vx[i], vy[i]``; returns τ_eff, 0 where friction holds it.
+
+    ``geometry`` = (tx, ty, tnx, tny, a, b): the line-tension force, the unit chord tangent
+    (normal (−tny, tnx)) and the arms; ``t_node`` the stress at the node.  τ_loc = F_t·n/l + τ
+    (ARC_DRIVE), and the node moves along n at M (|τ_loc| − τ_f).  The same expressions, in the
+    same order, as :func:`node_pass` writes inline (a call there measured 3 % slower), so that
+    :func:`_refresh_released` gives the same bits.
+    """
+    tx, ty, tnx, tny, a, b = geometry
+    t_loc = (ty * tnx - tx * tny) / (0.5 * (a + b)) + t_node
+    t_eff = abs(t_loc) - tau_f
+    if t_eff <= 0.0:
+        vx[i] = 0.0
+        vy[i] = 0.0
+        return 0.0
+    speed = mob * t_eff
+    if t_loc < 0.0:
+        speed = -speed
+    vx[i] = -speed * tny
+    vy[i] = speed * tnx
+    return t_eff
+
+
+@njit(**JIT, inline="always")
+def _unit_segment(x, y, n, k, Lx):
+    """Segment k of the line as :func:`node_pass` computes it: (ex, ey, length, unit ex, unit
+    ey), the unit vector by one reciprocal."""
+    if k < n - 1:
+        ex, ey = x[k + 1] - x[k], y[k + 1] - y[k]
+    else:
+        ex, ey = x[0] + Lx - x[k], y[0] - y[k]
+    e = np.sqrt(ex * ex + ey * ey)
+    inv_e = 1.0 / e
+    return ex, ey, e, ex * inv_e, ey * inv_e
+
+
+@njit(**JIT)
+def _refresh_released(line, n, prm, work_f, nodes, count, passed):
+    """Bring :func:`node_pass`'s results up to date after :func:`_release` freed ``nodes[:count]``
+    (constant Γ only), without a pass over the line; (False, ``passed``) where that pass would
+    remesh.
+
+    Nothing moved, so only a released node's own entries change: it now has a velocity, a
+    stiffness in W_FPIN, may count as turned and enter the residual and the largest speed (maxima,
+    whatever the order); the area and every other node's entries (a pin's force depends only on
+    its arms, not on its neighbours' pins) stay, and each quantity is computed by the same
+    arithmetic as in :func:`node_pass`, so the results are identical to a new pass.  A free end
+    can make a short arm out of bounds (a new pass would remesh): then False, as it is when the
+    previous pass left a segment out of bounds.  The de Wit–Koehler and self-stress forces
+    depend on the pins (:func:`model_forces`): the caller passes the line again for them.
+    """
+    area, first_bad, max_te, stiff, vmax, turned = passed
+    x, y = line[0], line[1]
+    vx, vy, fpin = work_f[W_VX], work_f[W_VY], work_f[W_FPIN]
+    ntx, nty, tau_int, fex, fey = (work_f[W_NTX], work_f[W_NTY], work_f[W_TAU_INT],
+                                   work_f[W_FEX], work_f[W_FEY])
+    gamma, Lx, lmin, mob = prm.gamma, prm.Lx, prm.l_min, prm.mobility
+    k_stiff = 2.0 * mob * prm.stiffness
+    if first_bad >= 0:
+        return False, passed
+    for e in range(count):
+        i = nodes[e]
+        ax, ay, a, uax, uay = _unit_segment(x, y, n, i - 1 if i > 0 else n - 1, Lx)
+        if i == 0:      # node_pass takes the arm across the seam by a division
+            uax, uay = ax / a, ay / a
+        bx, by, b, ubx, uby = _unit_segment(x, y, n, i, Lx)
+        if a < lmin or b < lmin:
+            return False, passed
+        tx, ty = gamma * (ubx - uax) + fex[i], gamma * (uby - uay) + fey[i]
+        tnx, tny = ntx[i], nty[i]
+        if tnx < TURNED_TX:
+            turned += 1
+        t_eff = _drive(i, (tx, ty, tnx, tny, a, b), prm.tau + tau_int[i], prm.tau_f, mob, vx, vy)
+        max_te = max(max_te, t_eff)
+        vmax = max(vmax, mob * t_eff)
+        stiff = max(stiff, 1.0 / (a * b))     # 1/min(a b): the reciprocal is monotone
+        fpin[i] = k_stiff / (a * b)
+    return True, (area, first_bad, max_te, stiff, vmax, turned)
 
 
 @njit(**JIT)
@@ -876,6 +958,7 @@ def find_contacts(line, n, prm, work_f, work_i, ci, cj):
     ncy = _pow2_at_most(max(1.0, min(head.shape[0] / ncx, 2.0 * n / ncx + 1.0)))
     mx, my = ncx - 1, ncy - 1
     inv_cw, inv_hc = ncx / Lx, 1.0 / hc
+    width = Lx / ncx
     for c in range(ncx * ncy):
         head[c] = -1
     for i in range(n):
@@ -891,7 +974,14 @@ def find_contacts(line, n, prm, work_f, work_i, ci, cj):
         ix0 = int(np.floor(x[i] * inv_cw))
         iy0 = int(np.floor(y[i] * inv_hc))
         partner = -1
-        for dx in range(-1, 2):
+        # a column of cells is wider than hc: the one on the side node i lies further from
+        # holds no node within hc of it in x (all its candidates would fail the box test below;
+        # a margin far above rounding), so it is not walked
+        frac = (x[i] * inv_cw - ix0) * width
+        margin = 1e-9 * (abs(x[i]) + 4.0 * Lx)
+        dx0 = -1 if ncx < 4 or frac <= hc + margin else 0
+        dx1 = 1 if ncx < 4 or width - frac <= hc + margin else 0
+        for dx in range(dx0, dx1 + 1):
             for dy in range(-1, 2):
                 j = head[((ix0 + dx) & mx) + ncx * ((iy0 + dy) & my)]
                 while j >= 0 and partner < 0:
@@ -1060,15 +1150,27 @@ def _node_at(x, y, n, k, Lx):
 @njit(**JIT, inline="always")
 def _cross_param(ax, ay, bx, by, cx, cy, dx, dy):
     """Where segment AB crosses segment CD: the fraction along AB, or -1 if they do not cross at a
-    point interior to both (parallel and touching segments do not cross)."""
+    point interior to both (parallel and touching segments do not cross).
+
+    Most pairs tested do not cross, and their numerators already tell: t = a/d (or u) is at most
+    0 when a and d differ in sign, and at least 1 when |a| > |d| with the same sign, whatever the
+    rounding (a correctly rounded quotient is monotone in the exact one), so those pairs are
+    rejected before the two divisions, with the same answer."""
     ex, ey = bx - ax, by - ay
     fx, fy = dx - cx, dy - cy
     den = ex * fy - ey * fx
     if den == 0.0:
         return -1.0
     gx, gy = cx - ax, cy - ay
-    t = (gx * fy - gy * fx) / den
-    u = (gx * ey - gy * ex) / den
+    at = gx * fy - gy * fx
+    au = gx * ey - gy * ex
+    if den > 0.0:
+        if at <= 0.0 or au <= 0.0 or at > den or au > den:
+            return -1.0
+    elif at >= 0.0 or au >= 0.0 or at < den or au < den:
+        return -1.0
+    t = at / den
+    u = au / den
     if t <= 0.0 or t >= 1.0 or u <= 0.0 or u >= 1.0:
         return -1.0
     return t
@@ -1100,6 +1202,46 @@ def _mark_backward_bins(x, n, Lx, ncx, width, marked):
 
 
 @njit(**JIT)
+def _segment_grid(x, y, n, Lx, grid, marked, lists):
+    """Hash the crossing candidates of :func:`find_crossing` into its grid; return the entries
+    made, or minus the entries needed when the lists are too short (nothing usable written).
+
+    ``grid`` = (ncx, ncy, width, height): power-of-two cell counts (wrapping is a bit mask) and
+    the cell size; a candidate is a segment whose x span shares a bin with a backwards one
+    (``marked``, :func:`_mark_backward_bins`), entered in every cell its box covers.  ``lists`` =
+    (head, next, seg): the first entry of each cell, the next entry in the same cell and the
+    segment of each entry.  The segments are entered from the last to the first, so that each
+    cell lists its segments in ascending order; one pass, no count first.
+    """
+    ncx, ncy, width, hc = grid
+    head, nxt, seg = lists
+    mx, my = ncx - 1, ncy - 1
+    inv_w, inv_h = 1.0 / width, 1.0 / hc
+    room = min(nxt.shape[0], seg.shape[0])
+    head[:ncx * ncy] = -1
+    entries = 0
+    for k in range(n - 1, -1, -1):
+        ax, ay = x[k], y[k]
+        bx, by = _segment_end(x, y, n, k, Lx)
+        i0, i1 = int(np.floor(min(ax, bx) * inv_w)), int(np.floor(max(ax, bx) * inv_w))
+        i1 = min(i1, i0 + ncx - 1)
+        hit = False
+        for i in range(i0, i1 + 1):
+            hit = hit or marked[i & mx] != 0
+        if not hit:
+            continue
+        j0, j1 = int(np.floor(min(ay, by) * inv_h)), int(np.floor(max(ay, by) * inv_h))
+        for i in range(i0, i1 + 1):
+            for j in range(j0, min(j1, j0 + ncy - 1) + 1):
+                if entries < room:
+                    c = (i & mx) + ncx * (j & my)
+                    seg[entries], nxt[entries] = k, head[c]
+                    head[c] = entries
+                entries += 1
+    return entries if entries <= room else -entries
+
+
+@njit(**JIT)
 def find_crossing(line, n, prm, work_i):
     """The crossing of two segments of the line that cuts off the smallest loop.
 
@@ -1107,7 +1249,8 @@ def find_crossing(line, n, prm, work_i):
     itself; where parts fold back, the vertical through a crossing point also meets a backwards
     segment, so only segments whose x span shares a bin (mod Lx) with a backwards one are
     candidates.  They go into a hashed grid of cells at least l_max wide (each segment in every
-    cell its box covers) and the pairs of each cell are tested exactly, images in x included.
+    cell its box covers, :func:`_segment_grid`) and the pairs of each cell are tested exactly,
+    images in x included.
 
     Returns
     -------
@@ -1117,87 +1260,148 @@ def find_crossing(line, n, prm, work_i):
         t along segment P; the loop is the unwrapped nodes P+1..Q.  P = -1 when the line does not
         cross itself.
     """
+    p, q, t, _ = _crossing_search(line, n, prm, work_i)
+    return p, q, t
+
+
+@njit(**JIT)
+def _crossing_search(line, n, prm, work_i):
+    """:func:`find_crossing`, and whether its crossing is the only pair of segments it found
+    crossing, with the grid in the work rows I_HEAD, I_NEXT, I_SRC (:func:`_segment_grid`; the
+    marks of the backwards bins in I_KEEP): then :func:`_cut_leaves_no_crossing` can tell from
+    them whether the cut line crosses itself.  (Allowing other pairs that the cut changes or
+    removes found no more lines free of crossings on the bench_step rig.)"""
     x, y = line[0], line[1]
     Lx = prm.Lx
-    hc = prm.l_max
-    ncx = _pow2_at_most(Lx / hc)
-    width = Lx / ncx
-    marked, cand = work_i[I_KEEP], work_i[I_SRC]
-    start_room = work_i.shape[1]
-    if _mark_backward_bins(x, n, Lx, ncx, width, marked) == 0:
-        return -1, -1, -1.0
-    ncy = _pow2_at_most(max(1.0, min((start_room - 1) / ncx, 2.0 * n / ncx + 1.0)))
-    mx, my = ncx - 1, ncy - 1
-    # candidates (listed in row I_SRC) and their cells: count, then fill (CSR over cells)
-    inv_w, inv_h = 1.0 / width, 1.0 / hc
-    count = 0
-    entries = 0
-    for k in range(n):
-        ax, ay = x[k], y[k]
-        bx, by = _segment_end(x, y, n, k, Lx)
-        i0, i1 = int(np.floor(min(ax, bx) * inv_w)), int(np.floor(max(ax, bx) * inv_w))
-        i1 = min(i1, i0 + ncx - 1)
-        hit = False
-        for i in range(i0, i1 + 1):
-            hit = hit or marked[i & mx] != 0
-        if hit:
-            cand[count] = k
-            count += 1
-            j0, j1 = int(np.floor(min(ay, by) * inv_h)), int(np.floor(max(ay, by) * inv_h))
-            entries += (i1 - i0 + 1) * (min(j1, j0 + ncy - 1) - j0 + 1)
-    start = work_i[I_HEAD]
-    seg = work_i[I_NEXT] if entries <= work_i.shape[1] else np.empty(entries, np.int64)
-    start[:ncx * ncy + 1] = 0
-    for phase in range(2):
-        for e in range(count):
-            k = cand[e]
-            ax, ay = x[k], y[k]
-            bx, by = _segment_end(x, y, n, k, Lx)
-            i0, i1 = int(np.floor(min(ax, bx) * inv_w)), int(np.floor(max(ax, bx) * inv_w))
-            j0, j1 = int(np.floor(min(ay, by) * inv_h)), int(np.floor(max(ay, by) * inv_h))
-            for i in range(i0, min(i1, i0 + ncx - 1) + 1):
-                for j in range(j0, min(j1, j0 + ncy - 1) + 1):
-                    c = (i & mx) + ncx * (j & my)
-                    if phase == 0:
-                        start[c + 1] += 1
-                    else:
-                        seg[start[c]] = k
-                        start[c] += 1
-        if phase == 0:
-            for c in range(ncx * ncy):
-                start[c + 1] += start[c]
-        else:   # the fill advanced every start to the next cell's: shift back
-            for c in range(ncx * ncy, 0, -1):
-                start[c] = start[c - 1]
-            start[0] = 0
+    grid = _crossing_grid(n, prm, work_i.shape[1])
+    marked = work_i[I_KEEP]
+    if _mark_backward_bins(x, n, Lx, grid[0], grid[2], marked) == 0:
+        return -1, -1, -1.0, False
+    ncx, ncy = grid[0], grid[1]
+    head, nxt, seg = work_i[I_HEAD], work_i[I_NEXT], work_i[I_SRC]
+    entries = _segment_grid(x, y, n, Lx, grid, marked, (head, nxt, seg))
+    if entries < 0:     # more entries than a work row holds: lists of their own
+        nxt, seg = np.empty(-entries, np.int64), np.empty(-entries, np.int64)
+        _segment_grid(x, y, n, Lx, grid, marked, (head, nxt, seg))
     best_p, best_q, best_t, best_size = -1, -1, -1.0, n
+    first1, first2, several = -1, -1, False
     for c in range(ncx * ncy):
-        for e in range(start[c], start[c + 1]):
+        e = head[c]
+        while e >= 0:
             k1 = seg[e]
-            for f in range(e + 1, start[c + 1]):
+            ax, ay = x[k1], y[k1]
+            bx, by = _segment_end(x, y, n, k1, Lx)
+            e = nxt[e]
+            f = e
+            while f >= 0:       # the segments after k1 in the cell
                 k2 = seg[f]
-                gap = (k2 - k1) % n
-                if gap <= 1 or gap >= n - 1:
-                    continue
-                # the image of k2 nearest to k1
-                m = int(np.floor((x[k1] - x[k2]) / Lx + 0.5))
-                ax, ay = x[k1], y[k1]
-                bx, by = _segment_end(x, y, n, k1, Lx)
-                cx, cy = x[k2] + m * Lx, y[k2]
-                dx, dy = _segment_end(x, y, n, k2, Lx)
-                t = _cross_param(ax, ay, bx, by, cx, cy, dx + m * Lx, dy)
+                f = nxt[f]
+                t, m = _pair_crossing(x, y, n, Lx, (k1, ax, ay, bx, by), k2)
                 if t < 0.0:
                     continue
+                if first1 < 0:
+                    first1, first2 = k1, k2
+                several |= k1 != first1 or k2 != first2
                 q = k2 + m * n              # k2's image, unwrapped, relative to k1
                 if q > k1:
                     p, size = k1, q - k1
                 else:                       # k1's image, in k2's frame, comes later
                     p, size = k2, k1 - q
+                    cx, cy = x[k2] + m * Lx, y[k2]
+                    dx, dy = _segment_end(x, y, n, k2, Lx)
                     t = _cross_param(cx - m * Lx, cy, dx, dy, ax - m * Lx, ay, bx - m * Lx, by)
                 # the line keeps n - size + 1 nodes: at least MIN_NODES
                 if 2 <= size <= n + 1 - MIN_NODES and size < best_size and t > 0.0:
                     best_p, best_q, best_t, best_size = p, p + size, t, size
-    return best_p, best_q, best_t
+    return best_p, best_q, best_t, best_p >= 0 and not several and entries >= 0
+
+
+@njit(**JIT, inline="always")
+def _pair_crossing(x, y, n, Lx, first, k2):
+    """Whether segment k1 < k2 crosses segment k2 (its image nearest to k1): (t, m), t the
+    fraction along k1 (-1: no crossing, or the segments are neighbours on the line), m the image.
+
+    ``first`` = (k1, ax, ay, bx, by): k1 and its end points.  The image is found without a
+    division within a quarter period (exactly what the rounded floor gives there), most pairs.
+    """
+    k1, ax, ay, bx, by = first
+    gap = k2 - k1           # (k2 - k1) mod n, without a division
+    if gap < 0:
+        gap += n
+    if gap <= 1 or gap >= n - 1:
+        return -1.0, 0
+    sep = ax - x[k2]
+    m = 0 if abs(sep) <= 0.25 * Lx else int(np.floor(sep / Lx + 0.5))
+    cx, cy = x[k2] + m * Lx, y[k2]
+    dx, dy = _segment_end(x, y, n, k2, Lx)
+    return _cross_param(ax, ay, bx, by, cx, cy, dx + m * Lx, dy), m
+
+
+@njit(**JIT)
+def _crossing_grid(n, prm, room):
+    """The grid of :func:`find_crossing` for n nodes, ``room`` cells at most: (ncx, ncy, cell
+    width, cell height), power-of-two counts of cells at least l_max wide and l_max high."""
+    hc = prm.l_max
+    ncx = _pow2_at_most(prm.Lx / hc)
+    ncy = _pow2_at_most(max(1.0, min((room - 1) / ncx, 2.0 * n / ncx + 1.0)))
+    return ncx, ncy, prm.Lx / ncx, hc
+
+
+@njit(**JIT)
+def _cut_leaves_no_crossing(line, n_old, n, p, q, prm, work_i):
+    """Whether :func:`find_crossing` on the line just cut at segments p, q (:func:`cut_crossing`
+    of the unwrapped nodes p+1..q, ``n_old`` nodes before, n now) finds nothing, decided from
+    the search that found that crossing alone (:func:`_crossing_search`: its grid and marks are
+    still in the work rows); False where it cannot tell.
+
+    A new search would test only pairs of the segments the cut left as they were, in the same
+    order, with the same numbers, and pairs with the two new ones (p → X, X → q+1), provided its
+    grid is the same (the same cell count for n nodes) and it marks no bin the old search did
+    not (the candidates are then among the old ones, in the same cells).  The pairs of unchanged
+    segments it would test were tested and found not crossing (the only crossing pair was p, q);
+    so it finds nothing if neither new segment crosses any segment listed in the old grid's cells
+    it covers (those it would pair it with, and more).
+    """
+    x, y = line[0], line[1]
+    Lx = prm.Lx
+    room = work_i.shape[1]
+    grid = _crossing_grid(n, prm, room)
+    if grid[1] != _crossing_grid(n_old, prm, room)[1]:
+        return False
+    ncx, ncy, width, hc = grid
+    mx, my = ncx - 1, ncy - 1
+    inv_w, inv_h = 1.0 / width, 1.0 / hc
+    marked, head, nxt, seg = work_i[I_KEEP], work_i[I_HEAD], work_i[I_NEXT], work_i[I_SRC]
+    s0 = q + 1 - n_old if q >= n_old else 0      # across the seam: old node s0 is new node 0
+    w0 = p - s0                                   # the new segments w0 (p -> X) and w0 + 1
+    for w in range(w0, w0 + 2):
+        ax, ay = x[w], y[w]
+        bx, by = _segment_end(x, y, n, w, Lx)
+        if bx < ax:     # running backwards: its bins must be marked already
+            i0 = int(np.floor(bx / width))
+            for i in range(i0, min(int(np.floor(ax / width)), i0 + ncx - 1) + 1):
+                if marked[i & mx] == 0:
+                    return False
+        i0, i1 = int(np.floor(min(ax, bx) * inv_w)), int(np.floor(max(ax, bx) * inv_w))
+        j0, j1 = int(np.floor(min(ay, by) * inv_h)), int(np.floor(max(ay, by) * inv_h))
+        for i in range(i0, min(i1, i0 + ncx - 1) + 1):
+            for j in range(j0, min(j1, j0 + ncy - 1) + 1):
+                e = head[(i & mx) + ncx * (j & my)]
+                while e >= 0:
+                    k = seg[e]
+                    e = nxt[e]
+                    # k's new index: unchanged segments lie outside the unwrapped p..q
+                    if q < n_old:
+                        kn = k if k < p else (k - (q - p) + 1 if k > q else -1)
+                    else:
+                        kn = k - s0 if s0 <= k < p else -1
+                    if kn < 0:
+                        continue
+                    k1, k2 = min(w, kn), max(w, kn)
+                    ex, ey = _segment_end(x, y, n, k1, Lx)
+                    if _pair_crossing(x, y, n, Lx, (k1, x[k1], y[k1], ex, ey), k2)[0] >= 0.0:
+                        return False
+    return True
 
 
 @njit(**JIT)
@@ -1274,11 +1478,14 @@ def _reconnect_all(line, n, prm, meta, loops, field, work_f, work_i):
     the line and ends the round.  The chord tangents are then recomputed
     (:func:`_chord_tangents`, as :func:`node_pass` would) and the line searched again, until no
     contact is left: a line touching itself in many places is resolved without a force pass, or a
-    search, per contact.
+    search, per contact.  After a cut the crossing search is not run again where the search
+    that found the cut can tell the cut line does not cross itself
+    (:func:`_cut_leaves_no_crossing`).
     """
     x, y = line[0], line[1]
     ci, cj = work_i[I_CAPTURE, :MAX_CAPTURES], work_i[I_CAPTURE, MAX_CAPTURES:2 * MAX_CAPTURES]
     Lx = prm.Lx
+    uncrossed = False       # the last change was a cut that left the line not crossing itself
     while True:
         meta[M_CONTACT_CHECKS] += 1
         k = find_contacts(line, n, prm, work_f, work_i, ci, cj)
@@ -1302,14 +1509,19 @@ def _reconnect_all(line, n, prm, meta, loops, field, work_f, work_i):
             if across:
                 break
         if not done:   # no contact left: cut where the line crosses itself, if it does
-            p, q, t = find_crossing(line, n, prm, work_i)
+            if uncrossed:
+                return n, False
+            p, q, t, alone = _crossing_search(line, n, prm, work_i)
             if p < 0:
                 return n, False
             n_new = cut_crossing(line, n, p, q, t, prm, meta, loops, field, work_f)
             if n_new < 0:
                 return n, True
+            uncrossed = alone and _cut_leaves_no_crossing(line, n, n_new, p, q, prm, work_i)
             n = n_new
             meta[M_RECONNECT] += 1
+        else:
+            uncrossed = False
         _chord_tangents(x, y, n, Lx, work_f[W_NTX], work_f[W_NTY])
 
 
@@ -1335,9 +1547,10 @@ def _chord_tangents(x, y, n, Lx, ntx, nty):
 
 
 @njit(**JIT)
-def _release(line, n, prm, field, work_f, meta, loops):
+def _release(line, n, prm, field, work_f, meta, loops, nodes):
     """Free every pinned node whose force (row W_FPIN) exceeds its obstacle's strength; return
     the count, -1 if the loop buffers are full (nothing more is released: grow them, call again).
+    The freed nodes are listed in ``nodes`` (for :func:`_refresh_released`).
 
     A pin whose arms have crossed behind it (force infinite, :func:`_arms_crossed`) is past any
     critical angle: a shearable obstacle is released; an impenetrable one (infinite strength) is
@@ -1359,6 +1572,7 @@ def _release(line, n, prm, field, work_f, meta, loops):
                 _unhold(k, y[i], n, prm, field, work_f)
             pin[i] = -1
             ign[i] = k
+            nodes[released] = i
             released += 1
     return released
 
@@ -1514,15 +1728,50 @@ def time_step(prm):
 
 
 @njit(**JIT)
-def _forces(line, n, prm, meta, loops, field, work_f, work_i, fresh):
+def _first_bad(line, n, prm):
+    """:func:`node_pass`'s ``first_bad`` alone: the first segment longer than l_max, or shorter
+    than l_min with a free end, -1 if none (the same lengths, by the same arithmetic).
+
+    A squared length clear of both bounds squared by a relative 1e-9 (far above the rounding of
+    the root) is within them whatever the root rounds to; only the others take the root.
+    """
+    x, y, pin = line[0], line[1], line[2]
+    Lx, lmin, lmax = prm.Lx, prm.l_min, prm.l_max
+    above_min, below_max = lmin * lmin * (1.0 + 1e-9), lmax * lmax * (1.0 - 1e-9)
+    for i in range(n):
+        if i < n - 1:
+            xj, yj, pj = x[i + 1], y[i + 1], pin[i + 1]
+        else:
+            xj, yj, pj = x[0] + Lx, y[0], pin[0]
+        bx, by = xj - x[i], yj - y[i]
+        b2 = bx * bx + by * by
+        if above_min < b2 < below_max:
+            continue
+        b = np.sqrt(b2)
+        if b > lmax or (b < lmin and (pin[i] < 0 or pj < 0)):
+            return i
+    return -1
+
+
+@njit(**JIT)
+def _forces(line, n, prm, meta, loops, field, work_f, work_i, fresh, reconnected):
     """The line model's forces, then :func:`node_pass`; remesh first if a segment is out of
     bounds (the line was changed since the last move).  Returns (node count, node_pass's
-    results)."""
+    results).
+
+    Just after a reconnection (``reconnected``) a segment is out of bounds more often than not
+    (the joining node lies anywhere along its neighbours' segments), and the pass would be done
+    again after remeshing: the bounds are then looked up first (:func:`_first_bad`, a square
+    root per segment instead of the whole pass).
+    """
     model_forces(line, n, prm, meta, loops, work_f, fresh)
-    out = node_pass(line, n, prm, work_f)
-    if out[1] >= 0:
+    bad = _first_bad(line, n, prm) if reconnected else -1
+    if bad < 0:
+        out = node_pass(line, n, prm, work_f)
+        bad = out[1]
+    if bad >= 0:
         meta[M_REMESH] += 1
-        n = _remesh_line(line, n, prm, out[1], field, work_f, work_i)
+        n = _remesh_line(line, n, prm, bad, field, work_f, work_i)
         model_forces(line, n, prm, meta, loops, work_f, False)
         out = node_pass(line, n, prm, work_f)
     return n, out
@@ -1831,9 +2080,10 @@ def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
 
     One step: the line model's forces and the node pass (:func:`_forces`, remeshing first if the
     line came in out of bounds); stop if the line has glided the flow distance; release
-    overloaded pins; reconnect parts of opposite sense in contact (only searched for when some
-    node has turned past 60°); stop at equilibrium; otherwise advance the free nodes by one
-    implicit step (IMPLICIT_GROWTH; the self-stress line: the point-implicit step,
+    overloaded pins (then pass the line again, or with constant Γ update only the freed nodes,
+    :func:`_refresh_released`); reconnect parts of opposite sense in contact (only searched for
+    when some node has turned past 60°); stop at equilibrium; otherwise advance the free nodes by
+    one implicit step (IMPLICIT_GROWTH; the self-stress line: the point-implicit step,
     STEP_STIFFNESS), pin every obstacle swept on the way and remesh where a segment left its
     bounds (:func:`_advance`).  The implicit step's length is carried to the next call
     (DT_SLOT); a release (here, in a crossing cut or between calls) shortens it to at most
@@ -1886,20 +2136,29 @@ def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
             meta[M_N] = n
             return CAPACITY
         fresh = stale or since >= refresh
-        n, passed = _forces(line, n, prm, meta, loops, field, work_f, work_i, fresh)
+        n, passed = _forces(line, n, prm, meta, loops, field, work_f, work_i, fresh,
+                            searched)
         area, _, max_te, _, _, turned = passed
         if fresh:
             stale, since = False, 0
         if (area - prm.area_ref) / Lx > prm.flow:
             meta[M_N] = n
             return FLOWING
-        released = _release(line, n, prm, field, work_f, meta, loops)
+        released = _release(line, n, prm, field, work_f, meta, loops, work_i[I_KEEP])
         if released < 0:
             meta[M_N] = n
             return CAPACITY
         if released > 0:
             meta[M_RELEASES] += released
-            continue
+            if prm.model != MODEL_CONSTANT:
+                continue
+            # nothing moved: update the freed nodes, not the whole line (a pass again would
+            # release nothing more, the other pins' forces being the same)
+            done, passed = _refresh_released(line, n, prm, work_f, work_i[I_KEEP], released,
+                                             passed)
+            if not done:
+                continue
+            area, _, max_te, _, _, turned = passed
         # no free node turned past 60° from x: no two parts can be antiparallel; just after a
         # round of reconnections the line has been searched already
         if turned > 0 and not searched:

@@ -380,7 +380,7 @@ def _solver(res: dict) -> str:
         text += f", nodes {line['node_spacing_nm']:.3g} nm apart"
     if "stress_step" in loading:
         text += (f"; stress steps {loading['stress_step']:.3g} · 2Γ/(bL), "
-                 f"{loading.get('bisections', '?')} bisections")
+                 f"bracket refined {loading.get('bisections', '?')} halvings")
     return text
 
 

@@ -1,11 +1,11 @@
 """The driver: relaxation of the line at one stress, and the CRSS protocol of docs/physics.md.
 
 The time stepping itself runs in :func:`dlsim.kernels.relax_line`; this module owns the loop over
-stresses.  Protocol (docs/physics.md, "Critical resolved shear stress"): raise τ in steps from
-the friction stress, relax to equilibrium at each, call the line flowing once its mean position
-has moved more than a set glide distance past its last pinned configuration, then bisect the
-bracket, every trial restarting from the last pinned configuration.  All values are reduced
-(b, G, G b²).
+stresses.  Protocol (docs/physics.md, "The CRSS protocol"): raise τ in steps from the friction
+stress, relax to equilibrium at each, call the line flowing once its mean position has moved more
+than a set glide distance past its last pinned configuration, then refine the bracket to the
+resolution of ``bisections`` halvings, every trial restarting from the last pinned
+configuration.  All values are reduced (b, G, G b²).
 """
 from __future__ import annotations
 
@@ -25,6 +25,9 @@ LMIN_FRACTION = 0.5
 LMAX_FRACTION = 1.5
 #: Parts of the line of opposite sense closer than this fraction of the node spacing reconnect.
 ANNIHILATION_FRACTION = 0.5
+#: The bracket is refined in levels of at most this many halvings (docs/physics.md, "The CRSS
+#: protocol"): a level of 2^k cells is scanned upwards from its pinned end.
+REFINE_LEVEL_HALVINGS = 4
 #: Time steps per compiled call when nothing asks for snapshots (keeps Python out of the loop).
 DEFAULT_CHUNK = 50_000
 
@@ -137,7 +140,8 @@ class Protocol:
     flow_distance : float
         Mean glide past the last pinned configuration that counts as flow (b).
     bisections : int
-        Bisection steps once the CRSS is bracketed.
+        Halvings of the last ramp step that the bracket is refined by (:func:`find_crss`): the
+        resolution of as many bisection steps.
     max_steps : int
         Time steps allowed in one relaxation; a relaxation that uses them all is "unresolved" and
         counts as not pinned.
@@ -157,7 +161,7 @@ class Protocol:
 class Relaxation:
     """One row of the history: a relaxation at one stress (reduced units)."""
 
-    phase: str            # "ramp" or "bisect"
+    phase: str            # "ramp" or "refine"
     stress: float         # G
     state: str            # "pinned", "flowing" or "unresolved"
     mean_glide: float     # mean line position relative to the start (b)
@@ -263,7 +267,16 @@ def find_crss(obstacles: ObstacleField, model: LineModel, protocol: Protocol,
               y0: float = 0.0, snapshot_every: int = 0,
               on_snapshot: Callable[[LineState, float, int], None] | None = None,
               on_relaxation: Callable[[Relaxation], None] | None = None) -> CrssResult:
-    """Bracket and bisect the CRSS of a line that starts straight along y = ``y0``.
+    """Bracket the CRSS of a line that starts straight along y = ``y0`` and refine the bracket.
+
+    The ramp raises τ by ``protocol.stress_step`` until the line flows.  The bracket [lo, hi] is
+    then refined to (hi − lo)/2^bisections, the resolution of a bisection with as many steps, in
+    levels (:func:`refinement_levels`): each level cuts the bracket into 2^k equal cells and
+    tries their inner ends upwards from lo, each trial relaxing from the last pinned
+    configuration, until one flows (the new hi) or the cells run out.  A flowing trial glides a
+    whole flow distance and costs tens of times a pinned one near the CRSS, so a level pays for
+    at most one, where bisection pays for about half its steps; the stresses tried lie on the
+    same grid, and loading stays monotonic between pinned trials (closer to quasi-static).
 
     Parameters
     ----------
@@ -319,19 +332,34 @@ def find_crss(obstacles: ObstacleField, model: LineModel, protocol: Protocol,
         else:
             hi = tau
     unresolved = history[-1].state == "unresolved"
-    for _ in range(protocol.bisections):
-        mid = 0.5 * (lo + hi)
-        line = pinned.copy()
-        name = trial(line, mid, "bisect")
-        unresolved |= name == "unresolved"
-        if name == "pinned":
-            pinned, lo = line, mid
-        else:
-            hi = mid
+    for cells in refinement_levels(protocol.bisections):
+        base, width = lo, (hi - lo) / cells
+        for k in range(1, cells):      # the top cell's upper end, hi, is known to flow
+            tau = base + k * width
+            line = pinned.copy()
+            name = trial(line, tau, "refine")
+            unresolved |= name == "unresolved"
+            if name != "pinned":
+                hi = tau
+                break
+            pinned, lo = line, tau
     message = "bracketed" if not unresolved else (
         "bracketed; some relaxations used every allowed step and were counted as not pinned")
     return CrssResult(0.5 * (lo + hi), lo, hi, not unresolved, message, history, pinned,
                       _counters(pinned))
+
+
+def refinement_levels(halvings: int) -> list[int]:
+    """Cells per level of the bracket's refinement: ``halvings`` halvings of the last ramp step,
+    dealt out as evenly as possible into levels of at most REFINE_LEVEL_HALVINGS each (6: 8 and 8
+    cells; 8: 16 and 16; 5: 8 and 4).  The product is 2^halvings, the resolution of a bisection
+    with as many steps."""
+    levels = -(-halvings // REFINE_LEVEL_HALVINGS) if halvings > 0 else 0
+    out = []
+    for k in range(levels):
+        bits = halvings // levels + (1 if k < halvings % levels else 0)
+        out.append(2 ** bits)
+    return out
 
 
 def _counters(state: LineState) -> dict:

@@ -77,14 +77,16 @@ def log_rate(x, barrier, p, q):
 
 
 @njit(**JIT)
-def pin_log_rates(W, s, barrier, p, q, slots, lnr):
-    """Fill slots[:n], lnr[:n] with the line's pins and their ln(r/ν0) at stress s; returns n.
-    ``barrier`` (m,) is ΔF0/kT of every obstacle.
+def pin_log_rates(W, s, law, scratch):
+    """Fill slots[:n], lnr[:n] of ``scratch`` with the line's pins and their ln(r/ν0) at stress
+    s; returns n.  ``law`` is (barrier, p, q) (:func:`kmc_events`).
 
     The force on a pin is 2Γ cos(φ/2) (φ its arm angle) and F_c = 2Γ cos(φ_c/2), so F/F_c is the
     ratio of the cosines.  An impenetrable obstacle (φ_c = 0) is never activated: -inf.
     """
     PI, SI, OB = W[A.W_IP], W[A.W_IS], W[A.W_OB]
+    barrier, p, q = law
+    slots, _, lnr = scratch
     i0 = SI[A.I_ANCHOR]
     if i0 < 0 or SI[A.I_NPINS] == 0:
         return 0
@@ -162,7 +164,7 @@ def _residence_event(lnr, keys, n, u, Q, waits):
 
 
 @njit(**JIT)
-def kmc_events(W, s, barrier, p, q, u, Q, slots, keys, lnr, waits):
+def kmc_events(W, s, law, events, scratch):
     """Run residence-time events at stress s until ``u`` is used up (two numbers per event).
 
     Parameters
@@ -171,19 +173,17 @@ def kmc_events(W, s, barrier, p, q, u, Q, slots, keys, lnr, waits):
         The arc construction's work arrays, stable at stress s (``arcs._Run.tuple``).
     s : float
         Stress τ/(2Γ) (b⁻¹), fixed.
-    barrier : (m,) float64
-        ΔF0/kT of every obstacle.
-    p, q : float
-        The exponents of ΔG.
-    u : (2 n,) float64
-        Uniform numbers in (0, 1]: event k picks its pin with u[2k] and its waiting time with
-        u[2k+1].
-    Q : (N_Q,) float64
-        kMC state (``Q_*``), updated; resumable after K_GROW.
-    slots, keys, lnr : (C,) int64, int64, float64
-        Scratch for the pins, their obstacles and their log rates (C >= the pin capacity).
-    waits : (n,) float64
-        Receives each event's ln waiting time (units of 1/ν0).
+    law : (barrier, p, q)
+        The activation law: ``barrier`` (m,) float64 ΔF0/kT of every obstacle, ``p``, ``q``
+        the exponents of ΔG (:func:`log_rate`).
+    events : (u, Q, waits)
+        ``u`` (2 n,) float64 uniform numbers in (0, 1]: event k picks its pin with u[2k] and its
+        waiting time with u[2k+1]; ``Q`` (N_Q,) float64 the kMC state (``Q_*``), updated,
+        resumable after K_GROW; ``waits`` (n,) float64 receives each event's ln waiting time
+        (units of 1/ν0).
+    scratch : (slots, keys, lnr)
+        (C,) int64, int64, float64 for the pins, their obstacles and their log rates
+        (C >= the pin capacity).
 
     Returns
     -------
@@ -192,6 +192,8 @@ def kmc_events(W, s, barrier, p, q, u, Q, slots, keys, lnr, waits):
         activated) or K_FATAL.
     """
     SF, SI = W[A.W_FS], W[A.W_IS]
+    u, Q, waits = events
+    slots, keys, lnr = scratch
     n_ev = u.shape[0] // 2
     R = 0.5 / s
     while True:
@@ -204,7 +206,7 @@ def kmc_events(W, s, barrier, p, q, u, Q, slots, keys, lnr, waits):
                 Q[Q_AREA0], Q[Q_LNT0] = A._line_area(W, s)[0], Q[Q_LNT]
         if Q[Q_EVENTS] >= n_ev:
             return K_DONE
-        n = pin_log_rates(W, s, barrier, p, q, slots, lnr)
+        n = pin_log_rates(W, s, law, scratch)
         for j in range(n):
             keys[j] = W[A.W_IP][A.PK, slots[j]]
         st, pick = _residence_event(lnr, keys, n, u, Q, waits)
@@ -230,9 +232,9 @@ def kmc_events(W, s, barrier, p, q, u, Q, slots, keys, lnr, waits):
 
 
 @njit(**JIT)
-def nodal_pin_log_rates(line, n, prm, meta, loops, field, work_f, barrier, p, q, slots, lnr):
-    """Fill slots[:c], lnr[:c] with the pinned nodes of a relaxed nodal line and their ln(r/ν0);
-    returns c.
+def nodal_pin_log_rates(line, n, prm, meta, loops, field, work_f, law, scratch):
+    """Fill slots[:c], lnr[:c] of ``scratch`` with the pinned nodes of a relaxed nodal line and
+    their ln(r/ν0) under ``law`` (:func:`kmc_events`); returns c.
 
     The force on each pin is the one the release rule compares with F_c
     (:func:`dlsim.kernels.node_pass`, row W_FPIN, after the line model's forces): so x = F/F_c
@@ -242,6 +244,8 @@ def nodal_pin_log_rates(line, n, prm, meta, loops, field, work_f, barrier, p, q,
     K.model_forces(line, n, prm, meta, loops, work_f, True)
     K.node_pass(line, n, prm, work_f)
     fpin, pin, ofc = work_f[C.W_FPIN], line[2], field[2]
+    barrier, p, q = law
+    slots, _, lnr = scratch
     c = 0
     for i in range(n):
         k = pin[i]
@@ -287,8 +291,8 @@ def drop_loops_behind(line, n, meta, loops, field):
 
 
 @njit(**JIT)
-def kmc_nodal_events(line, meta, prm, field, loops, work_f, work_i, max_steps, barrier, p, q,
-                     u, Q, slots, keys, lnr, waits):
+def kmc_nodal_events(line, meta, prm, field, loops, work_f, work_i, max_steps, law, events,
+                     scratch):
     """Residence-time events of the nodal line at a fixed stress until ``u`` is used up.
 
     Each event: the loops left behind the line are dropped (:func:`drop_loops_behind`), the
@@ -307,12 +311,10 @@ def kmc_nodal_events(line, meta, prm, field, loops, work_f, work_i, max_steps, b
         relaxed at that stress, or an avalanche due (Q[Q_PENDING]).
     max_steps : int
         Time steps allowed to one avalanche.
-    barrier, p, q, u, waits
-        As :func:`kmc_events`.
-    Q : (N_Q,) float64
-        kMC state (``Q_*``), updated; resumable after K_GROW.
-    slots, keys, lnr : (>= line capacity,) int64, int64, float64
-        Scratch.
+    law, events
+        As :func:`kmc_events`; ``events``' Q is resumable after K_GROW.
+    scratch : (slots, keys, lnr)
+        (>= line capacity,) int64, int64, float64.
 
     Returns
     -------
@@ -321,6 +323,8 @@ def kmc_nodal_events(line, meta, prm, field, loops, work_f, work_i, max_steps, b
         K_UNRESOLVED.
     """
     x, y, pin, ign = line
+    u, Q, waits = events
+    slots, keys, lnr = scratch
     n_ev = u.shape[0] // 2
     while True:
         if Q[Q_PENDING] != 0.0:
@@ -339,8 +343,7 @@ def kmc_nodal_events(line, meta, prm, field, loops, work_f, work_i, max_steps, b
             return K_DONE
         n = meta[C.M_N]
         drop_loops_behind(line, n, meta, loops, field)
-        c = nodal_pin_log_rates(line, n, prm, meta, loops, field, work_f, barrier, p, q, slots,
-                                lnr)
+        c = nodal_pin_log_rates(line, n, prm, meta, loops, field, work_f, law, scratch)
         for j in range(c):
             keys[j] = pin[slots[j]]
         st, pick = _residence_event(lnr, keys, c, u, Q, waits)
@@ -364,7 +367,8 @@ def kmc_nodal_events(line, meta, prm, field, loops, work_f, work_i, max_steps, b
 class ThermalModel:
     """Activation parameters in the units the kernels need.
 
-    ``barrier`` is ΔF0/kT (a number for every obstacle, or an (m,) array of each obstacle's), ``p`` and ``q`` the exponents, ``ln_nu0`` ln(ν0/Hz), ``ln_rate_scale``
+    ``barrier`` is ΔF0/kT (a number for every obstacle, or an (m,) array of each obstacle's),
+    ``p`` and ``q`` the exponents, ``ln_nu0`` ln(ν0/Hz), ``ln_rate_scale``
     ln(ρ_m b · b) (ε̇ = ρ_m b v with v in m/s and glide in b), ``kT`` in G b³ (for V*).
     """
 
@@ -444,7 +448,8 @@ def log_velocity(obstacles: ObstacleField, model: LineModel, protocol: Protocol,
         cap = run.capacity
         slots, keys = np.zeros(cap + 1, np.int64), np.zeros(cap + 1, np.int64)
         lnr = np.zeros(cap + 1)
-        st = kmc_events(run.tuple(), s, barrier, tm.p, tm.q, u, Q, slots, keys, lnr, waits)
+        st = kmc_events(run.tuple(), s, (barrier, float(tm.p), float(tm.q)), (u, Q, waits),
+                        (slots, keys, lnr))
         if st != K_GROW:
             break
         run.grow()
@@ -535,9 +540,9 @@ def log_velocity_nodal(loading: NodalLoading, tm: ThermalModel, tau: float, u: n
         cap = state.capacity
         work_f, work_i = np.zeros((C.N_WORK_F, cap)), np.zeros((C.N_WORK_I, cap), np.int64)
         slots, keys, lnr = np.zeros(cap, np.int64), np.zeros(cap, np.int64), np.zeros(cap)
+        law = (barrier, float(tm.p), float(tm.q))
         st = kmc_nodal_events(state.line, state.meta, prm, field, state.loop_arrays, work_f,
-                              work_i, protocol.max_steps, barrier, tm.p, tm.q, u, Q, slots, keys,
-                              lnr, waits)
+                              work_i, protocol.max_steps, law, (u, Q, waits), (slots, keys, lnr))
         if st != K_GROW:
             break
         state.grow()

@@ -164,6 +164,32 @@ def test_node_pass_equals_twin(seed, tau_f):
     assert vmax == pytest.approx(vmax_ref, rel=1e-10, abs=1e-18)
 
 
+@pytest.mark.parametrize("seed,tau_f,lmin", [(12, 0.0, 0.0), (13, 2e-3, 0.0), (14, 0.0, 9.0)])
+def test_refresh_after_release_equals_a_new_pass(seed, tau_f, lmin):
+    # relax_line updates only the freed nodes after a release (constant Γ): the same bits as a
+    # new node_pass, or False where that pass would find a short free segment and remesh
+    rng = np.random.default_rng(seed)
+    n, Lx = 80, 800.0
+    x, y = wavy_line(rng, n, Lx, 60.0, x0=rng.uniform(-Lx, Lx))
+    pin = random_pins(rng, n, 0.3)
+    prm = params(Lx, tau=4e-3, tau_f=tau_f, mobility=2.5, lmin=lmin)
+    w, passed = run_node_pass(x, y, pin, prm)
+    freed = np.flatnonzero(pin >= 0)[::2]
+    released = pin.copy()
+    released[freed] = -1
+    nodes = padded(freed, n + 8, -1)
+    xs, ys = padded(x, n + 8, 0.0), padded(y, n + 8, 0.0)
+    line = (xs, ys, padded(released, n + 8, -1), np.full(n + 8, -1))
+    done, refreshed = K._refresh_released(line, n, prm, w.f, nodes, len(freed), passed)
+    fresh, expect = run_node_pass(x, y, released, prm)
+    short = np.hypot(np.diff(np.r_[x, x[0] + Lx]), np.diff(np.r_[y, y[0]])) < lmin
+    assert done == (expect[1] < 0) and done == (passed[1] < 0 and not short.any())
+    if done:
+        assert refreshed == expect
+        for row in (C.W_VX, C.W_VY, C.W_FPIN, C.W_NTX, C.W_NTY):
+            assert np.array_equal(w.f[row, :n], fresh.f[row, :n])
+
+
 @pytest.mark.parametrize("tau_over_tf", [0.0, 0.5, 1.0, 1.01, 2.0, 10.0])
 def test_straight_line_velocity_with_friction(tau_over_tf):
     # friction threshold and overdamped glide: v = M (τ − τ_f) for τ > τ_f, else 0 (docs/physics.md)
@@ -626,6 +652,28 @@ def test_find_crossing_none_on_a_graph_line():
     x, y = wavy_line(rng, 60, 600.0, 80.0)
     line, _, _, w = crossing_setup(x, y, np.full(60, -1), 600.0)
     assert K.find_crossing(line, 60, params(600.0, lmax=15.0), w.i)[0] == -1
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_a_cut_said_to_leave_no_crossing_leaves_none(seed):
+    # _reconnect_all skips the search after a cut when _cut_leaves_no_crossing says so: a new
+    # search must then find nothing; on these lines it says so once, at the last cut
+    x, y, Lx = folded_line(seed, 120, 300.0)
+    n = len(x)
+    line, loops, field, w = crossing_setup(x, y, np.full(n, -1), Lx)
+    meta = np.zeros(C.N_META, np.int64)
+    prm = params(Lx, lmax=12.0)
+    said = 0
+    for _ in range(n):
+        p, q, t, alone = K._crossing_search(line, n, prm, w.i)
+        if p < 0:
+            break
+        m = K.cut_crossing(line, n, p, q, t, prm, meta, loops, field, w.f)
+        if alone and K._cut_leaves_no_crossing(line, n, m, p, q, prm, w.i):
+            said += 1
+            assert K.find_crossing(line, m, prm, Work(len(line[0])).i)[0] == -1
+        n = m
+    assert said == 1
 
 
 @pytest.mark.parametrize("strength", [np.inf, 1.0])

@@ -18,7 +18,8 @@ from dlsim import contract as C
 from dlsim.api import run_case
 from dlsim.fields import ObstacleField, square_field
 from dlsim.line import LineState
-from dlsim.solver import LineModel, Protocol, Relaxer, find_crss
+from dlsim.solver import (REFINE_LEVEL_HALVINGS, LineModel, Protocol, Relaxer, find_crss,
+                          refinement_levels)
 
 GAMMA = 0.5          # Γ = G b²/2 (reduced)
 L = 200.0            # square-array spacing (b)
@@ -188,3 +189,32 @@ def test_random_impenetrable_points_near_foreman_makin():
         assert result.field.n == 1024
         ratios.append(result.summary["crss_over_orowan"])
     assert 0.70 <= np.mean(ratios) <= 0.95, ratios
+
+
+@pytest.mark.parametrize("halvings", range(0, 13))
+def test_refinement_levels_reach_the_resolution_of_as_many_bisections(halvings):
+    # docs/physics.md, "The CRSS protocol": the levels multiply to 2^halvings cells, none finer
+    # than REFINE_LEVEL_HALVINGS halvings, as few levels as that allows.
+    levels = refinement_levels(halvings)
+    assert int(np.prod(levels)) == 2 ** halvings
+    assert all(2 <= c <= 2 ** REFINE_LEVEL_HALVINGS for c in levels)
+    assert len(levels) == -(-halvings // REFINE_LEVEL_HALVINGS)
+
+
+@pytest.mark.parametrize("phi_deg, halvings", [(0.0, 8), (120.0, 5)])
+def test_refined_bracket_holds_the_square_array_crss_with_one_flow_per_level(phi_deg, halvings):
+    # Hull & Bacon: τ_c = (2Γ/(bL)) cos(φ_c/2) on a square array (line along a row).  The refined
+    # bracket must be 2^-halvings of the ramp step wide and contain it (within the equilibrium
+    # tolerance, 1e-4 of 2Γ/(bL), and the coarse-node error of 0.2 L, measured below 1e-3 in
+    # test_crss_square_array_exact_at_coarse_node_spacing); each level flows at most once.
+    tau_ref = 2 * GAMMA / L
+    field = square_field(L, 1, 1, np.cos(np.radians(phi_deg) / 2) * 2 * GAMMA)
+    result = find_crss(field, LineModel(GAMMA, 0.2 * L), protocol(tau_ref, bisections=halvings))
+    assert result.converged
+    assert result.hi - result.lo == pytest.approx(0.02 * tau_ref / 2 ** halvings, rel=1e-9)
+    exact = np.cos(np.radians(phi_deg) / 2) * tau_ref
+    assert result.lo - 1e-3 * exact <= exact <= result.hi + 1e-3 * exact
+    refine = [h for h in result.history if h.phase == "refine"]
+    assert sum(h.state == "flowing" for h in refine) <= len(refinement_levels(halvings))
+    pinned = [h.stress for h in refine if h.state == "pinned"]
+    assert pinned == sorted(pinned)          # loading stays monotonic between pinned trials
