@@ -104,9 +104,11 @@ class StepProfile:
     Python calls the kernels one by one (the same calls, in the same order, as the compiled loop),
     timing each; the cost of a call with no nodes (argument unboxing) is subtracted.  Python runs
     between the calls and cools the caches, so the kernel times come out somewhat higher than in
-    the compiled loop: read the shares, not the sum.  The rig's line glides above the CRSS and
-    never settles, so the settling line's backward-Euler step (kernels.settle_displacements) is not
-    in the profile.
+    the compiled loop: read the shares, not the sum.  The move is the constant-Γ line's implicit
+    step (kernels._advance): the backward-Euler displacements along the chains
+    (implicit_displacements, solved again shorter when the fastest nodes would pass the cap), the
+    capture test of the swept areas (move_and_capture), each chain stopped at its first contact
+    (_first_contacts), the new pins, the remesh; its length follows the line as relax_line's does.
     """
 
     def __init__(self, rig: StepRig):
@@ -134,9 +136,18 @@ class StepProfile:
                 line, n, prm, wf, wi[C.I_KEEP], count, passed),
             "contacts and reconnections": lambda: K._reconnect_all(line, n, prm, s.meta, loops, f,
                                                                    wf, wi),
-            "move_and_capture": lambda dt: K.move_and_capture(line, n, dt, prm, f, wf, wi),
+            "implicit_displacements": lambda dt: K.implicit_displacements(line, n, dt, prm, wf),
+            "move_and_capture": lambda: self._move(line, n, prm, f, wf, wi),
+            "first_contacts": lambda ncap: K._first_contacts(line, n, ncap, prm, wf, wi),
             "insert_pins": lambda ncap: K.insert_pins(line, n, ncap, f, wf, wi),
         }
+
+    @staticmethod
+    def _move(line, n, prm, f, wf, wi):
+        """The implicit step's displacements as moves, then the capture test (as _advance)."""
+        K._implicit_moves(line[2], n, wf)
+        wf[C.W_BX, :n], wf[C.W_BY, :n] = line[0][:n], line[1][:n]
+        return K.move_and_capture(line, n, 1.0, prm, f, wf, wi)
 
     def _call(self, name, *args):
         n = self.s.n if self._n is None else self._n
@@ -154,9 +165,10 @@ class StepProfile:
         for name, args in empty.items():
             out[name] = _best(lambda: [k[name](*args) for _ in range(200)], 3) / 200
         # the rest take about as many arrays as node_pass, or twice as many
-        for name in ("remesh", "contacts and reconnections", "move_and_capture"):
+        for name in ("remesh", "contacts and reconnections", "move_and_capture", "first_contacts"):
             out[name] = 2.0 * out["node_pass"]
-        out["insert_pins"] = out["refresh_released"] = out["first_bad"] = out["node_pass"]
+        for name in ("insert_pins", "refresh_released", "first_bad", "implicit_displacements"):
+            out[name] = out["node_pass"]
         return out
 
     def run(self, steps: int) -> tuple[float, int]:
@@ -165,6 +177,12 @@ class StepProfile:
         self._n = None
         n, moved, node_steps = s.n, 0, 0
         searched, reconnections = False, meta[C.M_RECONNECT]
+        prm = self.rig.prm
+        dt0 = K.time_step(prm)
+        cap_move = K.MAX_MOVE_FRACTION * prm.l_min
+        drive = prm.mobility * (abs(prm.tau) - prm.tau_f)
+        dt_low = dt0 if drive * dt0 <= cap_move else cap_move / drive
+        dt, seen = dt_low, meta[C.M_RELEASES]
         t0 = time.perf_counter()
         while moved < steps:
             if 2 * n + 2 * C.MAX_CAPTURES + 16 > s.capacity:
@@ -181,6 +199,7 @@ class StepProfile:
                 passed = self._call("node_pass")
             released = self._call("release")
             if released > 0:
+                meta[C.M_RELEASES] += released
                 done, passed = self._call("refresh_released", released, passed)
                 if not done:
                     continue
@@ -196,7 +215,19 @@ class StepProfile:
                     n, reconnections, searched = n_new, meta[C.M_RECONNECT], True
                     continue
             searched = False
-            ncap, bad = self._call("move_and_capture", K.time_step(self.rig.prm))
+            if meta[C.M_RELEASES] != seen:
+                dt, seen = min(dt, dt0), meta[C.M_RELEASES]
+            big = self._call("implicit_displacements", dt)
+            if big > cap_move and dt > dt_low:
+                dt = max(dt * cap_move / big, dt_low)
+                big = self._call("implicit_displacements", dt)
+            if big < 0.0:       # no pin: the point-implicit step, as _advance takes it
+                raise RuntimeError("the profile's line lost every pin")
+            ncap, bad = self._call("move_and_capture")
+            if ncap > 0:
+                ncap, back = self._call("first_contacts", ncap)
+                if back >= 0:
+                    bad = back if bad < 0 else min(bad, back)
             if ncap > 0:
                 n = self._n = self._call("insert_pins", ncap)
                 first = self.work_i[C.I_CAPTURE, 0]
@@ -204,6 +235,10 @@ class StepProfile:
             if bad >= 0:
                 self._n = n
                 n = self._call("remesh", bad)
+            if 0.0 <= big * K.IMPLICIT_GROWTH <= cap_move:
+                dt = min(dt * K.IMPLICIT_GROWTH, K.SETTLE_STEP * dt0)
+            elif 0.0 < big < cap_move:
+                dt = min(dt * cap_move / big, K.SETTLE_STEP * dt0)
             moved += 1
             node_steps += n
         meta[C.M_N] = n
