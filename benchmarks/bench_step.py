@@ -178,10 +178,7 @@ class StepProfile:
         n, moved, node_steps = s.n, 0, 0
         searched, reconnections = False, meta[C.M_RECONNECT]
         prm = self.rig.prm
-        dt0 = K.time_step(prm)
-        cap_move = K.MAX_MOVE_FRACTION * prm.l_min
-        drive = prm.mobility * (abs(prm.tau) - prm.tau_f)
-        dt_low = dt0 if drive * dt0 <= cap_move else cap_move / drive
+        dt0, cap_move, dt_low = K.implicit_step_bounds(prm)
         dt, seen = dt_low, meta[C.M_RELEASES]
         t0 = time.perf_counter()
         while moved < steps:
@@ -235,10 +232,7 @@ class StepProfile:
             if bad >= 0:
                 self._n = n
                 n = self._call("remesh", bad)
-            if 0.0 <= big * K.IMPLICIT_GROWTH <= cap_move:
-                dt = min(dt * K.IMPLICIT_GROWTH, K.SETTLE_STEP * dt0)
-            elif 0.0 < big < cap_move:
-                dt = min(dt * cap_move / big, K.SETTLE_STEP * dt0)
+            dt = K.next_implicit_step(dt, big, cap_move, dt0)
             moved += 1
             node_steps += n
         meta[C.M_N] = n

@@ -1728,6 +1728,29 @@ def time_step(prm):
 
 
 @njit(**JIT)
+def implicit_step_bounds(prm):
+    """(dt0, cap, dt_low) of the implicit step: :func:`time_step`, the displacement cap
+    MAX_MOVE_FRACTION l_min, and the shortest step, the time a straight free line needs to glide
+    the cap (dt0 if that is shorter)."""
+    dt0 = time_step(prm)
+    cap = MAX_MOVE_FRACTION * prm.l_min
+    drive = prm.mobility * (abs(prm.tau) - prm.tau_f)   # a straight free line's speed
+    return dt0, cap, (dt0 if drive * dt0 <= cap else cap / drive)
+
+
+@njit(**JIT)
+def next_implicit_step(dt, big, cap, dt0):
+    """The implicit step after one of length ``dt`` whose fastest limited node moved ``big``
+    (:func:`implicit_displacements`; -1: a point-implicit step): grown by IMPLICIT_GROWTH at the
+    most, towards the length at which that node moves ``cap``, never past SETTLE_STEP dt0."""
+    if 0.0 <= big * IMPLICIT_GROWTH <= cap:
+        return min(dt * IMPLICIT_GROWTH, SETTLE_STEP * dt0)
+    if 0.0 < big < cap:
+        return min(dt * cap / big, SETTLE_STEP * dt0)
+    return dt
+
+
+@njit(**JIT)
 def _first_bad(line, n, prm):
     """:func:`node_pass`'s ``first_bad`` alone: the first segment longer than l_max, or shorter
     than l_min with a free end, -1 if none (the same lengths, by the same arithmetic).
@@ -2121,10 +2144,7 @@ def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
     reconnections = meta[M_RECONNECT]
     refresh = max(prm.refresh, 1)
     stale = True            # the non-local self-stress must be evaluated (MODEL_SELF)
-    dt0 = time_step(prm)
-    cap_move = MAX_MOVE_FRACTION * prm.l_min
-    drive = prm.mobility * (abs(prm.tau) - prm.tau_f)   # a straight free line's speed
-    dt_low = dt0 if drive * dt0 <= cap_move else cap_move / drive
+    dt0, cap_move, dt_low = implicit_step_bounds(prm)
     dt, seen = work_f[W_CAPTURE, DT_SLOT], work_f[W_CAPTURE, DT_SLOT + 1]
     if dt <= 0.0:
         dt, seen = dt_low, float(meta[M_RELEASES])
@@ -2177,10 +2197,7 @@ def relax_line(line, meta, prm, max_steps, field, loops, work_f, work_i):
         if meta[M_RELEASES] != seen:    # here, in a crossing cut or between calls
             dt, seen = min(dt, dt0), float(meta[M_RELEASES])
         n, dt, big = _advance(line, n, dt, dt_low, prm, meta, field, work_f, work_i)
-        if 0.0 <= big * IMPLICIT_GROWTH <= cap_move:
-            dt = min(dt * IMPLICIT_GROWTH, SETTLE_STEP * dt0)
-        elif 0.0 < big < cap_move:
-            dt = min(dt * cap_move / big, SETTLE_STEP * dt0)
+        dt = next_implicit_step(dt, big, cap_move, dt0)
         work_f[W_CAPTURE, DT_SLOT], work_f[W_CAPTURE, DT_SLOT + 1] = dt, seen
         moved += 1
         since += 1
