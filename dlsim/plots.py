@@ -41,7 +41,10 @@ UNIT_SUFFIXES = {"_nm": "nm", "_MPa": "MPa", "_GPa": "GPa", "_nN": "nN", "_deg":
                  "_per_um2": "µm$^{-2}$", "_um": "µm", "_K": "K", "_per_s": "s$^{-1}$",
                  "_eV": "eV", "_Hz": "Hz", "_per_m2": "m$^{-2}$"}
 ESTIMATE_STYLES = ("--", ":", "-.", (0, (5, 1, 1, 1)))    # run figures: estimates in grey
-STATE_MARKERS = {"pinned": ("o", "C0"), "flowing": (">", "C1"), "unresolved": ("^", "C3")}
+STATE_MARKERS = {"pinned": ("o", "C0"), "moving": (">", "C7"), "flowing": (">", "C1"),
+                 "unresolved": ("^", "C3")}
+# Legend names of the states where the bare name would not say enough (docs/outputs.md).
+STATE_LABELS = {"moving": "moving (a probe of the search, not followed further)"}
 # Flowing relaxations glide far more than the pinned ones; the glide axis stops at this multiple of
 # the largest pinned glide and flowing points sit at its edge.
 AREA_AXIS_MARGIN = 1.3
@@ -682,7 +685,8 @@ def _state_markers(ax, glide, stress, state, top) -> None:
             beyond = top is not None and (glide[sel] > top).any()
             xs = np.minimum(glide[sel], top) if top else glide[sel]
             ax.plot(xs, stress[sel], marker, color=colour, linestyle="none", zorder=4,
-                    label=name + (" (glided beyond the axis)" if beyond else ""))
+                    label=STATE_LABELS.get(name, name)
+                    + (" (glided beyond the axis)" if beyond else ""))
 
 
 def _estimate_lines(ax, estimates: dict[str, float]) -> None:

@@ -5,10 +5,13 @@ stresses.  Protocol (docs/physics.md, "The CRSS protocol"): raise τ in steps fr
 stress, relax to equilibrium at each, call the line flowing once its mean position has moved more
 than a set glide distance past its last pinned configuration, then refine the bracket to the
 resolution of ``bisections`` halvings, every trial restarting from the last pinned
-configuration.  All values are reduced (b, G, G b²).
+configuration.  Trials that only choose where to refine (the ramp, the coarser refinement levels)
+are probes that stop after a short glide; both ends of the final bracket are relaxed in full.
+All values are reduced (b, G, G b²).
 """
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass, field
 from typing import Callable
 
@@ -28,6 +31,10 @@ ANNIHILATION_FRACTION = 0.5
 #: The bracket is refined in levels of at most this many halvings (docs/physics.md, "The CRSS
 #: protocol"): a level of 2^k cells is scanned upwards from its pinned end.
 REFINE_LEVEL_HALVINGS = 4
+#: Trials of the ramp and of the coarser refinement levels stop once the line has glided this many
+#: mean obstacle spacings without pinning (:func:`probe_distance`); only the final bracket's upper
+#: end is followed over the whole flow distance.
+PROBE_SPACINGS = 2.0
 #: Time steps per compiled call when nothing asks for snapshots (keeps Python out of the loop).
 DEFAULT_CHUNK = 50_000
 
@@ -163,7 +170,7 @@ class Relaxation:
 
     phase: str            # "ramp" or "refine"
     stress: float         # G
-    state: str            # "pinned", "flowing" or "unresolved"
+    state: str            # "pinned", "flowing", "moving" (a probe: find_crss) or "unresolved"
     mean_glide: float     # mean line position relative to the start (b)
     swept_area: float     # area swept during this relaxation (b²)
     pinned: int           # pinned nodes at the end
@@ -269,14 +276,22 @@ def find_crss(obstacles: ObstacleField, model: LineModel, protocol: Protocol,
               on_relaxation: Callable[[Relaxation], None] | None = None) -> CrssResult:
     """Bracket the CRSS of a line that starts straight along y = ``y0`` and refine the bracket.
 
-    The ramp raises τ by ``protocol.stress_step`` until the line flows.  The bracket [lo, hi] is
-    then refined to (hi − lo)/2^bisections, the resolution of a bisection with as many steps, in
-    levels (:func:`refinement_levels`): each level cuts the bracket into 2^k equal cells and
-    tries their inner ends upwards from lo, each trial relaxing from the last pinned
-    configuration, until one flows (the new hi) or the cells run out.  A flowing trial glides a
-    whole flow distance and costs tens of times a pinned one near the CRSS, so a level pays for
-    at most one, where bisection pays for about half its steps; the stresses tried lie on the
-    same grid, and loading stays monotonic between pinned trials (closer to quasi-static).
+    The ramp raises τ by ``protocol.stress_step`` until the line no longer pins.  The bracket
+    [lo, hi] is then refined to (hi − lo)/2^bisections, the resolution of a bisection with as
+    many steps, in levels (:func:`refinement_levels`): each level cuts the bracket into 2^k equal
+    cells and tries their inner ends upwards from lo, each trial relaxing from the last pinned
+    configuration, until one does not pin (the new hi) or the cells run out.  A flowing trial
+    glides a whole flow distance and costs tens of times a pinned one near the CRSS, so a level
+    pays for at most one, where bisection pays for about half its steps; the stresses tried lie
+    on the same grid, and loading stays monotonic between pinned trials (closer to quasi-static).
+
+    Only the upper end of the final bracket needs a flow followed over the whole flow distance:
+    the ramp and the coarser levels only choose where to refine, so their trials stop once the
+    line has glided :func:`probe_distance` without pinning (state "moving").  The final level's
+    trials run to the whole distance; if the top of the bracket rests on a probe and every cell
+    below it pins, the top itself is relaxed to the whole distance, and where it pins after all,
+    the ramp goes on from there.  Pinned ends are always relaxed to equilibrium, so the final
+    bracket holds a proven pinned and a proven flowing stress.
 
     Parameters
     ----------
@@ -297,17 +312,26 @@ def find_crss(obstacles: ObstacleField, model: LineModel, protocol: Protocol,
     state = LineState.straight(obstacles.Lx, y0, model.node_spacing)
     start_area = state.area()
     history: list[Relaxation] = []
+    probe = dataclasses.replace(protocol, flow_distance=probe_distance(obstacles, protocol))
+    probing = probe.flow_distance < protocol.flow_distance
+    levels = refinement_levels(protocol.bisections)
 
     done = 0  # time steps so far: snapshots count them from the start of the search
 
     def snap(line: LineState, tau: float, steps: int) -> None:
         on_snapshot(line, tau, done + steps)
 
-    def trial(line: LineState, tau: float, phase: str) -> str:
+    def trial(line: LineState, tau: float, phase: str, final: bool) -> str:
+        """Relax ``line`` in place at ``tau``: "pinned", "flowing" (followed over the whole flow
+        distance: ``final``), "moving" (a probe that glided the probe distance) or
+        "unresolved"."""
         nonlocal done
+        final = final or not probing
         ref = line.area()
-        name, steps = relaxer.relax(line, tau, ref, protocol, chunk,
+        name, steps = relaxer.relax(line, tau, ref, protocol if final else probe, chunk,
                                     snap if on_snapshot is not None and snapshot_every > 0 else None)
+        if name == "flowing" and not final:
+            name = "moving"
         if on_snapshot is not None and snapshot_every <= 0:
             snap(line, tau, steps)
         done += steps
@@ -319,34 +343,53 @@ def find_crss(obstacles: ObstacleField, model: LineModel, protocol: Protocol,
             on_relaxation(row)
         return name
 
-    pinned, lo, hi = state.copy(), model.friction, None
+    pinned, lo, hi, top_name = state.copy(), model.friction, None, ""
     tau = model.friction
     while hi is None:
-        tau += protocol.stress_step
-        if tau > protocol.max_stress:
-            return CrssResult(np.nan, lo, np.nan, False,
-                              f"no flow up to {protocol.max_stress:.4g} G", history, pinned,
-                              _counters(state))
-        if trial(state, tau, "ramp") == "pinned":
-            pinned, lo = state.copy(), tau
-        else:
-            hi = tau
-    unresolved = history[-1].state == "unresolved"
-    for cells in refinement_levels(protocol.bisections):
-        base, width = lo, (hi - lo) / cells
-        for k in range(1, cells):      # the top cell's upper end, hi, is known to flow
-            tau = base + k * width
-            line = pinned.copy()
-            name = trial(line, tau, "refine")
-            unresolved |= name == "unresolved"
-            if name != "pinned":
-                hi = tau
+        while True:                                    # the ramp, from the last pinned stress
+            tau += protocol.stress_step
+            if tau > protocol.max_stress:
+                return CrssResult(np.nan, lo, np.nan, False,
+                                  f"no flow up to {protocol.max_stress:.4g} G", history, pinned,
+                                  _counters(state))
+            top_name = trial(state, tau, "ramp", not levels)
+            if top_name != "pinned":
+                top = tau
                 break
-            pinned, lo = line, tau
+            pinned, lo = state.copy(), tau
+        for depth, cells in enumerate(levels):
+            final = depth == len(levels) - 1
+            base, width = lo, (top - lo) / cells
+            for k in range(1, cells):      # the top cell's upper end is known not to pin
+                tau = base + k * width
+                line = pinned.copy()
+                name = trial(line, tau, "refine", final)
+                if name != "pinned":
+                    top, top_name = tau, name
+                    break
+                pinned, lo = line, tau
+        if top_name != "moving":
+            hi = top
+            break
+        state = pinned.copy()          # every cell below a probe pinned: follow the probe's stress
+        top_name = trial(state, top, "refine", True)
+        if top_name != "pinned":
+            hi = top
+        else:
+            pinned, lo, tau = state.copy(), top, top
+    unresolved = top_name == "unresolved"
     message = "bracketed" if not unresolved else (
-        "bracketed; some relaxations used every allowed step and were counted as not pinned")
+        "bracketed; the relaxation at the upper end used every allowed step and was counted as "
+        "not pinned")
     return CrssResult(0.5 * (lo + hi), lo, hi, not unresolved, message, history, pinned,
                       _counters(pinned))
+
+
+def probe_distance(obstacles: ObstacleField, protocol: Protocol) -> float:
+    """Glide (b) after which a trial of the ramp or of a coarse refinement level that has not
+    pinned is taken as not pinning: PROBE_SPACINGS mean obstacle spacings, at most the flow
+    distance (docs/physics.md, "The CRSS protocol")."""
+    return min(protocol.flow_distance, PROBE_SPACINGS * obstacles.spacing)
 
 
 def refinement_levels(halvings: int) -> list[int]:

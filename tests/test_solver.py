@@ -18,8 +18,8 @@ from dlsim import contract as C
 from dlsim.api import run_case
 from dlsim.fields import ObstacleField, square_field
 from dlsim.line import LineState
-from dlsim.solver import (REFINE_LEVEL_HALVINGS, LineModel, Protocol, Relaxer, find_crss,
-                          refinement_levels)
+from dlsim.solver import (PROBE_SPACINGS, REFINE_LEVEL_HALVINGS, LineModel, Protocol, Relaxer,
+                          find_crss, refinement_levels)
 
 GAMMA = 0.5          # Γ = G b²/2 (reduced)
 L = 200.0            # square-array spacing (b)
@@ -218,3 +218,50 @@ def test_refined_bracket_holds_the_square_array_crss_with_one_flow_per_level(phi
     assert sum(h.state == "flowing" for h in refine) <= len(refinement_levels(halvings))
     pinned = [h.stress for h in refine if h.state == "pinned"]
     assert pinned == sorted(pinned)          # loading stays monotonic between pinned trials
+
+
+@pytest.mark.parametrize("phi_deg, halvings", [(0.0, 8), (120.0, 5)])
+def test_probes_leave_one_whole_flow_at_the_upper_end(phi_deg, halvings):
+    # Hull & Bacon: τ_c = (2Γ/(bL)) cos(φ_c/2) on a square array four rows tall, followed over
+    # the whole box height (4 L, twice the probe distance of PROBE_SPACINGS = 2 spacings): the ramp
+    # and the coarse levels stop their trials as probes ("moving"), only the upper end of the
+    # final bracket is followed in full, and the bracket still holds the formula (tolerance as in
+    # test_refined_bracket_holds_the_square_array_crss_with_one_flow_per_level).
+    assert PROBE_SPACINGS * L < 4 * L
+    tau_ref = 2 * GAMMA / L
+    exact = np.cos(np.radians(phi_deg) / 2) * tau_ref
+    field = square_field(L, 1, 4, exact * L)
+    result = find_crss(field, LineModel(GAMMA, 0.2 * L),
+                       protocol(tau_ref, flow=4 * L, bisections=halvings))
+    assert result.converged
+    assert result.hi - result.lo == pytest.approx(0.02 * tau_ref / 2 ** halvings, rel=1e-9)
+    assert result.lo - 1e-3 * exact <= exact <= result.hi + 1e-3 * exact
+    flowing = [h.stress for h in result.history if h.state == "flowing"]
+    moving = [h.stress for h in result.history if h.state == "moving"]
+    assert flowing == [result.hi]
+    assert 1 <= len(moving) <= len(refinement_levels(halvings))
+    assert min(moving) >= result.hi
+    pinned = [h for h in result.history if h.state == "pinned"]
+    assert max(h.stress for h in pinned) == result.lo
+
+
+def test_a_probe_that_an_avalanche_proves_wrong_does_not_set_the_bracket():
+    # One column, box 10 L tall: a weak row (φ_c = 125°, τ_c = cos 62.5° = 0.46 of 2Γ/(bL), off
+    # the ramp's grid) and 3 L above it a strong row (φ_c = 60°, τ_c = cos 30° of 2Γ/(bL); Hull &
+    # Bacon, as above).  Above the weak row's stress the line glides 3 L, past the probe distance (2 L), and pins at the strong row:
+    # the probe said "not pinned" and was wrong.  The CRSS is the strong row's; the search must
+    # find it by following the probe's stress in full, not report the weak row's.
+    tau_ref = 2 * GAMMA / L
+    strengths = np.cos(np.radians([62.5, 30.0])) * tau_ref * L
+    field = ObstacleField(np.array([0.5 * L, 0.5 * L]), np.array([0.5 * L, 3.5 * L]),
+                          np.zeros(2), strengths, np.zeros(2, np.int64), L, 10 * L, L, "square")
+    result = find_crss(field, LineModel(GAMMA, 0.2 * L),
+                       protocol(tau_ref, flow=10 * L, bisections=5))
+    assert result.converged
+    exact = np.cos(np.radians(30.0)) * tau_ref
+    assert result.lo - 1e-3 * exact <= exact <= result.hi + 1e-3 * exact
+    weak = np.cos(np.radians(62.5)) * tau_ref
+    wrong = [h for h in result.history if h.state == "moving" and h.stress < exact]
+    assert wrong and all(h.stress > weak for h in wrong)
+    assert any(h.state == "pinned" and h.stress == wrong[-1].stress for h in result.history)
+    assert [h.stress for h in result.history if h.state == "flowing"] == [result.hi]
